@@ -1,0 +1,119 @@
+"""Load and validate a run's configuration.
+
+The config is YAML, validated against ``workflow/schemas/config.schema.yaml``
+(JSON Schema). Every mapping in the schema forbids unknown keys, so a
+misspelled key stops the run with its name and the keys allowed there.
+Defaults written in the schema are filled in, so the manifest records the
+config as run.
+"""
+
+from __future__ import annotations
+
+import copy
+from pathlib import Path
+from typing import Any
+
+import jsonschema
+import yaml
+
+from liqpanel.errors import ConfigError
+
+REPO_ROOT = Path(__file__).resolve().parents[2]
+SCHEMA_PATH = REPO_ROOT / "workflow" / "schemas" / "config.schema.yaml"
+MARKETS_DIR = REPO_ROOT / "config" / "markets"
+
+
+def load_schema(path: Path = SCHEMA_PATH) -> dict:
+    with open(path) as fh:
+        return yaml.safe_load(fh)
+
+
+def _where(error: jsonschema.ValidationError) -> str:
+    parts = [str(p) for p in error.absolute_path]
+    return ".".join(parts) if parts else "the top level"
+
+
+def _message(error: jsonschema.ValidationError) -> str:
+    where = _where(error)
+    if error.validator == "additionalProperties":
+        allowed = sorted(error.schema.get("properties", {}))
+        extra = sorted(set(error.instance) - set(allowed))
+        key = extra[0] if extra else "?"
+        return f"unknown key '{key}' under {where}; allowed keys there: {', '.join(allowed)}"
+    if error.validator == "required":
+        return f"{where}: {error.message}"
+    if error.validator == "enum":
+        return f"{where}: {error.instance!r} is not one of {error.validator_value}"
+    if error.validator == "type":
+        return f"{where}: expected {error.validator_value}, got {error.instance!r}"
+    return f"{where}: {error.message}"
+
+
+def _fill_defaults(instance: Any, schema: dict) -> Any:
+    """Fill ``default`` values of object properties, recursively."""
+    if isinstance(instance, dict) and schema.get("type") == "object":
+        for key, sub in schema.get("properties", {}).items():
+            if key not in instance and "default" in sub:
+                instance[key] = copy.deepcopy(sub["default"])
+            if key in instance:
+                instance[key] = _fill_defaults(instance[key], sub)
+        extra = schema.get("additionalProperties")
+        if isinstance(extra, dict):
+            for key in instance:
+                if key not in schema.get("properties", {}):
+                    instance[key] = _fill_defaults(instance[key], extra)
+    elif isinstance(instance, list) and isinstance(schema.get("items"), dict):
+        return [_fill_defaults(item, schema["items"]) for item in instance]
+    return instance
+
+
+def validate_config(config: dict, *, source: str = "config") -> dict:
+    """Validate ``config`` against the schema; return a copy with defaults filled.
+
+    Raises ConfigError naming the offending key and what was expected.
+    """
+    if not isinstance(config, dict):
+        raise ConfigError(f"{source}: the config must be a mapping of keys to values")
+    schema = load_schema()
+    validator = jsonschema.Draft202012Validator(schema)
+    errors = sorted(validator.iter_errors(config), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
+    if errors:
+        raise ConfigError(f"{source}: {_message(errors[0])}")
+    filled = _fill_defaults(copy.deepcopy(config), schema)
+    # measure names and options are checked against the registry
+    from liqpanel.measures import get_measure, resolve_options
+
+    for name, options in (filled.get("measures") or {}).items():
+        try:
+            resolve_options(get_measure(name), options)
+        except ConfigError as exc:
+            raise ConfigError(f"{source}: {exc}") from None
+    return filled
+
+
+def load_config(path: str | Path) -> dict:
+    path = Path(path)
+    try:
+        with open(path) as fh:
+            raw = yaml.safe_load(fh)
+    except FileNotFoundError:
+        raise ConfigError(f"config file {path} does not exist") from None
+    except yaml.YAMLError as exc:
+        raise ConfigError(f"config file {path} is not valid YAML: {exc}") from None
+    return validate_config(raw, source=str(path))
+
+
+def load_market(name_or_path: str) -> dict:
+    """Load a market profile by name (``config/markets/<name>.yaml``) or path."""
+    path = Path(name_or_path)
+    if not path.suffix:
+        path = MARKETS_DIR / f"{name_or_path}.yaml"
+    if not path.exists():
+        known = ", ".join(sorted(p.stem for p in MARKETS_DIR.glob("*.yaml")))
+        raise ConfigError(f"market profile '{name_or_path}' not found (looked for {path}); known profiles: {known}")
+    with open(path) as fh:
+        market = yaml.safe_load(fh)
+    for key in ("timezone", "sessions"):
+        if key not in market:
+            raise ConfigError(f"market profile {path} has no '{key}'")
+    return market

@@ -1,0 +1,104 @@
+"""Reading user tables into our contracts, and writing outputs safely.
+
+Inputs are never modified. Outputs are written to a temporary name in the
+same folder and moved into place, so a reader never sees a partial file.
+"""
+
+from __future__ import annotations
+
+import glob
+import hashlib
+import os
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Iterator
+
+import polars as pl
+
+from liqpanel.errors import InputError
+
+
+def _files(path: str) -> list[str]:
+    files = sorted(glob.glob(path)) if any(ch in path for ch in "*?[") else [path]
+    if not files or not all(os.path.exists(f) for f in files):
+        raise InputError("no such file (check `inputs:` in the config)", path=path)
+    return files
+
+
+def scan_table(path: str | Path, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
+    """Lazily scan a Parquet or CSV file (or a glob of them) and rename columns.
+
+    ``mapping`` goes from the user's column names to ours; columns not named
+    keep their names.
+    """
+    path = str(path)
+    files = _files(path)
+    suffixes = {Path(f).suffixes[-1].lower() if Path(f).suffixes else "" for f in files}
+    if suffixes <= {".parquet", ".pq"}:
+        lf = pl.scan_parquet(files)
+    elif suffixes <= {".csv", ".gz", ".zst"}:
+        lf = pl.concat([pl.scan_csv(f, try_parse_dates=False) for f in files], how="vertical_relaxed")
+    else:
+        raise InputError(f"unsupported file type {sorted(suffixes)}; expected .parquet or .csv", path=path)
+    if mapping:
+        names = lf.collect_schema().names()
+        for theirs in mapping:
+            if theirs not in names:
+                raise InputError(
+                    f"the `columns:` mapping names '{theirs}' but the file has {names}", path=path, column=theirs
+                )
+        lf = lf.rename(mapping)
+    return lf
+
+
+def sha256_file(path: str | Path, chunk: int = 1 << 20) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while block := fh.read(chunk):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+@contextmanager
+def atomic_path(path: str | Path) -> Iterator[Path]:
+    """Yield a temporary path beside ``path``; move it into place on success."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    os.close(fd)
+    try:
+        yield Path(tmp)
+        os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def write_parquet(frame: pl.DataFrame | pl.LazyFrame, path: str | Path) -> Path:
+    """Write a frame to Parquet atomically with deterministic settings."""
+    if isinstance(frame, pl.LazyFrame):
+        frame = frame.collect()
+    with atomic_path(path) as tmp:
+        frame.write_parquet(tmp, compression="zstd", statistics=True)
+    return Path(path)
+
+
+def write_text(text: str, path: str | Path) -> Path:
+    with atomic_path(path) as tmp:
+        Path(tmp).write_text(text)
+    return Path(path)
+
+
+def month_range(start: str, end: str) -> list[str]:
+    """Months from ``start`` to ``end`` inclusive, as 'YYYY-MM' strings."""
+    y0, m0 = map(int, start.split("-"))
+    y1, m1 = map(int, end.split("-"))
+    first, last = y0 * 12 + m0 - 1, y1 * 12 + m1 - 1
+    return [f"{k // 12:04d}-{k % 12 + 1:02d}" for k in range(first, last + 1)]
+
+
+def previous_month(month: str) -> str:
+    y, m = map(int, month.split("-"))
+    k = y * 12 + m - 2
+    return f"{k // 12:04d}-{k % 12 + 1:02d}"

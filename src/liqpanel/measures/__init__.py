@@ -1,0 +1,108 @@
+"""Monthly measures: the registry and the measures stage.
+
+``compute_monthly`` takes the daily table of one or more months and the
+config's ``measures:`` mapping and returns one row per (security, month)
+with ``n_days`` and, for every selected measure, its outputs, ``<name>_n``
+(observations used) and ``<name>_reason`` (why a value is missing).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import polars as pl
+
+from liqpanel.contracts import check_unique_key, require_columns
+from liqpanel.errors import ConfigError
+from liqpanel.measures.activity import amihud_illiquidity
+from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
+from liqpanel.measures.roll import roll_spread
+
+KEY = ["security", "month"]
+
+register(
+    Measure(
+        name="roll_spread",
+        function=roll_spread,
+        outputs=("roll_spread", "roll_efficient_var"),
+        columns=("ret",),
+        source="Roll (1984), Journal of Finance 39(4)",
+        family="spread",
+        min_days=15,
+        options={"series": "log_price", "convention": "missing"},
+        description="2*sqrt(-cov(dp_t, dp_t-1)); implied efficient-price variance gamma0 + 2*gamma1",
+    )
+)
+register(
+    Measure(
+        name="amihud",
+        function=amihud_illiquidity,
+        outputs=("amihud",),
+        columns=("ret", "dollar_volume"),
+        source="Amihud (2002), Journal of Financial Markets 5(1)",
+        family="impact",
+        min_days=15,
+        options={"scale": 1e6},
+        description="mean |r| / dollar volume over days with volume, x 10^6",
+    )
+)
+
+try:  # the estimator library registers the remaining measures
+    from liqpanel.measures import library as _library  # noqa: F401
+except ImportError:  # pragma: no cover - absent only while the library is built
+    pass
+
+
+def _needs_market_return(names: list[str]) -> bool:
+    return any("mkt_ret" in REGISTRY[n].columns for n in names)
+
+
+def compute_monthly(daily: pl.LazyFrame, selection: dict[str, dict[str, Any] | None]) -> pl.DataFrame:
+    """Compute every selected measure per security-month.
+
+    A measure whose ``n_obs`` is below its minimum gets a missing value and
+    the reason ``too_few_days``; a value missing for another reason keeps the
+    measure's own reason.
+    """
+    if not selection:
+        raise ConfigError("`measures:` selects no measure; `liqpanel measures` lists them")
+    names = list(selection)
+    measures = [get_measure(n) for n in names]
+    available = set(daily.collect_schema().names())
+    if _needs_market_return(names) and "mkt_ret" not in available:
+        from liqpanel.measures.market import add_market_return
+
+        daily = add_market_return(daily)
+        available.add("mkt_ret")
+    for m in measures:
+        missing = [c for c in m.columns if c not in available]
+        if missing:
+            raise ConfigError(
+                f"measure '{m.name}' needs daily column(s) {missing}, which the daily table lacks; "
+                "drop the measure from `measures:` or supply the column"
+            )
+    daily = daily.sort("security", "date").cache()
+    result = daily.group_by(KEY).agg(pl.len().cast(pl.Int64).alias("n_days"))
+    for m in measures:
+        options = resolve_options(m, selection[m.name])
+        min_days = options.pop("min_days")
+        frame = m.function(daily, **options)
+        cols = frame.collect_schema().names()
+        if "reason" not in cols:
+            frame = frame.with_columns(pl.lit(None, dtype=pl.String).alias("reason"))
+        too_few = pl.col("n_obs") < min_days
+        frame = frame.select(
+            *KEY,
+            *[pl.when(too_few).then(None).otherwise(pl.col(o)).cast(pl.Float64).alias(o) for o in m.outputs],
+            pl.col("n_obs").cast(pl.Int64).alias(f"{m.name}_n"),
+            pl.when(too_few)
+            .then(pl.format("too_few_days ({} < {})", pl.col("n_obs"), pl.lit(min_days)))
+            .otherwise(pl.col("reason"))
+            .alias(f"{m.name}_reason"),
+        )
+        result = result.join(frame, on=KEY, how="left")
+    out = result.sort(KEY).collect()
+    return check_unique_key(out, KEY, table="monthly measures")
+
+
+__all__ = ["REGISTRY", "Measure", "compute_monthly", "get_measure", "register", "resolve_options"]

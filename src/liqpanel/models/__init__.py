@@ -1,0 +1,34 @@
+"""Models stage: regressions, portfolio sorts, the liquidity factor, proxy validation.
+
+Pure functions of the analysis panel (keyed by ``security``, ``month``; the
+dependent ``ret_next`` is the return of month t+1), testable without Snakemake.
+"""
+
+from liqpanel.models.factor import factor_summary, liquidity_factor
+from liqpanel.models.regressions import (
+    ModelResult,
+    ModelSpec,
+    automatic_lags,
+    fit_model,
+    newey_west_mean,
+    regression_table,
+)
+from liqpanel.models.sorts import DoubleSortResult, HighMinusLow, SortResult, double_sort, sort_portfolios
+from liqpanel.models.validation import validate_proxies
+
+__all__ = [
+    "DoubleSortResult",
+    "HighMinusLow",
+    "ModelResult",
+    "ModelSpec",
+    "SortResult",
+    "automatic_lags",
+    "double_sort",
+    "factor_summary",
+    "fit_model",
+    "liquidity_factor",
+    "newey_west_mean",
+    "regression_table",
+    "sort_portfolios",
+    "validate_proxies",
+]

@@ -1,0 +1,107 @@
+"""The panel stage: monthly measures + characteristics + next-month returns.
+
+For each (security, month t) the panel holds the month-t measures, the
+characteristics as they were public at the end of month t, and ``ret_next``,
+the simple return of month t+1.
+
+No look-ahead: a characteristics row dated d with a publication lag of L
+months becomes usable from the month containing d plus L months (so
+month-end market data, L = 0, is usable in its own month; annual accounts
+with L = 6 are usable six months after the fiscal period ends). The merge is
+an as-of join: each security-month takes the latest row already public.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import polars as pl
+
+from liqpanel.contracts import check_unique_key, month_of, require_columns
+from liqpanel.errors import InputError
+from liqpanel.io import scan_table
+
+KEY = ["security", "month"]
+
+
+def next_month_returns(returns: pl.LazyFrame) -> pl.LazyFrame:
+    """``ret_next`` for month t from a monthly (security, month, ret) table."""
+    return returns.select(
+        "security",
+        pl.col("month").dt.offset_by("-1mo").alias("month"),
+        pl.col("ret").alias("ret_next"),
+    )
+
+
+def monthly_from_daily(daily: pl.LazyFrame) -> pl.LazyFrame:
+    """Compound daily simple returns into monthly ones: prod(1 + r) - 1.
+
+    A month with any missing daily return (other than a security's first
+    day) still compounds the days it has; this is the convention of this
+    project.
+    """
+    return daily.group_by("security", "month").agg(((pl.col("ret") + 1.0).product() - 1.0).alias("ret"))
+
+
+def read_monthly_returns(path: str, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
+    lf = scan_table(path, mapping)
+    require_columns(lf, ("security", "month", "ret"), table="monthly returns", path=path)
+    return lf.select(pl.col("security").cast(pl.String), month_of(pl.col("month").cast(pl.Date)).alias("month"), pl.col("ret").cast(pl.Float64))
+
+
+def asof_characteristics(
+    keys: pl.LazyFrame, source: pl.LazyFrame, *, variables: list[str], lag_months: int, date_column: str = "date"
+) -> pl.LazyFrame:
+    """Attach each key's latest characteristics already public in its month."""
+    public = (
+        source.select(
+            pl.col("security").cast(pl.String),
+            month_of(pl.col(date_column).cast(pl.Date)).dt.offset_by(f"{lag_months}mo").alias("public_month"),
+            *[pl.col(v) for v in variables],
+        )
+        .drop_nulls("public_month")
+        .sort("security", "public_month")
+        .unique(["security", "public_month"], keep="last", maintain_order=True)
+        .sort("public_month")
+    )
+    return (
+        keys.sort("month")
+        .join_asof(
+            public, left_on="month", right_on="public_month", by="security", strategy="backward", check_sortedness=False
+        )
+        .drop("public_month")
+    )
+
+
+def build_panel(
+    monthly: pl.LazyFrame,
+    *,
+    returns: pl.LazyFrame,
+    characteristics: list[dict[str, Any]] | None = None,
+) -> pl.DataFrame:
+    """Join measures, public characteristics and next-month returns.
+
+    ``returns`` is a monthly (security, month, ret) table; ``characteristics``
+    a list of dicts with ``frame`` (LazyFrame), ``variables``, ``lag_months``
+    and ``date_column``.
+    """
+    panel = monthly
+    for source in characteristics or []:
+        names = source["frame"].collect_schema().names()
+        for column in ["security", source.get("date_column", "date"), *source["variables"]]:
+            if column not in names:
+                raise InputError(
+                    f"characteristics source '{source.get('name', '?')}' lacks column '{column}'",
+                    path=source.get("path"),
+                    column=column,
+                )
+        panel = asof_characteristics(
+            panel,
+            source["frame"],
+            variables=source["variables"],
+            lag_months=source.get("lag_months", 0),
+            date_column=source.get("date_column", "date"),
+        )
+    panel = panel.join(next_month_returns(returns), on=KEY, how="left")
+    out = panel.sort(KEY).collect()
+    return check_unique_key(out, KEY, table="panel")

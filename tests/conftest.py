@@ -1,0 +1,3 @@
+import os
+
+os.environ.setdefault("POLARS_MAX_THREADS", "2")

@@ -1,0 +1,69 @@
+"""Config validation: a misspelled or unknown key stops the run naming it."""
+
+import copy
+from pathlib import Path
+
+import pytest
+import yaml
+
+from liqpanel.cli import main
+from liqpanel.config import load_config, validate_config
+from liqpanel.errors import ConfigError
+
+DEMO = Path(__file__).resolve().parents[1] / "config" / "config.yaml"
+
+
+def _demo():
+    return yaml.safe_load(DEMO.read_text())
+
+
+def test_demo_config_is_valid_and_defaults_are_filled():
+    cfg = load_config(DEMO)
+    assert cfg["clean"]["duplicates"] is True
+    assert cfg["inputs"]["quotes"] is None  # default filled
+    assert cfg["run"]["work_dir"] == "work"
+
+
+@pytest.mark.parametrize(
+    "path, bad_key",
+    [((), "measurs"), (("clean",), "dupliactes"), (("inputs",), "trade_file"), (("run",), "colour")],
+)
+def test_unknown_key_is_named(path, bad_key):
+    cfg = _demo()
+    node = cfg
+    for p in path:
+        node = node.setdefault(p, {})
+    node[bad_key] = 1
+    with pytest.raises(ConfigError, match=f"unknown key '{bad_key}'"):
+        validate_config(cfg)
+
+
+def test_unknown_measure_lists_the_valid_ones():
+    cfg = _demo()
+    cfg["measures"]["rol_spread"] = {}
+    with pytest.raises(ConfigError, match="unknown measure 'rol_spread'.*roll_spread"):
+        validate_config(cfg)
+
+
+def test_unknown_measure_option_is_named():
+    cfg = _demo()
+    cfg["measures"]["roll_spread"]["convension"] = "zero"
+    with pytest.raises(ConfigError, match="no option 'convension'"):
+        validate_config(cfg)
+
+
+def test_wrong_type_is_explained():
+    cfg = _demo()
+    cfg["sample"]["start"] = "January"
+    with pytest.raises(ConfigError, match="sample.start"):
+        validate_config(cfg)
+
+
+def test_cli_reports_a_bad_key_without_a_traceback(tmp_path, capsys):
+    cfg = _demo()
+    cfg["measurs"] = {}
+    path = tmp_path / "bad.yaml"
+    path.write_text(yaml.safe_dump(cfg))
+    assert main(["check-config", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "unknown key 'measurs'" in err and "Traceback" not in err

@@ -1,0 +1,36 @@
+# Validate the config, fix the run-id and the month partitions.
+import sys
+
+from liqpanel import stages
+from liqpanel.config import validate_config
+from liqpanel.errors import LiqpanelError
+from liqpanel.io import month_range, previous_month
+from liqpanel.report import input_files, run_id
+
+if not config:
+    sys.stderr.write("liqpanel: no config given; run with --configfile config/config.yaml\n")
+    sys.exit(2)
+try:
+    CONFIG = validate_config(config, source="config")
+    INPUTS = input_files(CONFIG)
+    RUN_ID = run_id(CONFIG, INPUTS)
+except LiqpanelError as exc:
+    sys.stderr.write(f"liqpanel: {exc}\n")
+    sys.exit(2)
+
+WORK = CONFIG["run"]["work_dir"]
+RESULTS = CONFIG["run"]["results_dir"]
+MONTHS = month_range(CONFIG["sample"]["start"], CONFIG["sample"]["end"])
+FROM_TRADES = not CONFIG["inputs"]["daily"]
+STARTED = stages.now()
+COMMAND = " ".join(sys.argv)
+
+wildcard_constraints:
+    month=r"\d{4}-\d{2}",
+
+
+# The target every run asks for (Snakemake takes no default target from an
+# included file, so the Makefile and `liqpanel run` name it).
+rule all:
+    input:
+        f"{RESULTS}/{RUN_ID}",

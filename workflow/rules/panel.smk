@@ -1,0 +1,14 @@
+# panel: monthly measures + public characteristics + next-month return (liqpanel.panel)
+rule panel:
+    input:
+        monthly=f"{WORK}/monthly.parquet",
+        daily=expand(f"{WORK}/daily/month={{month}}/daily.parquet", month=MONTHS),
+        sources=[c["path"] for c in CONFIG["inputs"]["characteristics"]]
+        + ([CONFIG["inputs"]["returns"]] if CONFIG["inputs"]["returns"] else []),
+    output:
+        f"{WORK}/panel.parquet",
+    params:
+        panel=CONFIG["panel"],
+        characteristics=CONFIG["inputs"]["characteristics"],
+    run:
+        stages.panel(CONFIG, input.monthly, list(input.daily), output[0])

@@ -1,0 +1,22 @@
+# report: everything -> results/<run-id>/ (liqpanel.report)
+rule report:
+    input:
+        monthly=f"{WORK}/monthly.parquet",
+        panel=f"{WORK}/panel.parquet",
+        audit=[f"{WORK}/audit.parquet"] if FROM_TRADES else [],
+        table=f"{WORK}/models/regression_table.parquet",
+        truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
+    output:
+        directory(f"{RESULTS}/{RUN_ID}"),
+    run:
+        stages.report(
+            CONFIG,
+            RUN_ID,
+            output[0],
+            monthly_path=input.monthly,
+            panel_path=input.panel,
+            audit_path=input.audit[0] if input.audit else None,
+            regression_table_path=input.table,
+            started=STARTED,
+            command=COMMAND,
+        )
