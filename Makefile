@@ -16,7 +16,7 @@ $(STAMP): pyproject.toml
 	@touch $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --cores $(CORES) --rerun-incomplete --quiet rules -- all
+	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --cores $(CORES) --force-use-threads --rerun-incomplete --quiet rules -- all
 	@echo "results: results/latest -> $$(readlink results/latest)"
 	@cat results/latest/tables/regressions.md
 

@@ -50,7 +50,7 @@ def _config(data: Path) -> dict:
 def _snakemake(workdir: Path, configfile: Path) -> subprocess.CompletedProcess:
     cmd = [
         sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
-        "--configfile", str(configfile), "--cores", "2", "--quiet", "rules", "--", "all",
+        "--configfile", str(configfile), "--cores", "2", "--force-use-threads", "--quiet", "rules", "--", "all",
     ]
     return subprocess.run(cmd, capture_output=True, text=True, timeout=600)
 

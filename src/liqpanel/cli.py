@@ -61,7 +61,7 @@ def _run(args: argparse.Namespace, extra: list[str]) -> int:
     load_config(args.config)  # fail fast with a clear message
     cmd = [
         sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
-        "--configfile", str(args.config), "--cores", str(args.cores), "--rerun-incomplete", *extra, *([] if any(not e.startswith("-") for e in extra) else ["all"]),
+        "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, *([] if any(not e.startswith("-") for e in extra) else ["all"]),
     ]
     return subprocess.call(cmd)
 
