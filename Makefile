@@ -7,7 +7,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 CORES ?= 2
 
-.PHONY: demo test bench clean-work
+.PHONY: demo test bench cluster-test clean-work
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -22,6 +22,14 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q
+
+# The demo workflow through a real single-node SLURM cluster (root; CI).
+$(VENV)/.installed-cluster: $(STAMP)
+	$(BIN)/python -m pip install --quiet -e '.[test,cluster]'
+	@touch $@
+
+cluster-test: $(VENV)/.installed-cluster
+	bash .ci/cluster-test.sh
 
 bench: $(STAMP)
 	$(BIN)/python -m bench
