@@ -4,7 +4,10 @@ Open, high, low and close are the first, highest, lowest and last trade
 prices of the local trading day; volume is the sum of sizes; dollar volume
 the sum of price x size, in the market's currency; VWAP = dollar volume /
 volume. The return is close-to-close, simple, from the security's previous
-trading day (which may lie in the previous month partition).
+trading day (which may lie in the previous month partition). After a whole
+calendar month without a trading day the return is missing: the month
+partitions look back one month only, and a table of many months follows the
+same rule so that both give the same returns (convention of this project).
 """
 
 from __future__ import annotations
@@ -61,9 +64,16 @@ def add_returns(bars: pl.LazyFrame, previous: pl.LazyFrame | None = None) -> pl.
         stacked = pl.concat([last, bars.with_columns(pl.lit(False).alias("_previous"))], how="diagonal_relaxed")
     else:
         stacked = bars.with_columns(pl.lit(False).alias("_previous"))
+    previous_date = pl.col("date").shift(1).over("security")
+    stale = previous_date < month_of("date").dt.offset_by("-1mo")
     return (
         stacked.sort("security", "date")
-        .with_columns((pl.col("close") / pl.col("close").shift(1).over("security") - 1.0).alias("ret"))
+        .with_columns(
+            pl.when(stale)
+            .then(None)
+            .otherwise(pl.col("close") / pl.col("close").shift(1).over("security") - 1.0)
+            .alias("ret")
+        )
         .filter(~pl.col("_previous"))
         .select(*cols, "ret")
     )

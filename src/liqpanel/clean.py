@@ -46,10 +46,17 @@ def to_utc(expr: pl.Expr, dtype: pl.DataType, timezone: str) -> pl.Expr:
     raise InputError(f"timestamps must be datetimes or ISO strings, found {dtype}", column="ts")
 
 
-def read_trades(path: str, mapping: dict[str, str], market: dict) -> pl.LazyFrame:
-    """Scan a trade file into the trades contract (``ts`` in UTC)."""
+def read_trades(path: str, mapping: dict[str, str], market: dict, where: pl.Expr | None = None) -> pl.LazyFrame:
+    """Scan a trade file into the trades contract (``ts`` in UTC).
+
+    ``where`` is an optional condition on the columns as stored (after
+    renaming), applied before any conversion so the reader can skip row
+    groups with it (``liqpanel.partition.month_window``).
+    """
     lf = scan_table(path, mapping)
     require_columns(lf, TRADES, table="trades", path=path)
+    if where is not None:
+        lf = lf.filter(where)
     schema = lf.collect_schema()
     for column in ("price", "size"):
         if not schema[column].is_numeric():

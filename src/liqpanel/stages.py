@@ -22,6 +22,7 @@ from liqpanel.contracts import DAILY, month_of, require_columns
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
 from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns
+from liqpanel.partition import month_window
 
 
 def _month_filter(month: str) -> pl.Expr:
@@ -31,10 +32,13 @@ def _month_filter(month: str) -> pl.Expr:
 def clean_month(config: dict, month: str, out_trades: str, out_audit: str) -> None:
     market = load_market(config["market"])
     path = config["inputs"]["trades"]
-    trades = read_trades(path, config["columns"].get("trades", {}), market)
+    mapping = config["columns"].get("trades", {})
     sample = (config["sample"]["start"], config["sample"]["end"])
+    stored = scan_table(path, mapping).collect_schema()
+    window = month_window(stored["ts"], month, sample, market["timezone"]) if "ts" in stored else None
+    trades = read_trades(path, mapping, market, where=window)
     kept, audit = clean_trades(trades, market, config["clean"], month=month, sample=sample)
-    kept, audit = pl.collect_all([kept, audit])
+    kept, audit = pl.collect_all([kept, audit], engine="streaming")
     check_conservation(audit)
     write_parquet(kept, out_trades)
     write_parquet(audit, out_audit)
@@ -65,8 +69,10 @@ def daily_from_file(config: dict, month: str, out: str) -> None:
     write_parquet(lf.filter(_month_filter(month)).sort("security", "date"), out)
 
 
-def measures_month(config: dict, daily_path: str, out: str) -> None:
-    write_parquet(compute_monthly(pl.scan_parquet(daily_path), config["measures"]), out)
+def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
+    """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
+    previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
+    write_parquet(compute_monthly(pl.scan_parquet(daily_path), config["measures"], previous=previous), out)
 
 
 def gather(paths: list[str], out: str, sort: list[str]) -> None:

@@ -9,15 +9,10 @@ if FROM_TRADES:
         run:
             stages.bars_month(input[0], output[0])
 
-    def _previous_bars(wildcards):
-        if wildcards.month == MONTHS[0]:
-            return []
-        return [f"{WORK}/bars/month={previous_month(wildcards.month)}/bars.parquet"]
-
     rule daily:
         input:
             bars=f"{WORK}/bars/month={{month}}/bars.parquet",
-            previous=_previous_bars,
+            previous=previous_partition(f"{WORK}/bars/month={{month}}/bars.parquet"),
         output:
             f"{WORK}/daily/month={{month}}/daily.parquet",
         run:

@@ -29,6 +29,17 @@ wildcard_constraints:
     month=r"\d{4}-\d{2}",
 
 
+def previous_partition(path):
+    """Input function: ``path`` (with a {month} field) of the previous month, none for the first."""
+
+    def previous(wildcards):
+        if wildcards.month == MONTHS[0]:
+            return []
+        return [path.format(month=previous_month(wildcards.month))]
+
+    return previous
+
+
 # The target every run asks for (Snakemake takes no default target from an
 # included file, so the Makefile and `liqpanel run` name it).
 rule all:

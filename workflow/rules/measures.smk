@@ -1,13 +1,17 @@
-# measures: daily table of one month -> monthly measures (liqpanel.measures)
+# measures: daily table of one month (+ the previous month's last days,
+# flagged, for day-pair estimators) -> monthly measures (liqpanel.measures)
 rule measures:
     input:
-        f"{WORK}/daily/month={{month}}/daily.parquet",
+        daily=f"{WORK}/daily/month={{month}}/daily.parquet",
+        previous=previous_partition(f"{WORK}/daily/month={{month}}/daily.parquet"),
     output:
         f"{WORK}/measures/month={{month}}/monthly.parquet",
     params:
         measures=CONFIG["measures"],
     run:
-        stages.measures_month(CONFIG, input[0], output[0])
+        stages.measures_month(
+            CONFIG, input.daily, input.previous[0] if input.previous else None, output[0]
+        )
 
 
 rule monthly:

@@ -17,6 +17,7 @@ from liqpanel.errors import ConfigError
 from liqpanel.measures.activity import amihud_illiquidity
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
 from liqpanel.measures.roll import roll_spread
+from liqpanel.partition import PREVIOUS_DAY, with_previous_day
 
 KEY = ["security", "month"]
 
@@ -57,12 +58,24 @@ def _needs_market_return(names: list[str]) -> bool:
     return any("mkt_ret" in REGISTRY[n].columns for n in names)
 
 
-def compute_monthly(daily: pl.LazyFrame, selection: dict[str, dict[str, Any] | None]) -> pl.DataFrame:
+def compute_monthly(
+    daily: pl.LazyFrame,
+    selection: dict[str, dict[str, Any] | None],
+    *,
+    previous: pl.LazyFrame | None = None,
+) -> pl.DataFrame:
     """Compute every selected measure per security-month.
 
     A measure whose ``n_obs`` is below its minimum gets a missing value and
     the reason ``too_few_days``; a value missing for another reason keeps the
     measure's own reason.
+
+    A measure that lists ``from_previous_month`` among its required columns
+    also gets, per security-month, the security's last day of the previous
+    month, flagged True in that column (``liqpanel.partition``): taken from
+    ``previous`` (the previous month partition's daily table) when given,
+    else from ``daily`` itself. Other measures and ``n_days`` see the
+    month's own days only, and no month is reported for a flagged day alone.
     """
     if not selection:
         raise ConfigError("`measures:` selects no measure; `liqpanel measures` lists them")
@@ -73,7 +86,11 @@ def compute_monthly(daily: pl.LazyFrame, selection: dict[str, dict[str, Any] | N
         from liqpanel.measures.market import add_market_return
 
         daily = add_market_return(daily)
+        previous = add_market_return(previous) if previous is not None else None
         available.add("mkt_ret")
+    wants_previous_day = any(PREVIOUS_DAY in m.columns for m in measures)
+    if wants_previous_day:
+        available.add(PREVIOUS_DAY)
     for m in measures:
         missing = [c for c in m.columns if c not in available]
         if missing:
@@ -82,11 +99,12 @@ def compute_monthly(daily: pl.LazyFrame, selection: dict[str, dict[str, Any] | N
                 "drop the measure from `measures:` or supply the column"
             )
     daily = daily.sort("security", "date").cache()
+    with_previous = with_previous_day(daily, previous).cache() if wants_previous_day else daily
     result = daily.group_by(KEY).agg(pl.len().cast(pl.Int64).alias("n_days"))
     for m in measures:
         options = resolve_options(m, selection[m.name])
         min_days = options.pop("min_days")
-        frame = m.function(daily, **options)
+        frame = m.function(with_previous if PREVIOUS_DAY in m.columns else daily, **options)
         cols = frame.collect_schema().names()
         if "reason" not in cols:
             frame = frame.with_columns(pl.lit(None, dtype=pl.String).alias("reason"))
