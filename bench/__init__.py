@@ -1,0 +1,1 @@
+"""Benchmarks, run side by side with a naive baseline: ``make bench``."""

@@ -1,0 +1,329 @@
+"""How the month-partitioned stages scale: markets of 1x, 4x and 16x a base size.
+
+The base market is ``--base-months`` months of ``--securities`` invented
+securities (``liqpanel.simulate``); the 4x and 16x markets are its first 4
+and 16 times as many months (same securities, about the same trades per
+month), each written as one trade file in time order, as vendors deliver
+them. Each market goes
+through clean -> bars -> daily -> measures exactly as the workflow runs it:
+one process per stage and month partition (as one Snakemake job would be),
+``--jobs`` at a time, each polars query limited to ``--threads`` threads.
+For every size it reports the wall time, trades per second, and the peak
+resident memory of each kind of job (the largest over its partitions,
+measured by the operating system for each process).
+
+Side by side on the smallest market: a naive pandas script that loads the
+whole trade file and computes the same daily table and the Roll and Amihud
+measures in one process; its results are checked against ours before its
+time counts.
+
+Run: ``make bench`` (or ``python -m bench.scale --help``). No assertion is
+made on time: the table is the result.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import subprocess
+import sys
+import tempfile
+import time
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import polars as pl
+
+STAGES = ("clean", "bars", "daily", "measures")
+MEASURES = {"roll_spread": {"convention": "missing"}, "amihud": None}
+REPO = Path(__file__).resolve().parents[1]
+
+
+# ---------------------------------------------------------------- markets
+
+
+def make_markets(root: Path, sizes: list[int], securities: int, seed: int) -> dict[int, Path]:
+    """Simulate max(sizes) months once; write the first k months as the market of k months."""
+    from liqpanel.simulate import simulate_market
+
+    market = simulate_market(
+        n_securities=securities, n_months=max(sizes), seed=seed, start="2021-01",
+        intensity_center=150.0, intensity_range=(20.0, 1000.0), bad_row_share=0.002,
+    )
+    trades = market.trades.drop("true_sign").sort("ts", "security")
+    local_month = pl.col("ts").dt.convert_time_zone(market.spec.tz).dt.strftime("%Y-%m")
+    months = month_list(max(sizes))
+    paths = {}
+    for k in sizes:
+        path = root / f"months{k}" / "trades.parquet"
+        path.parent.mkdir(parents=True)
+        trades.filter(local_month <= months[k - 1]).write_parquet(path, row_group_size=65_536, statistics=True)
+        paths[k] = path
+    return paths
+
+
+def month_list(n: int) -> list[str]:
+    from liqpanel.io import month_range
+
+    first = 2021 * 12
+    last = first + n - 1
+    return month_range("2021-01", f"{last // 12:04d}-{last % 12 + 1:02d}")
+
+
+def config_for(trades: Path, n_months: int) -> dict:
+    from liqpanel.config import validate_config
+
+    months = month_list(n_months)
+    return validate_config(
+        {"sample": {"start": months[0], "end": months[-1]}, "market": "demo",
+         "inputs": {"trades": str(trades)}, "measures": MEASURES},
+        source="benchmark",
+    )
+
+
+# ---------------------------------------------------------------- one job per process
+
+
+def job_main(spec: dict) -> None:
+    """Run one stage of one partition (the body of one workflow job) and print its seconds."""
+    from liqpanel import stages
+
+    config = json.loads(Path(spec["config"]).read_text()) if spec.get("config") else None
+    start = time.process_time()
+    paths, stage = spec.get("paths", {}), spec["stage"]
+    if stage == "clean":
+        stages.clean_month(config, spec["month"], paths["clean"], paths["audit"])
+    elif stage == "bars":
+        stages.bars_month(paths["clean"], paths["bars"])
+    elif stage == "daily":
+        stages.daily_month(paths["bars"], spec.get("previous_bars"), paths["daily"])
+    elif stage == "measures":
+        stages.measures_month(config, paths["daily"], spec.get("previous_daily"), paths["measures"])
+    elif stage == "pandas":
+        pandas_monthly(spec["trades"], spec["months"]).to_parquet(spec["out"])
+    else:
+        raise ValueError(f"unknown stage {stage!r}")
+    used = os.times()
+    print(json.dumps({"cpu": time.process_time() - start, "process_cpu": used.user + used.system,
+                      "peak_mb": peak_memory_mb()}))
+
+
+def peak_memory_mb() -> float:
+    """This process's peak resident memory (VmHWM; unlike getrusage it does not
+    inherit the parent's peak across fork and exec)."""
+    for line in Path("/proc/self/status").read_text().splitlines():
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024
+    raise RuntimeError("no VmHWM in /proc/self/status (the benchmark needs Linux)")
+
+
+def run_job(spec: dict, threads: int) -> dict:
+    """Run a job in a fresh process.
+
+    Returns its wall seconds, the CPU seconds of its stage (``cpu``) and of
+    the whole process with start-up (``process_cpu``), and its peak memory
+    (MB). CPU time is what a busy, shared machine disturbs least.
+    """
+    env = {**os.environ, "POLARS_MAX_THREADS": str(threads)}
+    started = time.perf_counter()
+    done = subprocess.run(
+        [sys.executable, "-m", "bench.scale", "--job", json.dumps(spec)],
+        cwd=REPO, env=env, capture_output=True, text=True,
+    )
+    wall = time.perf_counter() - started
+    if done.returncode != 0:
+        raise RuntimeError(f"benchmark job {spec['stage']} {spec.get('month')} failed:\n{done.stderr[-3000:]}")
+    report = json.loads(done.stdout.strip().splitlines()[-1])
+    return {"wall": wall, **report}
+
+
+def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int) -> dict:
+    config = config_for(trades, n_months)
+    config_path = work / "config.json"
+    work.mkdir(parents=True, exist_ok=True)
+    config_path.write_text(json.dumps(config))
+    months = month_list(n_months)
+
+    def paths(m: str) -> dict[str, str]:
+        return {s: str(work / s / f"month={m}" / f"{s}.parquet") for s in (*STAGES, "audit")}
+
+    def spec(stage: str, i: int) -> dict:
+        m = months[i]
+        s = {"stage": stage, "month": m, "paths": paths(m), "config": str(config_path)}
+        if i:
+            s["previous_bars"] = paths(months[i - 1])["bars"]
+            s["previous_daily"] = paths(months[i - 1])["daily"]
+        return s
+
+    per_stage = {}
+    started = time.perf_counter()
+    with ThreadPoolExecutor(max_workers=jobs) as pool:
+        for stage in STAGES:  # each stage's partitions depend only on earlier stages
+            per_stage[stage] = list(pool.map(lambda i: run_job(spec(stage, i), threads), range(n_months)))
+    wall = time.perf_counter() - started
+    monthly = pl.concat([pl.read_parquet(paths(m)["measures"]) for m in months]).sort("security", "month")
+    return {
+        "months": n_months,
+        "trades": pl.scan_parquet(trades).select(pl.len()).collect().item(),
+        "jobs": n_months * len(STAGES),
+        "wall": wall,
+        "cpu": sum(r["process_cpu"] for runs in per_stage.values() for r in runs),
+        "mean_job": {s: sum(r["cpu"] for r in runs) / len(runs) for s, runs in per_stage.items()},
+        "peak_mb": {s: max(r["peak_mb"] for r in runs) for s, runs in per_stage.items()},
+        "monthly": monthly,
+    }
+
+
+# ---------------------------------------------------------------- the naive baseline
+
+
+def pandas_monthly(trades_path: str, months: list[str]):
+    """The same Roll and Amihud measures the way a pandas script would compute them.
+
+    The whole trade file in memory; the cleaning rules of ``liqpanel.clean``
+    (missing field, non-positive price or size, outside 09:30-16:00 New York
+    time, exact duplicate); daily OHLC bars; close-to-close returns; Roll
+    (1984) from the autocovariance of daily log price changes and Amihud
+    (2002) by a Python function per security-month; at least 15 days.
+    """
+    import pandas as pd
+
+    trades = pd.read_parquet(trades_path, columns=["security", "ts", "price", "size"])
+    local = trades["ts"].dt.tz_convert("America/New_York")
+    trades["date"] = local.dt.date
+    clock = local.dt.strftime("%H:%M:%S.%f")
+    ok = trades[["security", "ts", "price", "size"]].notna().all(axis=1)
+    ok &= (trades["price"] > 0) & (trades["size"] > 0)
+    ok &= (clock >= "09:30:00.000000") & (clock <= "16:00:00.000000")
+    trades["month"] = local.dt.strftime("%Y-%m")
+    ok &= trades["month"].isin(months)
+    kept = trades[ok]
+    kept = kept[~kept.duplicated(subset=["security", "ts", "price", "size"], keep="first")]
+    kept = kept.sort_values(["security", "ts"])
+    kept = kept.assign(dollars=kept["price"] * kept["size"])
+    daily = kept.groupby(["security", "month", "date"]).agg(
+        open=("price", "first"), high=("price", "max"), low=("price", "min"), close=("price", "last"),
+        volume=("size", "sum"), dollar_volume=("dollars", "sum"),
+    ).reset_index()
+    daily["ret"] = daily.groupby("security")["close"].pct_change(fill_method=None)
+
+    def one_month(group) -> pd.Series:
+        dp = np.log1p(group["ret"].dropna().to_numpy())
+        n = len(dp)
+        d = dp - dp.mean() if n else dp
+        gamma1 = float(np.sum(d[1:] * d[:-1]) / n) if n else np.nan
+        roll = 2 * np.sqrt(-gamma1) if n >= 15 and gamma1 < 0 else np.nan
+        valid = group["ret"].notna() & (group["dollar_volume"] > 0)
+        illiq = (group["ret"][valid].abs() / group["dollar_volume"][valid]).mean() * 1e6
+        return pd.Series({"roll_spread": roll, "amihud": illiq if valid.sum() >= 15 else np.nan})
+
+    out = daily.groupby(["security", "month"])[["ret", "dollar_volume"]].apply(one_month).reset_index()
+    out["month"] = pd.to_datetime(out["month"] + "-01").dt.date
+    return out
+
+
+def run_pandas(trades: Path, n_months: int, work: Path, threads: int) -> dict:
+    out = work / "pandas.parquet"
+    spec = {"stage": "pandas", "trades": str(trades), "months": month_list(n_months), "out": str(out)}
+    result = run_job(spec, threads)
+    result["monthly"] = pl.read_parquet(out).with_columns(pl.col("month").cast(pl.Date)).sort("security", "month")
+    return result
+
+
+def largest_difference(ours: pl.DataFrame, theirs: pl.DataFrame, column: str) -> float:
+    both = ours.select("security", "month", column).join(theirs.select("security", "month", column),
+                                                        on=["security", "month"], suffix="_pd")
+    a, b = both[column].to_numpy(), both[f"{column}_pd"].to_numpy()
+    if not np.array_equal(np.isnan(a), np.isnan(b)):
+        raise AssertionError(f"pandas and liqpanel disagree on which {column} values are missing")
+    scale = np.nanmax(np.abs(a)) or 1.0
+    return float(np.nanmax(np.abs(a - b)) / scale) if np.isfinite(a).any() else 0.0
+
+
+# ---------------------------------------------------------------- report
+
+
+def machine() -> str:
+    cpu = next((line.split(":", 1)[1].strip() for line in Path("/proc/cpuinfo").read_text().splitlines()
+                if line.startswith("model name")), platform.processor() or "unknown CPU")
+    mem = next((int(line.split()[1]) / 2**20 for line in Path("/proc/meminfo").read_text().splitlines()
+                if line.startswith("MemTotal")), float("nan"))
+    import pandas as pd
+
+    return (f"{cpu}, {os.cpu_count()} cores, {mem:.0f} GiB; Python {platform.python_version()}, "
+            f"polars {pl.__version__}, pandas {pd.__version__}")
+
+
+def table(results: dict[int, dict], baseline: dict, jobs: int, threads: int) -> str:
+    one = results[min(results)]
+    largest_one = max(one["peak_mb"].values())
+    lines = [
+        "| market | partitions | trades | wall time (s) | CPU time (s) | CPU / 1x | trades per CPU second "
+        "| CPU per job (s): clean / bars / daily / measures "
+        "| peak memory per job (MB): clean / bars / daily / measures | largest job / 1x |",
+        "|---|---:|---:|---:|---:|---:|---:|---|---|---:|",
+    ]
+    for k, r in sorted(results.items()):
+        times = " / ".join(f"{r['mean_job'][s]:.2f}" for s in STAGES)
+        peaks = " / ".join(f"{r['peak_mb'][s]:.0f}" for s in STAGES)
+        lines.append(
+            f"| {k}x | {r['months']} | {r['trades']:,} | {r['wall']:.1f} | {r['cpu']:.1f} | {r['cpu'] / one['cpu']:.2f} "
+            f"| {r['trades'] / r['cpu']:,.0f} | {times} | {peaks} | {max(r['peak_mb'].values()) / largest_one:.2f} |"
+        )
+    b = baseline
+    lines.append(
+        f"| pandas, 1x | whole file | {one['trades']:,} | {b['wall']:.1f} | {b['process_cpu']:.1f} "
+        f"| {b['process_cpu'] / one['cpu']:.2f} | {one['trades'] / b['process_cpu']:,.0f} | {b['cpu']:.2f} (one script) "
+        f"| {b['peak_mb']:.0f} (one script) | {b['peak_mb'] / largest_one:.2f} |"
+    )
+    notes = [
+        "",
+        f"One process per stage and month partition (as one workflow job), {jobs} at a time, {threads} polars "
+        "thread(s) each. CPU time adds up every job's process, start-up included; CPU per job is the stage "
+        "alone, averaged over the partitions; peak memory is the largest over the partitions. "
+        "x / 1x compares with the 1x market.",
+        f"pandas against liqpanel at 1x: {b['process_cpu'] / one['cpu']:.2f}x the CPU time, "
+        f"{b['peak_mb'] / largest_one:.2f}x the peak memory of liqpanel's largest job; "
+        f"same results (largest relative difference: Roll {b['diff_roll']:.1e}, Amihud {b['diff_amihud']:.1e}).",
+        f"Machine: {machine()}.",
+    ]
+    return "\n".join(lines + notes)
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(prog="python -m bench.scale", description=__doc__.split("\n\n")[0])
+    parser.add_argument("--sizes", default="1,4,16", help="market sizes, multiples of the base (default 1,4,16)")
+    parser.add_argument("--base-months", type=int, default=2, help="months of the 1x market (default 2)")
+    parser.add_argument("--securities", type=int, default=100, help="securities in every market (default 100)")
+    parser.add_argument("--jobs", type=int, default=2, help="jobs run at once (default 2)")
+    parser.add_argument("--threads", type=int, default=1, help="polars threads per job (default 1)")
+    parser.add_argument("--seed", type=int, default=20240611)
+    parser.add_argument("--job", help=argparse.SUPPRESS)
+    args = parser.parse_args(argv)
+    if args.job:
+        job_main(json.loads(args.job))
+        return
+    sizes = sorted({int(s) for s in args.sizes.split(",")})
+    months = {k: k * args.base_months for k in sizes}
+    with tempfile.TemporaryDirectory(prefix="liqpanel-bench-") as tmp:
+        root = Path(tmp)
+        t0 = time.perf_counter()
+        files = make_markets(root, sorted(months.values()), args.securities, args.seed)
+        print(f"simulated the markets in {time.perf_counter() - t0:.0f}s; running...", file=sys.stderr)
+        results = {}
+        for k in sizes:
+            results[k] = run_market(files[months[k]], months[k], root / f"x{k}" / "work", args.jobs, args.threads)
+            print(f"  {k}x done in {results[k]['wall']:.1f}s", file=sys.stderr)
+        smallest = min(sizes)
+        baseline = run_pandas(files[months[smallest]], months[smallest], root, args.threads)
+        ours = results[smallest]["monthly"]
+        baseline["diff_roll"] = largest_difference(ours, baseline["monthly"], "roll_spread")
+        baseline["diff_amihud"] = largest_difference(ours, baseline["monthly"], "amihud")
+    print(table(results, baseline, args.jobs, args.threads))
+
+
+if __name__ == "__main__":
+    main()
