@@ -45,12 +45,12 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str) -> No
 
 
 def bars_month(clean_trades_path: str, out: str) -> None:
-    write_parquet(bars_mod.trading_bars(pl.scan_parquet(clean_trades_path)), out)
+    write_parquet(bars_mod.trading_bars(pl.scan_parquet(clean_trades_path)).collect(engine="streaming"), out)
 
 
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str) -> None:
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
-    write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous), out)
+    write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous).collect(engine="streaming"), out)
 
 
 def daily_from_file(config: dict, month: str, out: str) -> None:
