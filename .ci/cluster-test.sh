@@ -143,7 +143,8 @@ prepare "$SCRATCH/local"
 prepare "$SCRATCH/cluster"
 
 say "local run"
-(cd "$SCRATCH/local" && "${SNAKEMAKE[@]}" --cores "$CPUS" --force-use-threads --quiet rules -- all)
+(cd "$SCRATCH/local" && "${SNAKEMAKE[@]}" --cores "$CPUS" --force-use-threads -- all) >"$SCRATCH/local.out" 2>&1 \
+    || { tail -n 60 "$SCRATCH/local.out"; say "the local run failed"; exit 1; }
 
 # Polling every 2 s keeps this short test short; the profile's 20 s spares a
 # real cluster's controller. MinJobAge above is far more than 3 x 2 s.
