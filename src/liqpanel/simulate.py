@@ -804,6 +804,28 @@ def simulate_security_months(
     return _run(np.random.default_rng(seed), pop, cal, how)
 
 
+def market_factor_returns(market: Market) -> pl.DataFrame:
+    """A factor file of the invented market: ``month``, ``mkt``.
+
+    ``mkt`` is the value-weighted average of the securities' monthly returns,
+    weighted by market capitalisation at the end of the previous month, dated
+    by the month in which it is earned (the way factor returns are usually
+    published). It lets the demo estimate factor alphas.
+    """
+    caps = market.characteristics.select(
+        "security",
+        pl.col("date").dt.truncate("1mo").dt.offset_by("1mo").alias("month"),
+        pl.col("market_cap").alias("_weight"),
+    )
+    return (
+        market.returns.join(caps, on=["security", "month"], how="inner")
+        .drop_nulls(["ret", "_weight"])
+        .group_by("month")
+        .agg(((pl.col("ret") * pl.col("_weight")).sum() / pl.col("_weight").sum()).alias("mkt"))
+        .sort("month")
+    )
+
+
 def write_market(market: Market, out_dir: str | Path) -> dict[str, Path]:
     """Write ``<table>.parquet`` for every table of ``market`` into ``out_dir``.
 
@@ -820,7 +842,8 @@ def write_market(market: Market, out_dir: str | Path) -> dict[str, Path]:
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     paths = {}
-    for name, frame in market.tables().items():
+    tables = {**market.tables(), "factors": market_factor_returns(market)}
+    for name, frame in tables.items():
         encoding = {c: "BYTE_STREAM_SPLIT" for c in ("price", "bid", "ask") if c in frame.columns}
         if "ts" in frame.columns:
             encoding["ts"] = "DELTA_BINARY_PACKED"

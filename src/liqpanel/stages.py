@@ -19,9 +19,10 @@ from liqpanel import report as rep
 from liqpanel.clean import check_conservation, clean_trades, read_trades
 from liqpanel.config import load_market
 from liqpanel.contracts import DAILY, month_of, require_columns
+from liqpanel.errors import InputError
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
-from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns
+from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
 
 
 def _month_filter(month: str) -> pl.Expr:
@@ -85,29 +86,36 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> 
         {**c, "frame": scan_table(c["path"])}
         for c in inputs.get("characteristics", [])
     ]
-    write_parquet(build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars), out)
+    built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
+    write_parquet(transform_panel(built, config["panel"]), out)
 
 
-def models(config: dict, panel_path: str, out_results: str, out_table: str) -> None:
-    from liqpanel.models import ModelSpec, fit_model, regression_table
+def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> None:
+    """Fit every configured model; write each result table and an index."""
+    from liqpanel.models.run import run_models
 
-    frame = pl.read_parquet(panel_path)
-    specs = [ModelSpec.from_config(m) for m in config["models"]["regressions"]]
-    results = [fit_model(frame, s) for s in specs]
-    long = pl.DataFrame(
-        [
-            {
-                "model": r.name, "estimator": r.estimator, "covariance": r.covariance, "variable": v,
-                "coef": r.params[v], "std_error": r.std_errors[v], "tstat": r.tstats[v], "pvalue": r.pvalues[v],
-                "nobs": r.nobs, "n_months": r.n_months, "r2": r.r2,
-            }
-            for r in results
-            for v in r.params
-        ],
-        schema_overrides={"nobs": pl.Int64, "n_months": pl.Int64},
-    ) if results else pl.DataFrame()
-    write_parquet(long, out_results)
-    write_parquet(regression_table(results) if results else pl.DataFrame(), out_table)
+    factors = None
+    if config["inputs"].get("factors"):
+        path = config["inputs"]["factors"]
+        factors = scan_table(path, config["columns"].get("factors", {})).collect()
+        if "month" not in factors.columns:
+            raise InputError("the factor file needs a 'month' column", path=path, column="month")
+        factors = factors.with_columns(month_of(pl.col("month").cast(pl.Date)).alias("month"))
+    sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
+    result = run_models(
+        pl.read_parquet(panel_path), config["models"], monthly=pl.read_parquet(monthly_path), factors=factors,
+        sources=sources,
+    )
+    out = Path(out_dir)
+    index = []
+    for table in result.tables:
+        write_parquet(table.frame, out / f"{table.name}.parquet")
+        index.append({"name": table.name, "caption": table.caption, "notes": table.notes})
+    for name, series in result.series.items():
+        write_parquet(series, out / "series" / f"{name}.parquet")
+    if result.regressions_long is not None:
+        write_parquet(result.regressions_long, out / "regressions_long.parquet")
+    write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
 
 
 def report(
@@ -118,7 +126,7 @@ def report(
     monthly_path: str,
     panel_path: str,
     audit_path: str | None,
-    regression_table_path: str,
+    models_dir: str,
     started: str,
     command: str,
 ) -> None:
@@ -130,14 +138,19 @@ def report(
     outputs = [o for name in config["measures"] for o in REGISTRY[name].outputs]
     sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
 
-    reg = pl.read_parquet(regression_table_path)
-    if reg.height:
+    models = Path(models_dir)
+    for entry in json.loads((models / "index.json").read_text()):
         rep.write_table(
-            reg, tables / "regressions",
-            caption="Regressions of next-month return on liquidity",
-            label="tab:regressions",
-            notes="t-statistics in parentheses. " + sources,
+            pl.read_parquet(models / f"{entry['name']}.parquet"), tables / entry["name"],
+            caption=entry["caption"], label=f"tab:{entry['name']}", notes=entry["notes"],
         )
+    panel_frame = pl.read_parquet(panel_path)
+    variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
+    rep.write_table(
+        coverage(panel_frame, variables), tables / "panel_coverage",
+        caption="Panel coverage: securities per month and missing share per variable",
+        label="tab:coverage", notes="Month t holds liquidity and characteristics known at t and the return of t+1.",
+    )
     rep.write_table(
         rep.measure_summary(monthly, outputs), tables / "measures_summary",
         caption="Monthly measures: pooled distribution over security-months",
@@ -156,10 +169,18 @@ def report(
             caption="Spread estimates against the simulator's true spread",
             label="tab:truth", notes="Proportional full spreads (0.01 = 1%). " + sources,
         )
-    if config["report"]["figures"] and "roll_spread" in monthly.columns:
-        rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid)
+    if config["report"]["figures"]:
+        if "roll_spread" in monthly.columns:
+            rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid)
+        for series_path in sorted((models / "series").glob("*.parquet")):
+            rep.figure_cumulative(pl.read_parquet(series_path), figures / f"cumulative_{series_path.stem}", rid)
+        val = config["models"].get("validation")
+        if val and val["benchmark"] in monthly.columns:
+            proxies = [p for p in val["proxies"] if p in monthly.columns]
+            if proxies:
+                rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid)
     write_parquet(monthly, data / "monthly.parquet")
-    write_parquet(pl.read_parquet(panel_path), data / "panel.parquet")
+    write_parquet(panel_frame, data / "panel.parquet")
     rep.write_manifest(run, config=config, inputs=rep.input_files(config), rid=rid, started=started, command=command)
     rep.point_latest(run.parent, rid)
 
