@@ -469,10 +469,14 @@ def test_write_market_is_byte_identical(tmp_path):
     for run in ("a", "b"):
         market = simulate_market(n_securities=5, n_months=2, bad_row_share=0.01, seed=21)
         paths = write_market(market, tmp_path / run)
-        assert sorted(paths) == sorted(["trades", "quotes", "securities", "characteristics", "returns", "truth", "factors"])
+        assert sorted(paths) == sorted(
+            ["trades", "quotes", "securities", "characteristics", "returns", "truth", "factors", "daily_example"]
+        )
         digests.append({k: hashlib.sha256(p.read_bytes()).hexdigest() for k, p in paths.items()})
         tables = {**market.tables(), "factors": market_factor_returns(market)}
         for name, path in paths.items():
+            if name == "daily_example":
+                continue
             assert path.name == f"{name}.parquet"
             assert pl.read_parquet(path).equals(tables[name]), name
     assert digests[0] == digests[1]

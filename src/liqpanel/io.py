@@ -67,6 +67,7 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
+    os.chmod(tmp, 0o644)  # mkstemp makes files private; outputs are for reading
     try:
         yield Path(tmp)
         os.replace(tmp, path)

@@ -50,20 +50,44 @@ def daily_month(bars_path: str, previous_bars_path: str | None, out: str) -> Non
     write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous), out)
 
 
-def daily_from_file(config: dict, month: str, out: str) -> None:
-    """The daily entry point: one month of a user's own daily file."""
-    path = config["inputs"]["daily"]
-    lf = scan_table(path, config["columns"].get("daily", {}))
-    required = [c for c in DAILY if c not in ("month", "n_trades", "dollar_volume")]
+def read_daily_file(path: str, mapping: dict[str, str]) -> pl.LazyFrame:
+    """A user's daily file in the daily contract (see DEVELOPERS.md).
+
+    Needs security, date, open, high, low, close and volume; ``dollar_volume``
+    defaults to close x volume, ``n_trades`` to missing, and ``ret`` to the
+    close-to-close return (only when the file has no return column: a
+    vendor's adjusted return is always preferred). ``shares_out`` is kept
+    when present.
+    """
+    lf = scan_table(path, mapping)
+    required = ["security", "date", "open", "high", "low", "close", "volume"]
     require_columns(lf, required, table="daily", path=path)
-    names = lf.collect_schema().names()
-    lf = lf.with_columns(pl.col("date").cast(pl.Date), pl.col("security").cast(pl.String))
+    schema = lf.collect_schema()
+    for column in ("open", "high", "low", "close", "volume"):
+        if not schema[column].is_numeric():
+            raise InputError(f"expected numbers, found {schema[column]}", path=path, column=column)
+    date = pl.col("date").str.to_date("%Y-%m-%d", strict=False) if schema["date"] == pl.String else pl.col("date").cast(pl.Date)
+    lf = lf.with_columns(date.alias("date"), pl.col("security").cast(pl.String))
+    bad = lf.filter(pl.col("date").is_null()).select(pl.len()).collect().item()
+    if bad:
+        raise InputError(f"{bad} rows have a date that is missing or not YYYY-MM-DD", path=path, column="date")
     lf = lf.with_columns(month_of("date").alias("month"))
-    if "dollar_volume" not in names:
+    if "dollar_volume" not in schema:
         lf = lf.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
-    if "n_trades" not in names:
+    if "n_trades" not in schema:
         lf = lf.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
-    write_parquet(lf.filter(_month_filter(month)).sort("security", "date"), out)
+    if "ret" not in schema:
+        lf = bars_mod.add_returns(lf)
+    keep = [*DAILY, *[c for c in ("shares_out", "mkt_ret") if c in schema]]
+    return lf.select(
+        [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in keep[len(DAILY):]]
+    ).sort("security", "date")
+
+
+def daily_from_file(config: dict, month: str, out: str) -> None:
+    """The daily entry point: one month partition of a user's own daily file."""
+    lf = read_daily_file(config["inputs"]["daily"], config["columns"].get("daily", {}))
+    write_parquet(lf.filter(_month_filter(month)), out)
 
 
 def measures_month(config: dict, daily_path: str, out: str) -> None:
