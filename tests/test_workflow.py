@@ -80,7 +80,7 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
     table = pl.read_csv(first / "tables" / "regressions.csv")
     coef = table.filter(pl.col("variable") == "roll_spread").row(0, named=True)
     assert float(coef["roll_only"]) == float(coef["roll_only"])  # finite, parsed
-    assert (first / "figures" / "roll_spread_median.png").exists()
+    assert (first / "figures" / "spread_median.png").exists()
     assert (first / "tables" / "regressions.tex").read_text().count(r"\toprule") == 1
     audit = pl.read_csv(first / "tables" / "cleaning_audit.csv")
     counts = dict(zip(audit["rows"], audit["count"]))

@@ -194,8 +194,8 @@ def report(
             label="tab:truth", notes="Proportional full spreads (0.01 = 1%). " + sources,
         )
     if config["report"]["figures"]:
-        if "roll_spread" in monthly.columns:
-            rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid)
+        if spread_outputs:
+            rep.figure_median_spread(monthly, truth, spread_outputs, figures / "spread_median", rid)
         for series_path in sorted((models / "series").glob("*.parquet")):
             rep.figure_cumulative(pl.read_parquet(series_path), figures / f"cumulative_{series_path.stem}", rid)
         val = config["models"].get("validation")
