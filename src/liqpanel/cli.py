@@ -4,6 +4,7 @@
     liqpanel measures                 # list the registered measures and sources
     liqpanel check-config FILE        # validate a config without running
     liqpanel run [--config FILE] [--cores N] [snakemake args...]
+    liqpanel study [--config FILE] [--cores N] [snakemake args...]   # the estimator study alone
 """
 
 from __future__ import annotations
@@ -55,15 +56,34 @@ def _check_config(args: argparse.Namespace) -> int:
     return 0
 
 
+def _snakemake(args: argparse.Namespace, extra: list[str], target: str) -> int:
+    cmd = [
+        sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
+        "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", target,
+    ]
+    return subprocess.call(cmd)
+
+
 def _run(args: argparse.Namespace, extra: list[str]) -> int:
     from liqpanel.config import load_config
 
     load_config(args.config)  # fail fast with a clear message
-    cmd = [
-        sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
-        "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", "all",
-    ]
-    return subprocess.call(cmd)
+    return _snakemake(args, extra, "all")
+
+
+def _study(args: argparse.Namespace, extra: list[str]) -> int:
+    from liqpanel.config import load_config
+    from liqpanel.report import input_files, run_id
+
+    config = load_config(args.config)
+    code = _snakemake(args, extra, "study_results")
+    if code == 0:
+        folder = Path(config["run"]["results_dir"]) / f"study-{run_id(config, input_files(config))}"
+        print(f"study results: {folder}")
+        summary = folder / "study_summary.md"
+        if summary.exists():
+            print(summary.read_text(), end="")
+    return code
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -88,8 +108,13 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--config", default="config/config.yaml")
     p.add_argument("--cores", type=int, default=2)
 
+    p = sub.add_parser("study", help="which estimator is closest to the truth in conditions like your market's "
+                                     "(a simulation study calibrated to your data; extra options go to snakemake)")
+    p.add_argument("--config", default="config/config.yaml")
+    p.add_argument("--cores", type=int, default=2)
+
     args, extra = parser.parse_known_args(argv)
-    if extra and args.command != "run":
+    if extra and args.command not in ("run", "study"):
         parser.error(f"unrecognised arguments: {' '.join(extra)}")
     try:
         if args.command == "simulate":
@@ -98,6 +123,8 @@ def main(argv: list[str] | None = None) -> int:
             return _measures(args)
         if args.command == "check-config":
             return _check_config(args)
+        if args.command == "study":
+            return _study(args, extra)
         return _run(args, extra)
     except LiqpanelError as exc:
         print(f"liqpanel: {exc}", file=sys.stderr)

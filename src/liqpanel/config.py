@@ -88,6 +88,12 @@ def validate_config(config: dict, *, source: str = "config") -> dict:
             resolve_options(get_measure(name), options)
         except ConfigError as exc:
             raise ConfigError(f"{source}: {exc}") from None
+    from liqpanel.study import check_settings
+
+    try:
+        check_settings(filled.get("study"))
+    except ConfigError as exc:
+        raise ConfigError(f"{source}: {exc}") from None
     return filled
 
 

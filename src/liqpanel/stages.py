@@ -153,6 +153,7 @@ def report(
     models_dir: str,
     started: str,
     command: str,
+    study_dir: str | None = None,
 ) -> None:
     run = Path(run_dir)
     tables, figures, data = run / "tables", run / "figures", run / "data"
@@ -203,10 +204,55 @@ def report(
             proxies = [p for p in val["proxies"] if p in monthly.columns]
             if proxies:
                 rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid)
+    if study_dir:
+        render_study(study_dir, run, rid, figures=config["report"]["figures"], min_cell=config["study"]["min_cell"])
     write_parquet(monthly, data / "monthly.parquet")
     write_parquet(panel_frame, data / "panel.parquet")
     rep.write_manifest(run, config=config, inputs=rep.input_files(config), rid=rid, started=started, command=command)
     rep.point_latest(run.parent, rid)
+
+
+def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_dir: str) -> None:
+    """Calibrate to the daily table, run the simulation study, write its tables and an index."""
+    from liqpanel import study as st
+
+    settings = config["study"]
+    daily = pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed")
+    monthly = pl.read_parquet(monthly_path) if monthly_path else None
+    pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"])
+    market = st.Market.from_profile(load_market(config["market"]), settings["overnight_share"])
+    result = st.run_study(pool, study=settings, measures=config["measures"], market=market)
+    out = Path(out_dir)
+    index = []
+    for table in st.result_tables(result, pool, audit):
+        write_parquet(table.frame, out / f"{table.name}.parquet")
+        index.append({"name": table.name, "caption": table.caption, "notes": table.notes})
+    write_parquet(result.long, out / "draws.parquet")
+    write_text(st.summary_text(result), out / "summary.md")
+    write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
+
+
+def render_study(study_dir: str | Path, run_dir: str | Path, rid: str, *, figures: bool = True, min_cell: int = 20) -> None:
+    """Put the study into a run folder: its tables, heat maps, summary and per-draw data."""
+    from liqpanel import study as st
+
+    source, run = Path(study_dir), Path(run_dir)
+    for entry in json.loads((source / "index.json").read_text()):
+        rep.write_table(
+            pl.read_parquet(source / f"{entry['name']}.parquet"), run / "tables" / entry["name"],
+            caption=entry["caption"], label=f"tab:{entry['name']}", notes=entry["notes"],
+        )
+    if figures:
+        st.bias_maps(pl.read_parquet(source / "study_by_cell.parquet"), run / "figures", rid, min_cell=min_cell)
+    write_text((source / "summary.md").read_text(), run / "study_summary.md")
+    write_parquet(pl.read_parquet(source / "draws.parquet"), run / "data" / "study_draws.parquet")
+
+
+def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, started: str, command: str) -> None:
+    """The study alone: ``results/study-<run-id>/`` with its tables, heat maps, summary and manifest."""
+    run = Path(run_dir)
+    render_study(study_dir, run, rid, figures=config["report"]["figures"], min_cell=config["study"]["min_cell"])
+    rep.write_manifest(run, config=config, inputs=rep.input_files(config), rid=rid, started=started, command=command)
 
 
 def now() -> str:

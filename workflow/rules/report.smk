@@ -6,6 +6,7 @@ rule report:
         audit=[f"{WORK}/audit.parquet"] if FROM_TRADES else [],
         models=f"{WORK}/models",
         truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
+        study=[f"{WORK}/study"] if CONFIG["study"]["in_report"] else [],
     output:
         directory(f"{RESULTS}/{RUN_ID}"),
     run:
@@ -19,4 +20,5 @@ rule report:
             models_dir=input.models,
             started=STARTED,
             command=COMMAND,
+            study_dir=input.study[0] if input.study else None,
         )
