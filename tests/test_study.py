@@ -293,6 +293,8 @@ def test_tables_summary_and_heat_maps(small_study, tmp_path):
     assert ranked.get_column("rmse").is_sorted()
     text = study.summary_text(result)
     assert f"lowest RMSE: among spread estimators {ranked.item(0, 'estimator')}" in text
+    least = ranked.sort(pl.col("mean_bias").abs()).item(0, "estimator")
+    assert f"smallest mean bias: {least} (" in text
     assert "400 simulated security-months" in text and "not advice" in text
     paths = study.bias_maps(result.by_cell, tmp_path, "rid123abc", min_cell=5)
     assert sorted(p.name for p in paths) == [
@@ -318,3 +320,27 @@ def test_schema_defaults_and_bad_settings():
         study.check_settings({"intensity_edges": [5.0, 1.0]})
     with pytest.raises(ConfigError, match="no security-month to draw from"):
         study.run_study(conditions([], [], []))
+
+
+def test_tick_sets_the_true_spread_and_the_market_profile_sets_the_session():
+    # With a tick the quotes are rounded outwards, so at a zero half-spread the quoted spread is
+    # one tick (common practice: the minimum quoted spread is one tick): ln(ask / bid) close to
+    # tick / price. Draws at two price levels are simulated in separate price groups.
+    profile = {"timezone": "Asia/Tokyo", "sessions": [["09:00", "11:30"], ["12:30", "15:00"]], "tick_size": 0.01}
+    market = study.Market.from_profile(profile, overnight_share=0.5)
+    assert market.session == ("09:00", "15:00") and market.tick == 0.01 and market.timezone == "Asia/Tokyo"
+    pool = paired(0.0, 0.02, 20.0).join(pl.DataFrame({"price": [5.0, 50.0]}), how="cross")
+    conditions = study.draw_conditions(pool, 200, seed=9)
+    daily, truth = study.simulate_draws(conditions, market, seed=9)
+    joined = truth.join(conditions.select("security", "price"), on="security")
+    for price in (5.0, 50.0):
+        group = joined.filter(pl.col("price") == price)
+        assert group.height > 50
+        # the price wanders with 2% daily volatility over a month, so one tick is about tick / price
+        # (measured 1.005 and 1.006 ticks)
+        assert group.get_column("true_spread").mean() == pytest.approx(0.01 / price, rel=0.03)
+    # trading-hours volatility: the efficient variance of the session, (1 - 0.5) of the day's
+    assert (truth.get_column("true_vol_session") - 0.02 * math.sqrt(0.5)).abs().max() < 1e-15
+    # the simulated days lie in the market's own time zone and every draw has its window
+    assert daily.group_by("security").len().get_column("len").max() <= 21
+    assert daily.get_column("month").n_unique() == 1

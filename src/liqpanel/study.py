@@ -81,7 +81,7 @@ TRADING_HOURS = frozenset({"vol_parkinson", "vol_garman_klass", "vol_rogers_satc
 SIMULATED_COLUMNS = frozenset(DAILY) | {"vwap"}
 SIMULATION_START = "2021-01"  # any month: the calendar is business days, the window is what matters
 SIMULATION_PRICE = 50.0  # initial price; only relative to a tick does the price level matter
-PRICE_GROUPS = 5  # with a tick, draws are simulated in this many groups of similar price
+PRICE_STEP = 1.25  # with a tick, draws are simulated in groups whose prices differ by less than this factor
 DEFAULTS: dict[str, Any] = {
     "draws": 2000,
     "seed": 20240601,
@@ -207,8 +207,8 @@ def calibrate(
     traded day, the market's currency), ``price`` (median close).
 
     Spread: the month's value of the monthly column ``spread_column`` (the
-    high-frequency effective spread) when ``monthly`` has that column; else
-    the ``fallback_spread`` measure computed from the daily table, as the
+    high-frequency effective spread) when ``monthly`` has that column with
+    any value; else the ``fallback_spread`` measure computed from the daily table, as the
     security's median over its calibrated months. ``audit`` counts the
     security-months read, kept and dropped by rule: ``too_few_trading_days``
     (fewer than ``min_days`` days with a trade), ``no_volatility`` (missing
@@ -228,7 +228,8 @@ def calibrate(
         pl.col("close").filter(traded).median().alias("price"),
     )
     selection = {s["volatility"]: {**(measures.get(s["volatility"]) or {}), "min_days": 1}}
-    use_column = monthly is not None and s["spread_column"] in monthly.columns
+    use_column = (monthly is not None and s["spread_column"] in monthly.columns
+                  and monthly.get_column(s["spread_column"]).drop_nulls().len() > 0)
     if not use_column:
         selection[s["fallback_spread"]] = {**(measures.get(s["fallback_spread"]) or {}), "min_days": 1}
     estimates = compute_monthly(daily, selection)
@@ -271,7 +272,7 @@ def calibrate(
         frame = frame.join(level, on="security", how="left").with_columns(pl.col("_level").alias("_spread"))
     spread_source = (
         f"{spread_out} (monthly column, the month's value)" if use_column
-        else f"{spread_out} (security median over its months; the monthly table has no column '{s['spread_column']}')"
+        else f"{spread_out} (security median over its months; no value in the monthly column '{s['spread_column']}')"
     )
     pool = (
         frame.filter(pl.col("_dropped").is_null())
@@ -383,8 +384,9 @@ def simulate_draws(conditions: pl.DataFrame, market: Market, seed: int) -> tuple
     volatility ``daily_vol`` and ``trades_per_day``, traded for one warm-up
     business day and then its window of ``n_days`` days (all draws share one
     calendar; a draw's rows after its window are dropped). With a tick the
-    draws are simulated in ``PRICE_GROUPS`` groups of similar ``price`` (the
-    relative tick depends on the price); without one at a single price.
+    relative tick depends on the price, so the draws are simulated in groups
+    of similar ``price`` (within a factor ``PRICE_STEP``, each group at its
+    median price); without a tick at a single price.
 
     The daily table follows the daily contract with one ``month`` for every
     draw (the window is the month). The truth has ``security``,
@@ -398,8 +400,8 @@ def simulate_draws(conditions: pl.DataFrame, market: Market, seed: int) -> tuple
     length = int(conditions.get_column("n_days").max()) + 1
     if market.tick is not None and "price" in conditions.columns:
         price = conditions.get_column("price").fill_null(SIMULATION_PRICE).to_numpy()
-        ranks = np.argsort(np.argsort(np.log(np.maximum(price, 1e-12)), kind="stable"), kind="stable")
-        groups = ranks * min(PRICE_GROUPS, conditions.height) // conditions.height
+        step = np.floor(np.log(np.maximum(price, 1e-12)) / np.log(PRICE_STEP))
+        groups = np.unique(step, return_inverse=True)[1].astype(np.int64)
     else:
         price = np.full(conditions.height, SIMULATION_PRICE)
         groups = np.zeros(conditions.height, dtype=np.int64)
@@ -788,6 +790,14 @@ def summary_text(result: StudyResult) -> str:
         best.append(f"among volatility estimators {vol_rank.item(0, 'estimator')} (RMSE {vol_rank.item(0, 'rmse') * 100:.3f}% per day)")
     if best:
         lines += [f"In this market's simulated conditions, lowest RMSE: {'; '.join(best)}.", ""]
+    if spread_rank.height:
+        least = spread_rank.sort(pl.col("mean_bias").abs(), "estimator").row(0, named=True)
+        closest = spread_rank.drop_nulls("correlation").sort("correlation", "estimator", descending=[True, False])
+        line = f"Among spread estimators, smallest mean bias: {least['estimator']} ({least['relative_bias']:+.0%} of the truth)"
+        if closest.height:
+            line += (f"; highest correlation with the true spread across security-months: "
+                     f"{closest.item(0, 'estimator')} ({closest.item(0, 'correlation'):.2f})")
+        lines += [line + ".", ""]
     covered = result.overall.filter(pl.col("coverage").is_not_null())
     for row in covered.iter_rows(named=True):
         lines.append(f"Coverage of the {row['estimator']} interval: {row['coverage']:.1%} of {row['n_estimates']} months "

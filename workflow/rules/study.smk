@@ -6,7 +6,7 @@ rule study:
     output:
         directory(f"{WORK}/study"),
     params:
-        study=CONFIG["study"],
+        study={k: v for k, v in CONFIG["study"].items() if k != "in_report"},
         measures=CONFIG["measures"],
         market=CONFIG["market"],
     run:
