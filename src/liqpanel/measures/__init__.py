@@ -47,6 +47,8 @@ register(
     )
 )
 
+from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401,E402  (high-frequency benchmarks)
+
 try:  # the estimator library registers the remaining measures
     from liqpanel.measures import library as _library  # noqa: F401
 except ImportError:  # pragma: no cover - absent only while the library is built
