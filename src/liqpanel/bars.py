@@ -90,6 +90,7 @@ def add_returns(
         stacked.with_columns((numerator / pl.col("_close_before") - 1.0).alias("ret"))
         .filter(~pl.col("_previous"))
         .select(*cols, "ret")
+        .sort("security", "date")
     )
 
 

@@ -144,11 +144,9 @@ def _timestamp(schema: pl.Schema, timezone: str, path: str) -> tuple[pl.Expr, pl
             text = raw.str.strip_chars()
             aware = text.str.contains(_OFFSET)
             first_aware = aware.drop_nulls().first()
-            parsed = (
-                pl.when(aware)
-                .then(text.str.to_datetime(time_unit="us", time_zone="UTC", strict=False))
-                .otherwise(_to_utc(text.str.to_datetime(time_unit="us", strict=False), timezone))
-            )
+            with_offset = pl.when(aware).then(text).str.to_datetime(time_unit="us", time_zone="UTC", strict=False)
+            naive = pl.when(~aware).then(text).str.to_datetime(time_unit="us", strict=False)
+            parsed = pl.when(aware).then(with_offset).otherwise(_to_utc(naive, timezone))
             mixed = text.is_not_null() & (aware != first_aware)
             bad = text.is_not_null() & (parsed.is_null() | mixed)
             note = f"text; with an offset converted to UTC, else {naive_note}"
@@ -329,7 +327,7 @@ def read_adjustments(path: str | Path, mapping: dict[str, str] | None) -> pl.Dat
         invalid = frame.filter((pl.col("split_ratio") <= 0) | (pl.col("dividend") < 0))
         if invalid.height:
             raise InputError(
-                f"row {invalid['_row'][0] + 1}: split_ratio must be positive and dividend non-negative",
+                f"data row {invalid['_row'][0] + 1}: split_ratio must be positive and dividend non-negative",
                 path=file,
                 column="split_ratio" if invalid["split_ratio"][0] <= 0 else "dividend",
             )
