@@ -108,6 +108,16 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
         assert csv.read_bytes() == (second / "tables" / csv.name).read_bytes(), csv.name
 
 
+def _failed_run(tmp_path: Path, cfg: dict) -> str:
+    """Run the workflow on ``cfg``, check it fails without a Python traceback, return stderr."""
+    path = tmp_path / "config.yaml"
+    path.write_text(yaml.safe_dump(cfg))
+    done = _snakemake(tmp_path, path)
+    assert done.returncode != 0
+    assert "Traceback" not in done.stderr
+    return done.stderr
+
+
 def test_workflow_stops_on_bad_rows_naming_file_column_and_row(tmp_path, tiny_market):
     bad = tmp_path / "trades.csv"
     bad.write_text("sym,when,px,qty\nAAA,2021-01-04 10:00:00,10.0,100\nAAA,2021-01-04 10:00:01,ten,100\n")
@@ -115,20 +125,11 @@ def test_workflow_stops_on_bad_rows_naming_file_column_and_row(tmp_path, tiny_ma
     cfg["inputs"]["trades"] = str(bad)
     cfg["inputs"]["quotes"] = None
     cfg["columns"] = {"trades": {"sym": "security", "when": "ts", "px": "price", "qty": "size"}}
-    path = tmp_path / "config.yaml"
-    path.write_text(yaml.safe_dump(cfg))
-    done = _snakemake(tmp_path, path)
-    assert done.returncode != 0
-    assert "trades.csv, column 'price': data row 2 (line 3 of the CSV) of the trades has 'ten'" in done.stderr
-    assert "Traceback" not in done.stderr
+    stderr = _failed_run(tmp_path, cfg)
+    assert "trades.csv, column 'price': data row 2 (line 3 of the CSV) of the trades has 'ten'" in stderr
 
 
 def test_workflow_stops_on_an_unknown_key_naming_it(tmp_path, tiny_market):
     cfg = _config(tiny_market)
     cfg["measurs"] = {}
-    path = tmp_path / "config.yaml"
-    path.write_text(yaml.safe_dump(cfg))
-    done = _snakemake(tmp_path, path)
-    assert done.returncode != 0
-    assert "unknown key 'measurs'" in done.stderr
-    assert "Traceback" not in done.stderr
+    assert "unknown key 'measurs'" in _failed_run(tmp_path, cfg)

@@ -55,6 +55,8 @@ position in the input before any rule that depends on order.
 
 from __future__ import annotations
 
+from datetime import datetime, timedelta, timezone
+
 import polars as pl
 
 from liqpanel.errors import ConfigError
@@ -106,7 +108,8 @@ def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[s
     """
     day, clock = local_clock(pl.col("ts"), market)
     first, last = sample
-    frame = _with_helpers(frame).with_columns(
+    frame = _with_helpers(frame).filter(_near_month(month, first, last))
+    frame = frame.with_columns(
         pl.col("security").fill_null(MISSING_SECURITY),
         day.alias("date"),
         day.dt.strftime("%Y-%m").alias("_month"),
@@ -118,6 +121,24 @@ def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[s
         .otherwise(pl.col("_month"))
     )
     return frame.filter(home == month)
+
+
+def _near_month(month: str, first: str, last: str) -> pl.Expr:
+    """A cheap UTC pre-filter: rows within two days of the local month (no offset exceeds 14 hours).
+
+    Lets each partition skip most of a large file before any local-time work;
+    the exact local-month test follows.
+    """
+    start = datetime.fromisoformat(f"{month}-01").replace(tzinfo=timezone.utc)
+    end = (start + timedelta(days=32)).replace(day=1)
+    lo, hi = start - timedelta(days=2), end + timedelta(days=2)
+    ts = pl.col("ts")
+    keep = ts.is_null() | ((ts >= lo) & (ts < hi))
+    if month == first:
+        keep = keep | (ts < hi)
+    if month == last:
+        keep = keep | (ts >= lo)
+    return keep
 
 
 def _code_rule(frame_names: list[str], column: str, setting: dict | None, rule: str) -> pl.Expr | None:
@@ -328,18 +349,11 @@ def kept_rows(flagged: pl.DataFrame | pl.LazyFrame, columns: list[str]) -> pl.La
     )
 
 
-def clean_trades(
-    trades: pl.LazyFrame,
-    market: dict,
-    rules: dict,
-    *,
-    month: str,
-    sample: tuple[str, str],
-    quotes: pl.LazyFrame | None = None,
-) -> tuple[pl.LazyFrame, pl.LazyFrame]:
+def clean_trades(trades: pl.LazyFrame, market: dict, rules: dict, **partition) -> tuple[pl.LazyFrame, pl.LazyFrame]:
     """Apply the cleaning rules to the trades of one month partition.
 
-    ``month`` is 'YYYY-MM' in the market's local time; rows dated before
+    ``partition``: ``month``, ``sample`` and optionally ``quotes``, as for
+    ``flag_trades``. ``month`` is 'YYYY-MM' in the market's local time; rows dated before
     ``sample[0]`` are accounted in the first partition and rows after
     ``sample[1]`` in the last, so every row read lands in one partition.
     ``quotes`` are clean quotes of the partition (optional). Rows whose
@@ -347,9 +361,9 @@ def clean_trades(
     stage raises an error for them instead unless told to drop. Returns
     (clean trades, audit), both lazy.
     """
-    flagged = flag_trades(trades, market, rules, month=month, sample=sample, quotes=quotes)
+    flagged = flag_trades(trades, market, rules, **partition)
     extra = [c for c in trades.collect_schema().names() if c not in TRADE_COLUMNS and c not in HELPER_COLUMNS]
-    return kept_rows(flagged, TRADE_COLUMNS + extra), audit_of(flagged, "trades", month=month)
+    return kept_rows(flagged, TRADE_COLUMNS + extra), audit_of(flagged, "trades", month=partition["month"])
 
 
 def clean_quotes(

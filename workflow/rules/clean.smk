@@ -12,7 +12,7 @@ if FROM_TRADES:
         params:
             clean=CONFIG["clean"],
             market=CONFIG["market"],
-            columns=CONFIG["columns"],
+            columns={table: CONFIG["columns"][table] for table in ("trades", "quotes")},
             sample=CONFIG["sample"],
         run:
             stages.clean_month(CONFIG, wildcards.month, output.trades, output.audit, output.quotes)
