@@ -16,21 +16,13 @@ import polars as pl
 
 from liqpanel import bars as bars_mod
 from liqpanel import report as rep
-from liqpanel.clean import (
-    QUOTE_COLUMNS,
-    TRADE_COLUMNS,
-    audit_of,
-    check_conservation,
-    flag_quotes,
-    flag_trades,
-    kept_rows,
-)
+from liqpanel import readers
+from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
 from liqpanel.contracts import DAILY, month_of, require_columns
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
 from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns
-from liqpanel.readers import QUOTES_SPEC, TRADES_SPEC, read_adjustments, read_table, unparseable_error
 
 
 def _month_filter(month: str) -> pl.Expr:
@@ -45,11 +37,11 @@ def check_inputs(config: dict) -> None:
     """
     market = load_market(config["market"])
     inputs, columns = config["inputs"], config.get("columns", {})
-    for key, spec in (("trades", TRADES_SPEC), ("quotes", QUOTES_SPEC)):
+    for key, spec in (("trades", readers.TRADES_SPEC), ("quotes", readers.QUOTES_SPEC)):
         if inputs.get(key):
-            read_table(inputs[key], columns.get(key, {}), spec, market["timezone"])
+            readers.read_table(inputs[key], columns.get(key, {}), spec, market["timezone"])
     if inputs.get("adjustments"):
-        read_adjustments(inputs["adjustments"], columns.get("adjustments", {}))
+        readers.read_adjustments(inputs["adjustments"], columns.get("adjustments", {}))
 
 
 def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
@@ -58,14 +50,14 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_q
     rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
     columns = config.get("columns", {})
-    audits, quotes = [], None
+    audits, quotes, tz = [], None, market["timezone"]
     if config["inputs"].get("quotes"):
-        read = read_table(config["inputs"]["quotes"], columns.get("quotes", {}), QUOTES_SPEC, market["timezone"])
+        read = readers.read_table(config["inputs"]["quotes"], columns.get("quotes", {}), readers.QUOTES_SPEC, tz)
         flagged = flag_quotes(read.frame, market, rules, month=month, sample=sample).collect()
         _stop_on_unparseable(flagged, read, "quotes", rules)
         quotes = kept_rows(flagged, QUOTE_COLUMNS).collect()
         audits.append(audit_of(flagged, "quotes", month=month, timestamps=read.describe_timestamps()))
-    read = read_table(config["inputs"]["trades"], columns.get("trades", {}), TRADES_SPEC, market["timezone"])
+    read = readers.read_table(config["inputs"]["trades"], columns.get("trades", {}), readers.TRADES_SPEC, tz)
     flagged = flag_trades(
         read.frame, market, rules, month=month, sample=sample, quotes=quotes.lazy() if quotes is not None else None
     )
@@ -84,7 +76,7 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_q
 
 def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict) -> None:
     if rules.get("unparseable", "error") == "error":
-        error = unparseable_error(flagged, read.files, table)
+        error = readers.unparseable_error(flagged, read.files, table)
         if error is not None:
             raise error
 
@@ -104,7 +96,8 @@ def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
     adjustments = None
     if config is not None and config["inputs"].get("adjustments"):
-        adjustments = read_adjustments(config["inputs"]["adjustments"], config["columns"].get("adjustments", {}))
+        mapping = config["columns"].get("adjustments", {})
+        adjustments = readers.read_adjustments(config["inputs"]["adjustments"], mapping)
     write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments), out)
 
 
@@ -210,6 +203,8 @@ def report(
             label="tab:audit",
             notes="Each row read is kept or dropped by the first rule it breaks. " + rep.timestamp_notes(audit),
         )
+    if config["report"]["figures"] and "effective_spread" in monthly.columns:
+        rep.figure_median_spread(monthly, truth, "effective_spread", figures / "effective_spread_median", rid)
     spread_outputs = [o for name in config["measures"] if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
     if truth is not None and spread_outputs:
         rep.write_table(
@@ -219,8 +214,6 @@ def report(
         )
     if config["report"]["figures"] and "roll_spread" in monthly.columns:
         rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid)
-    if config["report"]["figures"] and "effective_spread" in monthly.columns:
-        rep.figure_median_spread(monthly, truth, "effective_spread", figures / "effective_spread_median", rid)
     write_parquet(monthly, data / "monthly.parquet")
     write_parquet(pl.read_parquet(panel_path), data / "panel.parquet")
     rep.write_manifest(run, config=config, inputs=rep.input_files(config), rid=rid, started=started, command=command)
