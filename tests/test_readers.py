@@ -101,6 +101,14 @@ def test_mixed_naive_and_offset_text_is_refused_at_the_first_differing_row(tmp_p
     assert "m.csv" in str(error) and "column 'ts'" in str(error) and "data row 3" in str(error)
 
 
+def test_a_local_time_skipped_by_the_clock_change_is_flagged(tmp_path):
+    # 2021-03-14 02:30 does not exist in New York (clocks jump from 02:00 to 03:00; IANA database)
+    rows = [("A", "2021-03-14 02:30:00", "1", "1"), ("A", "2021-03-14 03:30:00", "1", "1")]
+    _, frame = _read(_csv(tmp_path / "dst.csv", rows))
+    assert frame["_bad"].to_list() == ["ts", None]
+    assert frame["ts"][1] == _utc(2021, 3, 14, 3, 30)
+
+
 def test_unparseable_timestamp_and_price_name_file_column_and_row(tmp_path):
     rows = [("A", "2021-03-01 10:00:00", "1", "1"), ("A", "yesterday", "1", "1"), ("A", "2021-03-01 10:00:02", "x", "1")]
     scanned, frame = _read(_csv(tmp_path / "u.csv", rows))

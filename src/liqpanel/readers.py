@@ -225,6 +225,8 @@ def read_table(path: str | Path, mapping: dict[str, str] | None, spec: TableSpec
                 )
         ts, ts_bad, ts_raw, note = _timestamp(schema, timezone, file)
         notes.append(note)
+        # a value present that gives no instant (e.g. a local time skipped by a clock change) is bad too
+        ts_bad = ts_bad | (ts_raw.is_not_null() & ts.is_null())
         checks = [(ts_bad, "ts" if "ts" in schema else "date/time", ts_raw)]
         numbers = {}
         for column in (*spec.numeric, *[c for c in spec.optional_numeric if c in schema]):
@@ -259,7 +261,9 @@ def unparseable_error(flagged: pl.DataFrame, files: list[str], table: str, *, dr
     row = first["_row"] + 1
     where = f"data row {row} (line {row + 1} of the CSV)" if not file.lower().endswith(_PARQUET) else f"row {row}"
     column = first["_bad"]
-    expected = "a timestamp in one consistent form" if column in ("ts", "date/time") else "a number"
+    expected = "a number"
+    if column in ("ts", "date/time"):
+        expected = "a timestamp, all with or all without a zone, that exists in the market's time zone"
     fix = "fix the file or map another column under `columns:`"
     if droppable:
         fix += ", or set `clean: unparseable: drop` to drop such rows under the rule 'unparseable'"
