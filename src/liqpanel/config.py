@@ -17,6 +17,7 @@ import jsonschema
 import yaml
 
 from liqpanel.errors import ConfigError
+from liqpanel.markets import check_market
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 SCHEMA_PATH = REPO_ROOT / "workflow" / "schemas" / "config.schema.yaml"
@@ -116,4 +117,4 @@ def load_market(name_or_path: str) -> dict:
     for key in ("timezone", "sessions"):
         if key not in market:
             raise ConfigError(f"market profile {path} has no '{key}'")
-    return market
+    return check_market(market, path)

@@ -22,8 +22,9 @@ from typing import Any
 import polars as pl
 
 import liqpanel
-from liqpanel.clean import RULES
+from liqpanel.clean import RULES_OF
 from liqpanel.io import sha256_file, write_parquet, write_text
+from liqpanel.readers import list_files
 
 DEPENDENCIES = (
     "polars", "pandas", "pyarrow", "numpy", "scipy", "linearmodels", "statsmodels",
@@ -45,9 +46,9 @@ def run_id(config: dict, inputs: list[str | Path], version: str = liqpanel.__ver
 def input_files(config: dict) -> list[str]:
     """Every input file the config names (characteristics included)."""
     inputs = config.get("inputs", {})
-    files = [inputs[k] for k in ("trades", "quotes", "daily", "returns", "truth") if inputs.get(k)]
+    files = [inputs[k] for k in ("trades", "quotes", "adjustments", "daily", "returns", "truth") if inputs.get(k)]
     files += [c["path"] for c in inputs.get("characteristics", [])]
-    return sorted(set(files))
+    return sorted({f for path in files for f in list_files(path)})
 
 
 # ---------------------------------------------------------------- tables
@@ -130,16 +131,34 @@ def measure_summary(monthly: pl.DataFrame, outputs: list[str]) -> pl.DataFrame:
 
 
 def audit_summary(audit: pl.DataFrame) -> pl.DataFrame:
-    """Rows read, kept and dropped per rule, over the whole sample."""
-    totals = audit.select(pl.col("rows_read", "rows_kept", *[f"drop_{r}" for r in RULES]).sum())
-    read = totals.item(0, "rows_read")
-    rows = [("read", read), ("kept", totals.item(0, "rows_kept"))]
-    rows += [(f"dropped: {r}", totals.item(0, f"drop_{r}")) for r in RULES]
+    """Rows read, kept and dropped per rule of each table, over the whole sample."""
+    if "table" not in audit.columns:
+        audit = audit.with_columns(pl.lit("trades").alias("table"))
+    tables = [t for t in RULES_OF if t in set(audit.get_column("table").to_list())]
+    rows = []
+    for table in tables:
+        part = audit.filter(pl.col("table") == table)
+        rules = [r for r in RULES_OF[table] if f"drop_{r}" in part.columns]
+        totals = part.select(pl.col("rows_read", "rows_kept", *[f"drop_{r}" for r in rules]).sum())
+        read = totals.item(0, "rows_read")
+        entries = [("read", read), ("kept", totals.item(0, "rows_kept"))]
+        entries += [(f"dropped: {r}", totals.item(0, f"drop_{r}")) for r in rules]
+        if "kept_without_quote" in part.columns and part.get_column("kept_without_quote").is_not_null().any():
+            entries.append(("kept without a quote", part.get_column("kept_without_quote").sum()))
+        rows += [(table, label, int(count), count / read if read else None) for label, count in entries]
     return pl.DataFrame(
-        {"rows": [r[0] for r in rows], "count": [int(r[1]) for r in rows],
-         "share": [r[1] / read if read else None for r in rows]},
+        {"table": [r[0] for r in rows], "rows": [r[1] for r in rows], "count": [r[2] for r in rows],
+         "share": [r[3] for r in rows]},
         schema_overrides={"count": pl.Int64},
     )
+
+
+def timestamp_notes(audit: pl.DataFrame) -> str:
+    """How each table's timestamps were read, as stated in the audit."""
+    if "timestamps" not in audit.columns:
+        return ""
+    pairs = audit.select("table", "timestamps").unique().drop_nulls().sort("table", "timestamps")
+    return " ".join(f"Timestamps of the {t}: {n}." for t, n in pairs.iter_rows() if n)
 
 
 def spread_against_truth(monthly: pl.DataFrame, truth: pl.DataFrame, measures: list[str]) -> pl.DataFrame:

@@ -16,7 +16,8 @@ import polars as pl
 
 from liqpanel import bars as bars_mod
 from liqpanel import report as rep
-from liqpanel.clean import check_conservation, clean_trades, read_trades
+from liqpanel import readers
+from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
 from liqpanel.contracts import DAILY, month_of, require_columns
 from liqpanel.errors import InputError
@@ -29,25 +30,76 @@ def _month_filter(month: str) -> pl.Expr:
     return pl.col("month") == pl.lit(f"{month}-01").str.to_date()
 
 
-def clean_month(config: dict, month: str, out_trades: str, out_audit: str) -> None:
+def check_inputs(config: dict) -> None:
+    """Check the market profile and every input file's columns before any job runs.
+
+    Raises ConfigError or InputError naming the profile, file or column;
+    row-level problems are found later, by the clean stage.
+    """
     market = load_market(config["market"])
-    path = config["inputs"]["trades"]
-    trades = read_trades(path, config["columns"].get("trades", {}), market)
+    inputs, columns = config["inputs"], config.get("columns", {})
+    for key, spec in (("trades", readers.TRADES_SPEC), ("quotes", readers.QUOTES_SPEC)):
+        if inputs.get(key):
+            readers.read_table(inputs[key], columns.get(key, {}), spec, market["timezone"])
+    if inputs.get("adjustments"):
+        readers.read_adjustments(inputs["adjustments"], columns.get("adjustments", {}))
+
+
+def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
+    """Clean one month partition of the trades (and quotes, when the config names them)."""
+    market = load_market(config["market"])
+    rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
-    kept, audit = clean_trades(trades, market, config["clean"], month=month, sample=sample)
-    kept, audit = pl.collect_all([kept, audit])
+    columns = config.get("columns", {})
+    audits, quotes, tz = [], None, market["timezone"]
+    if config["inputs"].get("quotes"):
+        read = readers.read_table(config["inputs"]["quotes"], columns.get("quotes", {}), readers.QUOTES_SPEC, tz)
+        flagged = flag_quotes(read.frame, market, rules, month=month, sample=sample).collect()
+        _stop_on_unparseable(flagged, read, "quotes", rules)
+        quotes = kept_rows(flagged, QUOTE_COLUMNS).collect()
+        audits.append(audit_of(flagged, "quotes", month=month, timestamps=read.describe_timestamps()))
+    read = readers.read_table(config["inputs"]["trades"], columns.get("trades", {}), readers.TRADES_SPEC, tz)
+    flagged = flag_trades(
+        read.frame, market, rules, month=month, sample=sample, quotes=quotes.lazy() if quotes is not None else None
+    )
+    _stop_on_unparseable(flagged, read, "trades", rules)
+    kept = kept_rows(flagged, TRADE_COLUMNS).collect()
+    audits.append(audit_of(flagged, "trades", month=month, timestamps=read.describe_timestamps()))
+    audit = pl.concat(pl.collect_all(audits), how="diagonal_relaxed").sort("table", "security", "date", nulls_last=True)
     check_conservation(audit)
     write_parquet(kept, out_trades)
     write_parquet(audit, out_audit)
+    if out_quotes:
+        empty = pl.DataFrame(schema={"security": pl.String, "ts": pl.Datetime("us", "UTC"), "bid": pl.Float64,
+                                     "ask": pl.Float64, "date": pl.Date})
+        write_parquet(quotes if quotes is not None else empty, out_quotes)
 
 
-def bars_month(clean_trades_path: str, out: str) -> None:
-    write_parquet(bars_mod.trading_bars(pl.scan_parquet(clean_trades_path)), out)
+def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict) -> None:
+    if rules.get("unparseable", "error") == "error":
+        error = readers.unparseable_error(flagged, read.files, table)
+        if error is not None:
+            raise error
 
 
-def daily_month(bars_path: str, previous_bars_path: str | None, out: str) -> None:
+def bars_month(clean_trades_path: str, out: str, config: dict | None = None, clean_quotes_path: str | None = None) -> None:
+    """Daily bars of one month; with a config, also the high-frequency benchmarks."""
+    trades = pl.scan_parquet(clean_trades_path)
+    if config is None:
+        write_parquet(bars_mod.trading_bars(trades), out)
+        return
+    market = load_market(config["market"])
+    quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
+    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars")), out)
+
+
+def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
-    write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous), out)
+    adjustments = None
+    if config is not None and config["inputs"].get("adjustments"):
+        mapping = config["columns"].get("adjustments", {})
+        adjustments = readers.read_adjustments(config["inputs"]["adjustments"], mapping)
+    write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments), out)
 
 
 def read_daily_file(path: str, mapping: dict[str, str]) -> pl.LazyFrame:
@@ -181,11 +233,15 @@ def report(
         label="tab:measures", notes=sources,
     )
     if audit_path:
+        audit = pl.read_parquet(audit_path)
         rep.write_table(
-            rep.audit_summary(pl.read_parquet(audit_path)), tables / "cleaning_audit",
-            caption="Trade cleaning: rows read, kept and dropped by rule",
-            label="tab:audit", notes="Each row read is kept or dropped by the first rule it breaks.",
+            rep.audit_summary(audit), tables / "cleaning_audit",
+            caption="Trade and quote cleaning: rows read, kept and dropped by rule",
+            label="tab:audit",
+            notes="Each row read is kept or dropped by the first rule it breaks. " + rep.timestamp_notes(audit),
         )
+    if config["report"]["figures"] and "effective_spread" in monthly.columns:
+        rep.figure_median_spread(monthly, truth, ["effective_spread"], figures / "effective_spread_median", rid)
     spread_outputs = [o for name in config["measures"] if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
     if truth is not None and spread_outputs:
         rep.write_table(

@@ -5,6 +5,7 @@ from liqpanel import stages
 from liqpanel.config import validate_config
 from liqpanel.errors import LiqpanelError
 from liqpanel.io import month_range, previous_month
+from liqpanel.readers import list_files
 from liqpanel.report import input_files, run_id
 
 if not config:
@@ -14,6 +15,7 @@ try:
     CONFIG = validate_config(config, source="config")
     INPUTS = input_files(CONFIG)
     RUN_ID = run_id(CONFIG, INPUTS)
+    stages.check_inputs(CONFIG)
 except LiqpanelError as exc:
     sys.stderr.write(f"liqpanel: {exc}\n")
     sys.exit(2)
@@ -24,6 +26,13 @@ MONTHS = month_range(CONFIG["sample"]["start"], CONFIG["sample"]["end"])
 FROM_TRADES = not CONFIG["inputs"]["daily"]
 STARTED = stages.now()
 COMMAND = " ".join(sys.argv)
+
+
+
+def expand_inputs(key):
+    """The files an `inputs:` entry names (a glob expands to its files); none when unset."""
+    return list_files(CONFIG["inputs"][key]) if CONFIG["inputs"].get(key) else []
+
 
 wildcard_constraints:
     month=r"\d{4}-\d{2}",
