@@ -7,7 +7,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 CORES ?= 2
 
-.PHONY: demo test bench clean-work
+.PHONY: demo test bench clean-work report expected verify
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -28,3 +28,16 @@ bench: $(STAMP)
 
 clean-work:
 	rm -rf work .snakemake
+
+# Snakemake's HTML report of the demo run: every table and figure with its caption.
+report: demo
+	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --report results/$$(readlink results/latest)-report.html -- all
+	@echo "report: results/$$(readlink results/latest)-report.html"
+
+# Compare the demo run's tables with the committed ones in tests/expected/.
+verify: demo
+	$(BIN)/liqpanel check-tables tests/expected results/latest --report results/table-check.json
+
+# Refresh tests/expected/ from the demo run (after a deliberate change of results).
+expected: demo
+	rm -f tests/expected/*.csv && mkdir -p tests/expected && cp results/latest/tables/*.csv tests/expected/

@@ -18,12 +18,22 @@ import polars as pl
 
 from liqpanel.errors import InputError
 
+# Read once at import (before any job thread starts): os.umask can only be
+# read by setting it, which is not safe once threads write files.
+_UMASK = os.umask(0o022)
+os.umask(_UMASK)
+
 
 def _files(path: str) -> list[str]:
     files = sorted(glob.glob(path)) if any(ch in path for ch in "*?[") else [path]
     if not files or not all(os.path.exists(f) for f in files):
         raise InputError("no such file (check `inputs:` in the config)", path=path)
     return files
+
+
+def expand_inputs(path: str | Path) -> list[str]:
+    """The files an input path names: the file itself, or a glob's sorted matches."""
+    return _files(str(path))
 
 
 def scan_table(path: str | Path, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
@@ -67,6 +77,7 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
+    os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes owner-only files; outputs are for sharing
     try:
         yield Path(tmp)
         os.replace(tmp, path)

@@ -8,7 +8,6 @@ nothing else, so every stage can be run and tested without Snakemake.
 from __future__ import annotations
 
 import json
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
@@ -21,6 +20,7 @@ from liqpanel.config import load_market
 from liqpanel.contracts import DAILY, month_of, require_columns
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
+from liqpanel.replication import write_replication_files
 from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns
 
 
@@ -121,48 +121,80 @@ def report(
     regression_table_path: str,
     started: str,
     command: str,
+    regression_results_path: str | None = None,
 ) -> None:
-    run = Path(run_dir)
-    tables, figures, data = run / "tables", run / "figures", run / "data"
+    """Write ``results/<run-id>/``: tables, figures, data, README, manifest.
+
+    The folder is built beside its final place and moved there in one step,
+    so it is either absent or complete. Before the move the inputs are
+    checksummed again: if they changed while the workflow ran, the run stops
+    instead of labelling its tables with a run-id that does not describe them.
+    """
+    build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
     truth_path = config["inputs"].get("truth")
     truth = pl.read_parquet(truth_path) if truth_path else None
-    outputs = [o for name in config["measures"] for o in REGISTRY[name].outputs]
-    sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
+    measures = list(config["measures"])
+    outputs = [o for name in measures for o in REGISTRY[name].outputs]
+    sources = rep.measure_sources(measures)
+    settings = config["report"]
+    out = rep.RunFolder(
+        build, rid=rid, captions=settings.get("captions"), sample=rep.sample_note(config, monthly),
+        digits=settings.get("digits", 4),
+    )
 
     reg = pl.read_parquet(regression_table_path)
     if reg.height:
-        rep.write_table(
-            reg, tables / "regressions",
+        numbers = pl.read_parquet(regression_results_path) if regression_results_path else reg
+        out.table(
+            "regressions", numbers, display=reg,
             caption="Regressions of next-month return on liquidity",
-            label="tab:regressions",
-            notes="t-statistics in parentheses. " + sources,
+            notes=rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), sources),
         )
-    rep.write_table(
-        rep.measure_summary(monthly, outputs), tables / "measures_summary",
-        caption="Monthly measures: pooled distribution over security-months",
-        label="tab:measures", notes=sources,
+    out.table(
+        "measures_summary", rep.measure_summary(monthly, outputs),
+        caption="Monthly measures: pooled distribution over security-months", label="tab:measures", notes=sources,
     )
     if audit_path:
-        rep.write_table(
-            rep.audit_summary(pl.read_parquet(audit_path)), tables / "cleaning_audit",
-            caption="Trade cleaning: rows read, kept and dropped by rule",
-            label="tab:audit", notes="Each row read is kept or dropped by the first rule it breaks.",
+        out.table(
+            "cleaning_audit", rep.audit_summary(pl.read_parquet(audit_path)),
+            caption="Trade cleaning: rows read, kept and dropped by rule", label="tab:audit",
+            notes="Each row read is kept or dropped by the first rule it breaks",
         )
-    spread_outputs = [o for name in config["measures"] if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
+    spread_outputs = [o for name in measures if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
     if truth is not None and spread_outputs:
-        rep.write_table(
-            rep.spread_against_truth(monthly, truth, spread_outputs), tables / "spread_vs_truth",
-            caption="Spread estimates against the simulator's true spread",
-            label="tab:truth", notes="Proportional full spreads (0.01 = 1%). " + sources,
+        out.table(
+            "spread_vs_truth", rep.spread_against_truth(monthly, truth, spread_outputs),
+            caption="Spread estimates against the simulator's true spread", label="tab:truth",
+            notes=rep.join_notes("Proportional full spreads (0.01 = 1%)", sources),
         )
-    if config["report"]["figures"] and "roll_spread" in monthly.columns:
-        rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid)
-    write_parquet(monthly, data / "monthly.parquet")
-    write_parquet(pl.read_parquet(panel_path), data / "panel.parquet")
-    rep.write_manifest(run, config=config, inputs=rep.input_files(config), rid=rid, started=started, command=command)
-    rep.point_latest(run.parent, rid)
+    if settings["figures"] and "roll_spread" in monthly.columns:
+        out.figure(
+            "roll_spread_median",
+            rep.figure_median_spread(monthly, truth, "roll_spread", build / "figures" / "roll_spread_median", rid),
+            caption="Cross-sectional median of the Roll (1984) spread by month"
+            + (", against the simulator's true spread" if truth is not None else ""),
+            notes="Percent of the price",
+        )
+    write_parquet(monthly, build / "data" / "monthly.parquet")
+    write_parquet(pl.read_parquet(panel_path), build / "data" / "panel.parquet")
+
+    identity = rep.check_identity(config, rid)
+    inputs = rep.input_listing(config)
+    contents = out.contents()
+    finished = rep.now()
+    git, machine = rep.git_state(), rep.machine()
+    write_replication_files(
+        build, rid=rid, config=config, inputs=inputs, contents=contents, command=command, git=git, machine=machine,
+        elapsed=rep.elapsed_seconds(started, finished),
+    )
+    rep.write_manifest(
+        build, config=config, inputs=inputs, rid=rid, started=started, command=command, finished=finished,
+        identity=identity, contents=contents,
+    )
+    rep.publish_folder(build, run_dir)
+    rep.point_latest(Path(run_dir).parent, rid)
 
 
 def now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+    return rep.now()
