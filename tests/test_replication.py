@@ -69,11 +69,11 @@ def test_a_killed_run_resumes_to_the_same_tables(tmp_path, market, whole_run):
     folder = (tmp_path / "results" / "latest").resolve()
     assert folder.name == whole_run.name
     csvs = sorted(p.name for p in (whole_run / "tables").glob("*.csv"))
-    assert csvs == sorted(p.name for p in (folder / "tables").glob("*.csv")) and len(csvs) == 4
+    assert csvs == sorted(p.name for p in (folder / "tables").glob("*.csv")) and len(csvs) >= 4
     for name in csvs:
         assert (folder / "tables" / name).read_bytes() == (whole_run / "tables" / name).read_bytes(), name
     result = check_tables(whole_run, folder)
-    assert result.passed and result.counts()["equal"] == 4, summary_text(result)
+    assert result.passed and result.counts()["equal"] == len(csvs), summary_text(result)
 
     # Snakemake's HTML report of the resumed run: every table and figure with its caption
     report = tmp_path / "report.html"

@@ -72,7 +72,7 @@ def _run(args: argparse.Namespace, extra: list[str]) -> int:
     load_config(args.config)  # fail fast with a clear message
     cmd = [
         sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
-        "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, *([] if any(not e.startswith("-") for e in extra) else ["all"]),
+        "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", "all",
     ]
     return subprocess.call(cmd)
 
@@ -95,7 +95,7 @@ def main(argv: list[str] | None = None) -> int:
     p = sub.add_parser("check-config", help="validate a config file")
     p.add_argument("config")
 
-    p = sub.add_parser("run", help="run the workflow (extra arguments go to snakemake)")
+    p = sub.add_parser("run", help="run the whole workflow (extra options go to snakemake)")
     p.add_argument("--config", default="config/config.yaml")
     p.add_argument("--cores", type=int, default=2)
 

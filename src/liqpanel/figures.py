@@ -61,3 +61,21 @@ def line_chart(series: dict, *, stem, title: str, ylabel: str, rid: str, xlabel:
         ax.legend(frameon=False)
         fig.autofmt_xdate()
         return save(fig, stem, rid)
+
+
+def scatter_chart(points: dict, *, stem, title: str, xlabel: str, ylabel: str, rid: str) -> list[Path]:
+    """Scatter of (x, y) pairs keyed by label, with the 45-degree line."""
+    with plt.rc_context(STYLE):
+        fig, ax = plt.subplots(figsize=(5.5, 5.0))
+        lo, hi = float("inf"), float("-inf")
+        for label, (x, y) in points.items():
+            ax.scatter(x, y, s=8, alpha=0.5, label=label)
+            if x:
+                lo, hi = min(lo, min(x), min(y)), max(hi, max(x), max(y))
+        if lo < hi:
+            ax.plot([lo, hi], [lo, hi], color="#000000", linewidth=0.8, linestyle="--", label="45-degree line")
+        ax.set_title(title)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        ax.legend(frameon=False)
+        return save(fig, stem, rid)

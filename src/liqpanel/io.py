@@ -18,11 +18,6 @@ import polars as pl
 
 from liqpanel.errors import InputError
 
-# Read once at import (before any job thread starts): os.umask can only be
-# read by setting it, which is not safe once threads write files.
-_UMASK = os.umask(0o022)
-os.umask(_UMASK)
-
 
 def _files(path: str) -> list[str]:
     files = sorted(glob.glob(path)) if any(ch in path for ch in "*?[") else [path]
@@ -77,7 +72,7 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
-    os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes owner-only files; outputs are for sharing
+    os.chmod(tmp, 0o644)  # mkstemp makes files private; outputs are for reading
     try:
         yield Path(tmp)
         os.replace(tmp, path)

@@ -440,7 +440,9 @@ def audit_summary(audit: pl.DataFrame) -> pl.DataFrame:
 
 def spread_against_truth(monthly: pl.DataFrame, truth: pl.DataFrame, measures: list[str]) -> pl.DataFrame:
     """Mean and median estimate against the true spread over security-months."""
-    joined = monthly.join(truth.select("security", "month", "spread"), on=["security", "month"], how="inner")
+    joined = monthly.join(truth.select("security", "month", "spread"), on=["security", "month"], how="inner").sort(
+        "security", "month"
+    )  # a join's row order is not fixed; the sums below must be
     rows = []
     for name in measures:
         both = joined.select(name, "spread").drop_nulls()
@@ -474,6 +476,36 @@ def figure_median_spread(monthly: pl.DataFrame, truth: pl.DataFrame | None, meas
         title=f"Cross-sectional median of {measure}",
         ylabel="spread (% of price)",
         rid=rid,
+    )
+
+
+def figure_cumulative(series: pl.DataFrame, stem: str | Path, rid: str) -> list[Path]:
+    """Cumulative growth of 1 in each portfolio (month, portfolio, ret).
+
+    Returns are dated by formation month and earned the month after, so the
+    x axis is the month the return is earned. Missing months count as 0.
+    """
+    from liqpanel import figures
+
+    lines = {}
+    for (label,), frame in sorted(series.group_by("portfolio"), key=lambda kv: str(kv[0][0])):
+        frame = frame.sort("month")
+        growth = (frame.get_column("ret").fill_null(0.0) + 1.0).cum_prod()
+        lines[str(label)] = (frame.get_column("month").dt.offset_by("1mo").to_list(), growth.to_list())
+    return figures.line_chart(lines, stem=stem, title="Cumulative return", ylabel="value of 1 invested", rid=rid)
+
+
+def figure_proxy_scatter(monthly: pl.DataFrame, benchmark: str, proxies: list[str], stem: str | Path, rid: str) -> list[Path]:
+    """Each proxy against the benchmark over security-months (percent of price)."""
+    from liqpanel import figures
+
+    points = {}
+    for proxy in proxies:
+        both = monthly.select(benchmark, proxy).drop_nulls()
+        points[proxy] = ((both.get_column(benchmark) * 100).to_list(), (both.get_column(proxy) * 100).to_list())
+    return figures.scatter_chart(
+        points, stem=stem, title=f"Spread proxies against {benchmark}",
+        xlabel=f"{benchmark} (% of price)", ylabel="proxy (% of price)", rid=rid,
     )
 
 

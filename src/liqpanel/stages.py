@@ -18,10 +18,11 @@ from liqpanel import report as rep
 from liqpanel.clean import check_conservation, clean_trades, read_trades
 from liqpanel.config import load_market
 from liqpanel.contracts import DAILY, month_of, require_columns
+from liqpanel.errors import InputError
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
+from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
 from liqpanel.replication import write_replication_files
-from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns
 
 
 def _month_filter(month: str) -> pl.Expr:
@@ -49,20 +50,44 @@ def daily_month(bars_path: str, previous_bars_path: str | None, out: str) -> Non
     write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous), out)
 
 
-def daily_from_file(config: dict, month: str, out: str) -> None:
-    """The daily entry point: one month of a user's own daily file."""
-    path = config["inputs"]["daily"]
-    lf = scan_table(path, config["columns"].get("daily", {}))
-    required = [c for c in DAILY if c not in ("month", "n_trades", "dollar_volume")]
+def read_daily_file(path: str, mapping: dict[str, str]) -> pl.LazyFrame:
+    """A user's daily file in the daily contract (see DEVELOPERS.md).
+
+    Needs security, date, open, high, low, close and volume; ``dollar_volume``
+    defaults to close x volume, ``n_trades`` to missing, and ``ret`` to the
+    close-to-close return (only when the file has no return column: a
+    vendor's adjusted return is always preferred). ``shares_out`` is kept
+    when present.
+    """
+    lf = scan_table(path, mapping)
+    required = ["security", "date", "open", "high", "low", "close", "volume"]
     require_columns(lf, required, table="daily", path=path)
-    names = lf.collect_schema().names()
-    lf = lf.with_columns(pl.col("date").cast(pl.Date), pl.col("security").cast(pl.String))
+    schema = lf.collect_schema()
+    for column in ("open", "high", "low", "close", "volume"):
+        if not schema[column].is_numeric():
+            raise InputError(f"expected numbers, found {schema[column]}", path=path, column=column)
+    date = pl.col("date").str.to_date("%Y-%m-%d", strict=False) if schema["date"] == pl.String else pl.col("date").cast(pl.Date)
+    lf = lf.with_columns(date.alias("date"), pl.col("security").cast(pl.String))
+    bad = lf.filter(pl.col("date").is_null()).select(pl.len()).collect().item()
+    if bad:
+        raise InputError(f"{bad} rows have a date that is missing or not YYYY-MM-DD", path=path, column="date")
     lf = lf.with_columns(month_of("date").alias("month"))
-    if "dollar_volume" not in names:
+    if "dollar_volume" not in schema:
         lf = lf.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
-    if "n_trades" not in names:
+    if "n_trades" not in schema:
         lf = lf.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
-    write_parquet(lf.filter(_month_filter(month)).sort("security", "date"), out)
+    if "ret" not in schema:
+        lf = bars_mod.add_returns(lf)
+    keep = [*DAILY, *[c for c in ("shares_out", "mkt_ret") if c in schema]]
+    return lf.select(
+        [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in keep[len(DAILY):]]
+    ).sort("security", "date")
+
+
+def daily_from_file(config: dict, month: str, out: str) -> None:
+    """The daily entry point: one month partition of a user's own daily file."""
+    lf = read_daily_file(config["inputs"]["daily"], config["columns"].get("daily", {}))
+    write_parquet(lf.filter(_month_filter(month)), out)
 
 
 def measures_month(config: dict, daily_path: str, out: str) -> None:
@@ -85,29 +110,36 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> 
         {**c, "frame": scan_table(c["path"])}
         for c in inputs.get("characteristics", [])
     ]
-    write_parquet(build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars), out)
+    built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
+    write_parquet(transform_panel(built, config["panel"]), out)
 
 
-def models(config: dict, panel_path: str, out_results: str, out_table: str) -> None:
-    from liqpanel.models import ModelSpec, fit_model, regression_table
+def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> None:
+    """Fit every configured model; write each result table and an index."""
+    from liqpanel.models.run import run_models
 
-    frame = pl.read_parquet(panel_path)
-    specs = [ModelSpec.from_config(m) for m in config["models"]["regressions"]]
-    results = [fit_model(frame, s) for s in specs]
-    long = pl.DataFrame(
-        [
-            {
-                "model": r.name, "estimator": r.estimator, "covariance": r.covariance, "variable": v,
-                "coef": r.params[v], "std_error": r.std_errors[v], "tstat": r.tstats[v], "pvalue": r.pvalues[v],
-                "nobs": r.nobs, "n_months": r.n_months, "r2": r.r2,
-            }
-            for r in results
-            for v in r.params
-        ],
-        schema_overrides={"nobs": pl.Int64, "n_months": pl.Int64},
-    ) if results else pl.DataFrame()
-    write_parquet(long, out_results)
-    write_parquet(regression_table(results) if results else pl.DataFrame(), out_table)
+    factors = None
+    if config["inputs"].get("factors"):
+        path = config["inputs"]["factors"]
+        factors = scan_table(path, config["columns"].get("factors", {})).collect()
+        if "month" not in factors.columns:
+            raise InputError("the factor file needs a 'month' column", path=path, column="month")
+        factors = factors.with_columns(month_of(pl.col("month").cast(pl.Date)).alias("month"))
+    sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
+    result = run_models(
+        pl.read_parquet(panel_path), config["models"], monthly=pl.read_parquet(monthly_path), factors=factors,
+        sources=sources,
+    )
+    out = Path(out_dir)
+    index = []
+    for table in result.tables:
+        write_parquet(table.frame, out / f"{table.name}.parquet")
+        index.append({"name": table.name, "caption": table.caption, "notes": table.notes})
+    for name, series in result.series.items():
+        write_parquet(series, out / "series" / f"{name}.parquet")
+    if result.regressions_long is not None:
+        write_parquet(result.regressions_long, out / "regressions_long.parquet")
+    write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
 
 
 def report(
@@ -118,10 +150,9 @@ def report(
     monthly_path: str,
     panel_path: str,
     audit_path: str | None,
-    regression_table_path: str,
+    models_dir: str,
     started: str,
     command: str,
-    regression_results_path: str | None = None,
 ) -> None:
     """Write ``results/<run-id>/``: tables, figures, data, README, manifest.
 
@@ -143,14 +174,21 @@ def report(
         digits=settings.get("digits", 4),
     )
 
-    reg = pl.read_parquet(regression_table_path)
-    if reg.height:
-        numbers = pl.read_parquet(regression_results_path) if regression_results_path else reg
-        out.table(
-            "regressions", numbers, display=reg,
-            caption="Regressions of next-month return on liquidity",
-            notes=rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), sources),
-        )
+    models = Path(models_dir)
+    for entry in json.loads((models / "index.json").read_text()):
+        frame, display, notes = pl.read_parquet(models / f"{entry['name']}.parquet"), None, entry["notes"]
+        if entry["name"] == "regressions" and (models / "regressions_long.parquet").exists():
+            # full-precision numbers in the CSV; the printed layout in LaTeX and Markdown
+            frame, display = pl.read_parquet(models / "regressions_long.parquet"), frame
+            notes = rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), sources)
+        out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes)
+    panel_frame = pl.read_parquet(panel_path)
+    variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
+    out.table(
+        "panel_coverage", coverage(panel_frame, variables),
+        caption="Panel coverage: securities per month and missing share per variable", label="tab:coverage",
+        notes="Month t holds liquidity and characteristics known at t and the return of t+1",
+    )
     out.table(
         "measures_summary", rep.measure_summary(monthly, outputs),
         caption="Monthly measures: pooled distribution over security-months", label="tab:measures", notes=sources,
@@ -168,16 +206,35 @@ def report(
             caption="Spread estimates against the simulator's true spread", label="tab:truth",
             notes=rep.join_notes("Proportional full spreads (0.01 = 1%)", sources),
         )
-    if settings["figures"] and "roll_spread" in monthly.columns:
-        out.figure(
-            "roll_spread_median",
-            rep.figure_median_spread(monthly, truth, "roll_spread", build / "figures" / "roll_spread_median", rid),
-            caption="Cross-sectional median of the Roll (1984) spread by month"
-            + (", against the simulator's true spread" if truth is not None else ""),
-            notes="Percent of the price",
-        )
+    if settings["figures"]:
+        figures = build / "figures"
+        if "roll_spread" in monthly.columns:
+            out.figure(
+                "roll_spread_median",
+                rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid),
+                caption="Cross-sectional median of the Roll (1984) spread by month"
+                + (", against the simulator's true spread" if truth is not None else ""),
+                notes="Percent of the price",
+            )
+        for series_path in sorted((models / "series").glob("*.parquet")):
+            name = f"cumulative_{series_path.stem}"
+            out.figure(
+                name, rep.figure_cumulative(pl.read_parquet(series_path), figures / name, rid),
+                caption=f"Cumulative value of 1 invested: {series_path.stem.replace('_', ' ')}",
+                notes="Returns earned the month after formation",
+            )
+        val = config["models"].get("validation")
+        if val and val["benchmark"] in monthly.columns:
+            proxies = [p for p in val["proxies"] if p in monthly.columns]
+            if proxies:
+                out.figure(
+                    "proxy_vs_benchmark",
+                    rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid),
+                    caption=f"Spread proxies against the benchmark {val['benchmark']}, by security-month",
+                    notes="Percent of the price",
+                )
     write_parquet(monthly, build / "data" / "monthly.parquet")
-    write_parquet(pl.read_parquet(panel_path), build / "data" / "panel.parquet")
+    write_parquet(panel_frame, build / "data" / "panel.parquet")
 
     identity = rep.check_identity(config, rid)
     inputs = rep.input_listing(config)

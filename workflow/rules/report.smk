@@ -9,8 +9,7 @@ rule report:
         monthly=f"{WORK}/monthly.parquet",
         panel=f"{WORK}/panel.parquet",
         audit=[f"{WORK}/audit.parquet"] if FROM_TRADES else [],
-        table=f"{WORK}/models/regression_table.parquet",
-        results=f"{WORK}/models/regressions.parquet",
+        models=f"{WORK}/models",
         truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
     output:
         report(
@@ -28,8 +27,7 @@ rule report:
             monthly_path=input.monthly,
             panel_path=input.panel,
             audit_path=input.audit[0] if input.audit else None,
-            regression_table_path=input.table,
-            regression_results_path=input.results,
+            models_dir=input.models,
             started=STARTED,
             command=COMMAND,
         )
