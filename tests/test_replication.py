@@ -98,7 +98,7 @@ def test_manifest_lists_every_file_with_its_checksum(whole_run, market):
     }
     listed = {o["path"]: o for o in manifest["outputs"]}
     assert set(listed) == on_disk
-    assert {"README.md", "config.yaml", "inputs.sha256", "tables/regressions.tex", "figures/roll_spread_median.pdf"} <= on_disk
+    assert {"README.md", "config.yaml", "inputs.sha256", "tables/regressions.tex", "figures/spread_median.pdf"} <= on_disk
     for path, entry in listed.items():
         assert entry["sha256"] == _sha(whole_run / path), path
         assert entry["bytes"] == (whole_run / path).stat().st_size

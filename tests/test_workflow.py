@@ -81,7 +81,7 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
     table = pl.read_csv(first / "tables" / "regressions.csv")
     coef = table.filter((pl.col("model") == "roll_only") & (pl.col("variable") == "roll_spread")).row(0, named=True)
     assert coef["coef"] / coef["std_error"] == pytest.approx(coef["tstat"], rel=1e-12)  # t = b / se
-    assert (first / "figures" / "roll_spread_median.png").exists()
+    assert (first / "figures" / "spread_median.png").exists()
     assert (first / "tables" / "regressions.tex").read_text().count(r"\toprule") == 1
     audit = pl.read_csv(first / "tables" / "cleaning_audit.csv")
     counts = dict(zip(audit["rows"], audit["count"]))

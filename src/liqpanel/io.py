@@ -84,7 +84,8 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
 def write_parquet(frame: pl.DataFrame | pl.LazyFrame, path: str | Path) -> Path:
     """Write a frame to Parquet atomically with deterministic settings."""
     if isinstance(frame, pl.LazyFrame):
-        frame = frame.collect()
+        # the in-memory engine gives bit-identical floats from run to run
+        frame = frame.collect(engine="in-memory")
     with atomic_path(path) as tmp:
         frame.write_parquet(tmp, compression="zstd", statistics=True)
     return Path(path)

@@ -463,17 +463,19 @@ def spread_against_truth(monthly: pl.DataFrame, truth: pl.DataFrame, measures: l
 
 # ---------------------------------------------------------------- figures
 
-def figure_median_spread(monthly: pl.DataFrame, truth: pl.DataFrame | None, measure: str, stem: str | Path, rid: str) -> list[Path]:
-    """Monthly cross-sectional median of a spread measure (and of the truth)."""
+def figure_median_spread(
+    monthly: pl.DataFrame, truth: pl.DataFrame | None, measures: list[str], stem: str | Path, rid: str
+) -> list[Path]:
+    """Monthly cross-sectional median of spread measures (and of the truth)."""
     from liqpanel import figures
 
-    series = {measure: monthly.group_by("month").agg(pl.col(measure).median()).sort("month")}
+    frames = {m: monthly.group_by("month").agg(pl.col(m).median().alias("v")).sort("month") for m in measures}
     if truth is not None:
-        series["true spread"] = truth.group_by("month").agg(pl.col("spread").median()).sort("month")
+        frames["true spread"] = truth.group_by("month").agg(pl.col("spread").median().alias("v")).sort("month")
     return figures.line_chart(
-        {label: (df.get_column("month").to_list(), (df.get_column(df.columns[1]) * 100).to_list()) for label, df in series.items()},
+        {label: (df.get_column("month").to_list(), (df.get_column("v") * 100).to_list()) for label, df in frames.items()},
         stem=stem,
-        title=f"Cross-sectional median of {measure}",
+        title="Cross-sectional median spread" + (" against the truth" if truth is not None else ""),
         ylabel="spread (% of price)",
         rid=rid,
     )

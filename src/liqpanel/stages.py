@@ -208,11 +208,11 @@ def report(
         )
     if settings["figures"]:
         figures = build / "figures"
-        if "roll_spread" in monthly.columns:
+        if spread_outputs:
             out.figure(
-                "roll_spread_median",
-                rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid),
-                caption="Cross-sectional median of the Roll (1984) spread by month"
+                "spread_median",
+                rep.figure_median_spread(monthly, truth, spread_outputs, figures / "spread_median", rid),
+                caption="Cross-sectional median of each spread estimate by month"
                 + (", against the simulator's true spread" if truth is not None else ""),
                 notes="Percent of the price",
             )
