@@ -2,7 +2,8 @@
 
 Runs the whole chain (clean -> bars -> measures -> panel -> models -> report)
 in a temporary directory, twice, and checks the outputs and that the second
-run gives the same run-id and identical CSV tables.
+run, in another directory with its inputs copied to another path, gives the
+same run-id and byte-identical CSV and LaTeX tables.
 """
 
 import json
@@ -79,8 +80,8 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
     for part in ("tables", "figures", "data", "manifest.json"):
         assert (first / part).exists(), part
     table = pl.read_csv(first / "tables" / "regressions.csv")
-    coef = table.filter(pl.col("variable") == "roll_spread").row(0, named=True)
-    assert float(coef["roll_only"]) == float(coef["roll_only"])  # finite, parsed
+    coef = table.filter((pl.col("model") == "roll_only") & (pl.col("variable") == "roll_spread")).row(0, named=True)
+    assert coef["coef"] / coef["std_error"] == pytest.approx(coef["tstat"], rel=1e-12)  # t = b / se
     assert (first / "figures" / "spread_median.png").exists()
     assert (first / "figures" / "effective_spread_median.png").exists()
     truth = pl.read_csv(first / "tables" / "spread_vs_truth.csv")
@@ -102,10 +103,13 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
     listed = {o["path"] for o in manifest["outputs"]}
     assert "tables/regressions.csv" in listed and manifest["run_id"] == first.name
 
-    second = _run(tmp_path / "b", tiny_market)
-    assert second.name == first.name  # same inputs, same run-id
-    for csv in sorted((first / "tables").glob("*.csv")):
-        assert csv.read_bytes() == (second / "tables" / csv.name).read_bytes(), csv.name
+    moved = shutil.copytree(tiny_market, tmp_path / "elsewhere" / "market")
+    second = _run(tmp_path / "b", moved)
+    assert second.name == first.name  # same input contents at another path, same run-id
+    tables = sorted((first / "tables").glob("*.*"))
+    assert {p.suffix for p in tables} == {".csv", ".tex", ".md"}
+    for table in tables:
+        assert table.read_bytes() == (second / "tables" / table.name).read_bytes(), table.name
 
 
 def _failed_run(tmp_path: Path, cfg: dict) -> str:

@@ -4,6 +4,7 @@
     liqpanel measures                 # list the registered measures and sources
     liqpanel check-config FILE        # validate a config without running
     liqpanel run [--config FILE] [--cores N] [snakemake args...]
+    liqpanel check-tables REFERENCE CANDIDATE   # compare two runs' tables cell by cell
 """
 
 from __future__ import annotations
@@ -55,6 +56,16 @@ def _check_config(args: argparse.Namespace) -> int:
     return 0
 
 
+def _check_tables(args: argparse.Namespace) -> int:
+    from liqpanel.compare import Tolerance, check_tables, summary_text, write_check_report
+
+    result = check_tables(args.reference, args.candidate, Tolerance(args.abs_tol, args.rel_tol), strict=args.strict)
+    sys.stdout.write(summary_text(result, top=args.top))
+    if args.report:
+        print(f"report: {write_check_report(result, args.report)}")
+    return 0 if result.passed else 1
+
+
 def _run(args: argparse.Namespace, extra: list[str]) -> int:
     from liqpanel.config import load_config
 
@@ -88,6 +99,21 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--config", default="config/config.yaml")
     p.add_argument("--cores", type=int, default=2)
 
+    p = sub.add_parser(
+        "check-tables",
+        help="compare every table of two runs (or a run and a folder of archived tables) within a tolerance",
+        description="Compare every CSV table of CANDIDATE with REFERENCE cell by cell. Each is a run folder "
+        "(results/<run-id>) or a folder of CSV tables (e.g. tests/expected). Exit status 0: all tables agree "
+        "within tolerance; 1: a table differs or is missing; 2: bad arguments or unreadable tables.",
+    )
+    p.add_argument("reference", help="the archived run folder or folder of tables")
+    p.add_argument("candidate", help="the run folder or folder of tables to check")
+    p.add_argument("--abs-tol", type=float, default=1e-9, help="absolute tolerance (default 1e-9)")
+    p.add_argument("--rel-tol", type=float, default=1e-6, help="tolerance relative to |reference| (default 1e-6)")
+    p.add_argument("--strict", action="store_true", help="also fail when the candidate has tables the reference lacks")
+    p.add_argument("--top", type=int, default=10, help="largest deviations to print (default 10)")
+    p.add_argument("--report", default="table-check.json", help="where to write the JSON report ('' for none)")
+
     args, extra = parser.parse_known_args(argv)
     if extra and args.command != "run":
         parser.error(f"unrecognised arguments: {' '.join(extra)}")
@@ -98,6 +124,8 @@ def main(argv: list[str] | None = None) -> int:
             return _measures(args)
         if args.command == "check-config":
             return _check_config(args)
+        if args.command == "check-tables":
+            return _check_tables(args)
         return _run(args, extra)
     except LiqpanelError as exc:
         print(f"liqpanel: {exc}", file=sys.stderr)

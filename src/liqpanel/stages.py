@@ -8,7 +8,6 @@ nothing else, so every stage can be run and tested without Snakemake.
 from __future__ import annotations
 
 import json
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
@@ -24,6 +23,7 @@ from liqpanel.errors import InputError
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
 from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
+from liqpanel.replication import write_replication_files
 
 
 def _month_filter(month: str) -> pl.Expr:
@@ -206,64 +206,113 @@ def report(
     started: str,
     command: str,
 ) -> None:
-    run = Path(run_dir)
-    tables, figures, data = run / "tables", run / "figures", run / "data"
+    """Write ``results/<run-id>/``: tables, figures, data, README, manifest.
+
+    The folder is built beside its final place and moved there in one step,
+    so it is either absent or complete. Before the move the inputs are
+    checksummed again: if they changed while the workflow ran, the run stops
+    instead of labelling its tables with a run-id that does not describe them.
+    """
+    build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
     truth_path = config["inputs"].get("truth")
     truth = pl.read_parquet(truth_path) if truth_path else None
-    outputs = [o for name in config["measures"] for o in REGISTRY[name].outputs]
-    sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
+    measures = list(config["measures"])
+    outputs = [o for name in measures for o in REGISTRY[name].outputs]
+    sources = rep.measure_sources(measures)
+    settings = config["report"]
+    out = rep.RunFolder(
+        build, rid=rid, captions=settings.get("captions"), sample=rep.sample_note(config, monthly),
+        digits=settings.get("digits", 4),
+    )
 
     models = Path(models_dir)
     for entry in json.loads((models / "index.json").read_text()):
-        rep.write_table(
-            pl.read_parquet(models / f"{entry['name']}.parquet"), tables / entry["name"],
-            caption=entry["caption"], label=f"tab:{entry['name']}", notes=entry["notes"],
-        )
+        frame, display, notes = pl.read_parquet(models / f"{entry['name']}.parquet"), None, entry["notes"]
+        if entry["name"] == "regressions" and (models / "regressions_long.parquet").exists():
+            # full-precision numbers in the CSV; the printed layout in LaTeX and Markdown
+            frame, display = pl.read_parquet(models / "regressions_long.parquet"), frame
+            notes = rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), sources)
+        out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes)
     panel_frame = pl.read_parquet(panel_path)
     variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
-    rep.write_table(
-        coverage(panel_frame, variables), tables / "panel_coverage",
-        caption="Panel coverage: securities per month and missing share per variable",
-        label="tab:coverage", notes="Month t holds liquidity and characteristics known at t and the return of t+1.",
+    out.table(
+        "panel_coverage", coverage(panel_frame, variables),
+        caption="Panel coverage: securities per month and missing share per variable", label="tab:coverage",
+        notes="Month t holds liquidity and characteristics known at t and the return of t+1",
     )
-    rep.write_table(
-        rep.measure_summary(monthly, outputs), tables / "measures_summary",
-        caption="Monthly measures: pooled distribution over security-months",
-        label="tab:measures", notes=sources,
+    out.table(
+        "measures_summary", rep.measure_summary(monthly, outputs),
+        caption="Monthly measures: pooled distribution over security-months", label="tab:measures", notes=sources,
     )
     if audit_path:
         audit = pl.read_parquet(audit_path)
-        rep.write_table(
-            rep.audit_summary(audit), tables / "cleaning_audit",
-            caption="Trade and quote cleaning: rows read, kept and dropped by rule",
-            label="tab:audit",
-            notes="Each row read is kept or dropped by the first rule it breaks. " + rep.timestamp_notes(audit),
+        out.table(
+            "cleaning_audit", rep.audit_summary(audit),
+            caption="Trade and quote cleaning: rows read, kept and dropped by rule", label="tab:audit",
+            notes=rep.join_notes("Each row read is kept or dropped by the first rule it breaks", rep.timestamp_notes(audit)),
         )
-    if config["report"]["figures"] and "effective_spread" in monthly.columns:
-        rep.figure_median_spread(monthly, truth, ["effective_spread"], figures / "effective_spread_median", rid)
-    spread_outputs = [o for name in config["measures"] if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
+    spread_outputs = [o for name in measures if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
     if truth is not None and spread_outputs:
-        rep.write_table(
-            rep.spread_against_truth(monthly, truth, spread_outputs), tables / "spread_vs_truth",
-            caption="Spread estimates against the simulator's true spread",
-            label="tab:truth", notes="Proportional full spreads (0.01 = 1%). " + sources,
+        out.table(
+            "spread_vs_truth", rep.spread_against_truth(monthly, truth, spread_outputs),
+            caption="Spread estimates against the simulator's true spread", label="tab:truth",
+            notes=rep.join_notes("Proportional full spreads (0.01 = 1%)", sources),
         )
-    if config["report"]["figures"]:
+    if settings["figures"]:
+        figures = build / "figures"
         if spread_outputs:
-            rep.figure_median_spread(monthly, truth, spread_outputs, figures / "spread_median", rid)
+            out.figure(
+                "spread_median",
+                rep.figure_median_spread(monthly, truth, spread_outputs, figures / "spread_median", rid),
+                caption="Cross-sectional median of each spread estimate by month"
+                + (", against the simulator's true spread" if truth is not None else ""),
+                notes="Percent of the price",
+            )
+        if "effective_spread" in monthly.columns:
+            out.figure(
+                "effective_spread_median",
+                rep.figure_median_spread(monthly, truth, ["effective_spread"], figures / "effective_spread_median", rid),
+                caption="Cross-sectional median effective spread by month"
+                + (", against the simulator's true spread" if truth is not None else ""),
+                notes="Percent of the price",
+            )
         for series_path in sorted((models / "series").glob("*.parquet")):
-            rep.figure_cumulative(pl.read_parquet(series_path), figures / f"cumulative_{series_path.stem}", rid)
+            name = f"cumulative_{series_path.stem}"
+            out.figure(
+                name, rep.figure_cumulative(pl.read_parquet(series_path), figures / name, rid),
+                caption=f"Cumulative value of 1 invested: {series_path.stem.replace('_', ' ')}",
+                notes="Returns earned the month after formation",
+            )
         val = config["models"].get("validation")
         if val and val["benchmark"] in monthly.columns:
             proxies = [p for p in val["proxies"] if p in monthly.columns]
             if proxies:
-                rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid)
-    write_parquet(monthly, data / "monthly.parquet")
-    write_parquet(panel_frame, data / "panel.parquet")
-    rep.write_manifest(run, config=config, inputs=rep.input_files(config), rid=rid, started=started, command=command)
-    rep.point_latest(run.parent, rid)
+                out.figure(
+                    "proxy_vs_benchmark",
+                    rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid),
+                    caption=f"Spread proxies against the benchmark {val['benchmark']}, by security-month",
+                    notes="Percent of the price",
+                )
+    write_parquet(monthly, build / "data" / "monthly.parquet")
+    write_parquet(panel_frame, build / "data" / "panel.parquet")
+
+    identity = rep.check_identity(config, rid)
+    inputs = rep.input_listing(config)
+    contents = out.contents()
+    finished = rep.now()
+    git, machine = rep.git_state(), rep.machine()
+    write_replication_files(
+        build, rid=rid, config=config, inputs=inputs, contents=contents, command=command, git=git, machine=machine,
+        elapsed=rep.elapsed_seconds(started, finished),
+    )
+    rep.write_manifest(
+        build, config=config, inputs=inputs, rid=rid, started=started, command=command, finished=finished,
+        identity=identity, contents=contents,
+    )
+    rep.publish_folder(build, run_dir)
+    rep.point_latest(Path(run_dir).parent, rid)
 
 
 def now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+    return rep.now()
