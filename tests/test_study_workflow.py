@@ -10,7 +10,7 @@ import pytest
 import yaml
 
 from liqpanel.config import load_config
-from liqpanel.report import input_files, run_id
+from liqpanel.report import run_id
 from liqpanel.simulate import SimulationSpec, simulate_market, write_market
 
 REPO = Path(__file__).resolve().parents[1]
@@ -33,8 +33,8 @@ def test_study_command_writes_tables_heat_maps_and_summary(tmp_path):
     )
     assert done.returncode == 0, done.stderr[-4000:]
     config = load_config(path)
-    folder = tmp_path / "results" / f"study-{run_id(config, input_files(config))}"
-    assert f"study results: results/study-" in done.stdout and "lowest RMSE" in done.stdout
+    folder = tmp_path / "results" / f"study-{run_id(config)}"
+    assert f"study results: results/{folder.name}" in done.stdout and "lowest RMSE" in done.stdout
     estimators = pl.read_csv(folder / "tables" / "study_estimators.csv")
     assert estimators.get_column("n").unique().to_list() == [300]
     assert {"edge_spread", "cs_spread", "roll_spread", "gibbs_spread", "vol_yang_zhang"} <= set(estimators["estimator"])

@@ -26,6 +26,11 @@ def _files(path: str) -> list[str]:
     return files
 
 
+def expand_inputs(path: str | Path) -> list[str]:
+    """The files an input path names: the file itself, or a glob's sorted matches."""
+    return _files(str(path))
+
+
 def scan_table(path: str | Path, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
     """Lazily scan a Parquet or CSV file (or a glob of them) and rename columns.
 

@@ -1,4 +1,9 @@
 # report: everything -> results/<run-id>/ (liqpanel.report)
+# `make report` (snakemake --report) turns the tables and figures marked here
+# into one HTML file; each gets its caption from the run's manifest.
+report: "../report/workflow.rst"
+
+
 rule report:
     input:
         monthly=f"{WORK}/monthly.parquet",
@@ -8,7 +13,13 @@ rule report:
         truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
         study=[f"{WORK}/study"] if CONFIG["study"]["in_report"] else [],
     output:
-        directory(f"{RESULTS}/{RUN_ID}"),
+        report(
+            directory(f"{RESULTS}/{RUN_ID}"),
+            patterns=["tables/{table}.csv", "figures/{figure}.png"],
+            caption="../report/result.rst",
+            category=report_category,
+            labels=report_labels,
+        ),
     run:
         stages.report(
             CONFIG,

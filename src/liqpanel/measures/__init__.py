@@ -14,7 +14,8 @@ import polars as pl
 
 from liqpanel.contracts import check_unique_key
 from liqpanel.errors import ConfigError
-from liqpanel.measures import library as _library  # noqa: F401  (registers every measure)
+from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
+from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
 
 KEY = ["security", "month"]
