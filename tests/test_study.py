@@ -231,6 +231,8 @@ def test_roll_undefined_share_rises_as_spread_falls_relative_to_volatility():
     # approaching one half (a little less: the sample autocovariance is biased down) as the spread
     # vanishes, and rare when the spread dominates. Reference: the same share in Roll's daily model
     # simulated directly with numpy; the study must agree within 4 binomial standard errors.
+    # Measured (study, reference) at spread / volatility 0, 0.5, 1, 1.5, 2.5: (0.386, 0.406),
+    # (0.329, 0.322), (0.173, 0.176), (0.105, 0.081), (0.015, 0.024).
     ratios = [0.0, 0.5, 1.0, 1.5, 2.5]
     pool = paired([r * 0.02 for r in ratios], 0.02, 40.0)
     result = study.run_study(pool, study={"draws": 2500, "seed": 2, "measures": ["roll_spread"],
@@ -249,8 +251,9 @@ def test_roll_undefined_share_rises_as_spread_falls_relative_to_volatility():
 def test_flooring_corwin_schultz_biases_the_average_up_when_spread_is_small_relative_to_volatility():
     # Corwin & Schultz (2012): setting negative two-day estimates to zero biases the monthly
     # average up when the spread is small relative to volatility. Same seed, same simulated
-    # months, floored against kept. Measured (estimate - truth) / truth: floored +2.3 and kept
-    # -0.6 at spread / volatility 0.07; both about -0.15 at spread / volatility 3.
+    # months, floored against kept, 30 trades a day. Measured (estimate - truth) / truth: floored
+    # +3.6 and kept -2.3 at spread / volatility 0.07 (few trades a day bias the kept estimate down);
+    # both -0.11 at spread / volatility 3.
     pool = paired([0.002, 0.03], [0.03, 0.01], 30.0)
     common = {"draws": 600, "seed": 4, "measures": ["cs_spread"], "spread_vol_edges": [0.5]}
     floored = by_bin(study.run_study(pool, study=common, measures={"cs_spread": {"negative": "zero"}}), "cs_spread")
@@ -267,7 +270,7 @@ def test_edge_stays_close_to_unbiased_as_trading_thins_where_high_low_does_not()
     # Ardia, Guidotti & Kroencke (2024): their efficient estimator stays close to unbiased when
     # trading is infrequent, while the high-low estimator of Corwin & Schultz (2012) is biased
     # down (the observed range misses the quotes). Spread 1%, daily volatility 1%. Measured
-    # relative bias at 1.5 and 30 trades a day: EDGE -0.04 and -0.02; Corwin-Schultz -0.93 and -0.21.
+    # relative bias at 1.5 and 30 trades a day: EDGE -0.02 and -0.02; Corwin-Schultz -0.93 and -0.16.
     pool = conditions(0.01, 0.01, [1.5, 30.0])
     result = study.run_study(
         pool,
