@@ -344,6 +344,8 @@ def test_tick_sets_the_true_spread_and_the_market_profile_sets_the_session():
         assert group.get_column("true_spread").mean() == pytest.approx(0.01 / price, rel=0.03)
     # trading-hours volatility: the efficient variance of the session, (1 - 0.5) of the day's
     assert (truth.get_column("true_vol_session") - 0.02 * math.sqrt(0.5)).abs().max() < 1e-15
-    # the simulated days lie in the market's own time zone and every draw has its window
-    assert daily.group_by("security").len().get_column("len").max() <= 21
-    assert daily.get_column("month").n_unique() == 1
+    # every draw has its window of at most 21 days (the month) and one warm-up day before it
+    window = daily.filter(pl.col("month") == study.WINDOW_MONTH)
+    assert window.group_by("security").len().get_column("len").max() <= 21
+    assert set(daily.get_column("month")) == {study.WINDOW_MONTH, study.WARM_UP_MONTH}
+    assert daily.filter(pl.col("month") == study.WARM_UP_MONTH).get_column("date").max() < window.get_column("date").min()

@@ -62,6 +62,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from datetime import date
 from typing import Any
 
 import numpy as np
@@ -79,7 +80,12 @@ KINDS = ("spread", "volatility")
 TRADING_HOURS = frozenset({"vol_parkinson", "vol_garman_klass", "vol_rogers_satchell"})
 # columns of the daily table built from simulated trades
 SIMULATED_COLUMNS = frozenset(DAILY) | {"vwap"}
+# columns the measures stage adds itself: the market return, and the flag of a previous month's
+# last day lent to measures that pair consecutive days
+SUPPLIED_COLUMNS = frozenset({"mkt_ret", "from_previous_month"})
 SIMULATION_START = "2021-01"  # any month: the calendar is business days, the window is what matters
+WINDOW_MONTH = date(2021, 1, 1)  # the label of every draw's window (its "month")
+WARM_UP_MONTH = date(2020, 12, 1)  # the label of the warm-up day before it
 SIMULATION_PRICE = 50.0  # initial price; only relative to a tick does the price level matter
 PRICE_STEP = 1.25  # with a tick, draws are simulated in groups whose prices differ by less than this factor
 DEFAULTS: dict[str, Any] = {
@@ -116,7 +122,7 @@ def check_settings(study: dict[str, Any] | None) -> dict[str, Any]:
         if measure.family != family:
             raise ConfigError(f"study.{key}: '{s[key]}' is a measure of the {measure.family} family; "
                               f"expected one of the {family} family")
-        missing = sorted(set(measure.columns) - set(DAILY))
+        missing = sorted(set(measure.columns) - set(DAILY) - SUPPLIED_COLUMNS)
         if missing:
             raise ConfigError(f"study.{key}: '{s[key]}' needs daily column(s) {missing}; choose a measure of daily bars")
     for name in s["measures"] or ():
@@ -124,14 +130,20 @@ def check_settings(study: dict[str, Any] | None) -> dict[str, Any]:
         if measure.family not in KINDS:
             raise ConfigError(f"study.measures: '{name}' is a measure of the {measure.family} family; the study "
                               "compares spread and volatility estimators with their truth")
-        if not set(measure.columns) <= SIMULATED_COLUMNS:
+        if not _from_daily_bars(measure):
             raise ConfigError(f"study.measures: '{name}' needs daily column(s) "
-                              f"{sorted(set(measure.columns) - SIMULATED_COLUMNS)}, which simulated daily bars lack")
+                              f"{sorted(set(measure.columns) - SIMULATED_COLUMNS - SUPPLIED_COLUMNS)}, "
+                              "which simulated daily bars lack")
     for key in ("spread_vol_edges", "intensity_edges"):
         edges = s[key]
         if edges is not None and (len(edges) < 1 or any(b <= a for a, b in zip(edges, edges[1:]))):
             raise ConfigError(f"study.{key}: expected an increasing list of bin edges, got {edges!r}")
     return s
+
+
+def _from_daily_bars(measure) -> bool:
+    """Whether daily bars built from trades give the measure everything it needs."""
+    return set(measure.columns) <= SIMULATED_COLUMNS | SUPPLIED_COLUMNS
 
 
 def _named_measure(name: str, where: str):
@@ -152,7 +164,7 @@ def estimator_selection(measures: dict[str, Any] | None, names: list[str] | None
     """
     measures = measures or {}
     if names is None:
-        names = sorted(n for n, m in REGISTRY.items() if m.family in KINDS and set(m.columns) <= SIMULATED_COLUMNS)
+        names = sorted(n for n, m in REGISTRY.items() if m.family in KINDS and _from_daily_bars(m))
     return {name: measures.get(name) for name in names}
 
 
@@ -388,8 +400,11 @@ def simulate_draws(conditions: pl.DataFrame, market: Market, seed: int) -> tuple
     of similar ``price`` (within a factor ``PRICE_STEP``, each group at its
     median price); without a tick at a single price.
 
-    The daily table follows the daily contract with one ``month`` for every
-    draw (the window is the month). The truth has ``security``,
+    The daily table follows the daily contract. Every draw's window carries
+    the month ``WINDOW_MONTH`` (the window is the month) and its warm-up day
+    ``WARM_UP_MONTH``, as the previous month's last day sits in the previous
+    month partition of the workflow; estimates are read for the window. The
+    truth, over the window, has ``security``,
     ``true_spread`` (mean ln(ask/bid) over the window's trades, 2c when there
     is no tick or no trade), ``true_vol`` (daily), ``true_vol_session``
     (sqrt(1 - overnight share) x daily), ``true_trades_per_day``,
@@ -428,8 +443,8 @@ def simulate_draws(conditions: pl.DataFrame, market: Market, seed: int) -> tuple
         daily_bars(pl.concat(trades).lazy(), timezone=market.timezone)
         .join(calendar.lazy(), on="date", how="left")
         .join(window.lazy(), on="security", how="left")
-        .filter((pl.col("_day") >= 1) & (pl.col("_day") <= pl.col("n_days")))
-        .with_columns(pl.lit(calendar.item(1, "date").replace(day=1)).alias("month"))
+        .filter(pl.col("_day") <= pl.col("n_days"))
+        .with_columns(pl.when(pl.col("_day") == 0).then(pl.lit(WARM_UP_MONTH)).otherwise(pl.lit(WINDOW_MONTH)).alias("month"))
         .select(*DAILY)
         .sort("security", "date")
         .collect(engine="in-memory")
@@ -446,7 +461,8 @@ def _calendar(length: int) -> pl.DataFrame:
 
 def _truth(conditions: pl.DataFrame, daily: pl.DataFrame, quotes: pl.DataFrame, calendar: pl.DataFrame,
            market: Market) -> pl.DataFrame:
-    traded = daily.group_by("security").agg(pl.len().cast(pl.Int64).alias("days_traded"))
+    traded = daily.filter(pl.col("month") == WINDOW_MONTH).group_by("security").agg(
+        pl.len().cast(pl.Int64).alias("days_traded"))
     truth = (
         conditions.select(
             "security", "draw", "n_days",
@@ -709,7 +725,7 @@ def run_study(
     selection = estimator_selection(measures, s["measures"])
     conditions = draw_conditions(pool, s["draws"], s["seed"])
     daily, truth = simulate_draws(conditions, market, s["seed"])
-    monthly = compute_monthly(daily.lazy(), selection).drop("month")
+    monthly = compute_monthly(daily.lazy(), selection).filter(pl.col("month") == WINDOW_MONTH).drop("month")
     truth = add_bins(truth, s)
     long = long_estimates(monthly, truth, estimates_of(selection))
     info = {
