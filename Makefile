@@ -1,13 +1,14 @@
 # Two commands on a fresh machine with Python 3.11+ and make:
 #   make demo   run the whole demo pipeline into results/<run-id>/
 #   make test   run the test suite
+#   make study  the estimator study alone, calibrated to the demo market
 PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 CORES ?= 2
 
-.PHONY: demo test bench cluster-test clean-work
+.PHONY: demo test study bench cluster-test clean-work report expected verify
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -19,6 +20,9 @@ demo: $(STAMP)
 	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --cores $(CORES) --force-use-threads --rerun-incomplete --quiet rules -- all
 	@echo "results: results/latest -> $$(readlink results/latest)"
 	@cat results/latest/tables/regressions.md
+
+study: $(STAMP)
+	$(BIN)/liqpanel study --config config/config.yaml --cores $(CORES) --quiet rules
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q
@@ -36,3 +40,18 @@ bench: $(STAMP)
 
 clean-work:
 	rm -rf work .snakemake
+
+# Snakemake's HTML report of the demo run: every table and figure with its caption.
+report: demo
+	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --report results/$$(readlink results/latest)-report.html -- all
+	@echo "report: results/$$(readlink results/latest)-report.html"
+
+# Compare the demo run's tables with the committed ones in tests/expected/.
+verify: demo
+	$(BIN)/liqpanel check-tables tests/expected results/latest --report results/table-check.json
+
+# Refresh tests/expected/ from a demo run made from nothing (after a deliberate
+# change of results; Snakemake does not rerun a stage when only code changed).
+expected: $(STAMP)
+	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --cores $(CORES) --force-use-threads --forceall --quiet rules -- all
+	rm -f tests/expected/*.csv && mkdir -p tests/expected && cp results/latest/tables/*.csv tests/expected/

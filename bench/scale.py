@@ -10,7 +10,9 @@ one process per stage and month partition (as one Snakemake job would be),
 ``--jobs`` at a time, each polars query limited to ``--threads`` threads.
 For every size it reports the wall time, trades per second, and the peak
 resident memory of each kind of job (the largest over its partitions,
-measured by the operating system for each process).
+measured by the operating system for each process). Cleaning applies the
+missing-field, sample, non-positive, session and duplicate rules (the
+outlier filter and the same-time merge are off, as in the pandas script).
 
 Side by side on the smallest market: a naive pandas script that loads the
 whole trade file and computes the same daily table and the Roll and Amihud
@@ -39,6 +41,9 @@ import polars as pl
 
 STAGES = ("clean", "bars", "daily", "measures")
 MEASURES = {"roll_spread": {"convention": "missing"}, "amihud": None}
+# the rules the pandas script applies too: the outlier filter and the merge of
+# same-time records are off, so both compute the same numbers
+CLEANING = {"same_timestamp": "keep", "outliers": None}
 REPO = Path(__file__).resolve().parents[1]
 
 
@@ -84,7 +89,7 @@ def config_for(trades: Path, n_months: int) -> dict:
     months = month_list(n_months)
     return validate_config(
         {"sample": {"start": months[0], "end": months[-1]}, "market": "demo",
-         "inputs": {"trades": str(trades)}, "measures": MEASURES},
+         "inputs": {"trades": str(trades)}, "measures": MEASURES, "clean": CLEANING},
         source="benchmark",
     )
 
@@ -100,11 +105,11 @@ def job_main(spec: dict) -> None:
     start = time.process_time()
     paths, stage = spec.get("paths", {}), spec["stage"]
     if stage == "clean":
-        stages.clean_month(config, spec["month"], paths["clean"], paths["audit"])
+        stages.clean_month(config, spec["month"], paths["clean"], paths["audit"], paths["quotes"])
     elif stage == "bars":
-        stages.bars_month(paths["clean"], paths["bars"])
+        stages.bars_month(paths["clean"], paths["bars"], config, paths["quotes"])
     elif stage == "daily":
-        stages.daily_month(paths["bars"], spec.get("previous_bars"), paths["daily"])
+        stages.daily_month(paths["bars"], spec.get("previous_bars"), paths["daily"], config)
     elif stage == "measures":
         stages.measures_month(config, paths["daily"], spec.get("previous_daily"), paths["measures"])
     elif stage == "pandas":
@@ -153,7 +158,7 @@ def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int)
     months = month_list(n_months)
 
     def paths(m: str) -> dict[str, str]:
-        return {s: str(work / s / f"month={m}" / f"{s}.parquet") for s in (*STAGES, "audit")}
+        return {s: str(work / s / f"month={m}" / f"{s}.parquet") for s in (*STAGES, "audit", "quotes")}
 
     def spec(stage: str, i: int) -> dict:
         m = months[i]

@@ -20,7 +20,8 @@ def _demo():
 def test_demo_config_is_valid_and_defaults_are_filled():
     cfg = load_config(DEMO)
     assert cfg["clean"]["duplicates"] is True
-    assert cfg["inputs"]["quotes"] is None  # default filled
+    assert cfg["inputs"]["adjustments"] is None  # default filled
+    assert cfg["bars"]["horizon_minutes"] == 5  # default filled
     assert cfg["run"]["work_dir"] == "work"
 
 

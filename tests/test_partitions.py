@@ -21,9 +21,8 @@ import polars as pl
 import pytest
 from polars.testing import assert_frame_equal
 
-from liqpanel import stages
-from liqpanel.bars import add_returns, daily_bars
-from liqpanel.clean import clean_trades, read_trades
+from liqpanel import readers, stages
+from liqpanel.bars import add_returns, intraday_bars
 from liqpanel.config import load_market, validate_config
 from liqpanel.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
@@ -91,7 +90,7 @@ def _stored_as(trades: pl.DataFrame, kind: str) -> pl.DataFrame:
 
 
 @pytest.mark.parametrize("kind", ["utc_ms", "paris", "naive_local"])
-def test_month_window_keeps_every_row_of_its_partition(tmp_path, kind):
+def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, kind):
     market = simulate_market(n_securities=6, n_months=4, seed=7, bad_row_share=0.03)
     trades = market.trades.drop("true_sign")
     odd = pl.DataFrame(
@@ -115,18 +114,30 @@ def test_month_window_keeps_every_row_of_its_partition(tmp_path, kind):
 
     # the sample leaves January and April outside: their rows go to the first and last partitions
     config = _config(tmp_path, "2021-02", "2021-03", {"roll_spread": None})
-    demo = load_market("demo")
+    config["clean"]["unparseable"] = "drop"  # the skipped local time is counted, not an error
     total = 0
     for month in ("2021-02", "2021-03"):
-        out = tmp_path / month
-        stages.clean_month(config, month, str(out / "trades.parquet"), str(out / "audit.parquet"))
-        kept, audit = clean_trades(
-            read_trades(str(path), {}, demo), demo, config["clean"], month=month, sample=("2021-02", "2021-03")
-        )
-        assert_frame_equal(pl.read_parquet(out / "trades.parquet"), kept.collect())
-        assert_frame_equal(pl.read_parquet(out / "audit.parquet"), audit.collect())
-        total += pl.read_parquet(out / "audit.parquet")["rows_read"].sum()
+        windowed = _clean(config, month, tmp_path / "windowed" / month)
+        with monkeypatch.context() as patch:  # the same job reading the whole file
+            patch.setattr(stages, "month_window", lambda *args, **kwargs: None)
+            whole = _clean(config, month, tmp_path / "whole" / month)
+        for name in ("trades", "audit", "quotes"):
+            assert_frame_equal(windowed[name], whole[name])
+        total += windowed["audit"].filter(pl.col("table") == "trades")["rows_read"].sum()
     assert total == stored.height  # each row read by exactly one partition
+
+    # the window reaches the reader: fewer rows leave the file, still numbered as in the file
+    window = lambda schema: month_window(schema["ts"], "2021-03", ("2021-02", "2021-03"), "America/New_York")  # noqa: E731
+    read = readers.read_table(str(path), {}, readers.TRADES_SPEC, "America/New_York", window).frame.collect()
+    assert 0 < read.height < stored.height  # January and February stay in the file
+    numbered = stored.with_row_index("_row").select(pl.col("_row").cast(pl.Int64), "price")
+    assert_frame_equal(read.select("_row", "price"), numbered.join(read.select("_row"), on="_row", how="semi"))
+
+
+def _clean(config: dict, month: str, out: Path) -> dict[str, pl.DataFrame]:
+    paths = {name: out / f"{name}.parquet" for name in ("trades", "audit", "quotes")}
+    stages.clean_month(config, month, str(paths["trades"]), str(paths["audit"]), str(paths["quotes"]))
+    return {name: pl.read_parquet(path) for name, path in paths.items()}
 
 
 def test_month_window_bounds_are_local_month_ends():
@@ -153,15 +164,16 @@ def small_market(tmp_path_factory):
 
 
 def _run_partitioned(config: dict, work: Path) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """Each month through the stage functions the workflow's rules call, reading the previous partition."""
     months = month_range(config["sample"]["start"], config["sample"]["end"])
-    part = {m: {s: str(work / s / f"month={m}" / f"{s}.parquet") for s in ("clean", "audit", "bars", "daily", "measures")}
-            for m in months}
+    names = ("clean", "quotes", "audit", "bars", "daily", "measures")
+    part = {m: {s: str(work / s / f"month={m}" / f"{s}.parquet") for s in names} for m in months}
     for i, m in enumerate(months):
-        before = part[months[i - 1]] if i else None
-        stages.clean_month(config, m, part[m]["clean"], part[m]["audit"])
-        stages.bars_month(part[m]["clean"], part[m]["bars"])
-        stages.daily_month(part[m]["bars"], before["bars"] if before else None, part[m]["daily"])
-        stages.measures_month(config, part[m]["daily"], before["daily"] if before else None, part[m]["measures"])
+        p, before = part[m], (part[months[i - 1]] if i else None)
+        stages.clean_month(config, m, p["clean"], p["audit"], p["quotes"])
+        stages.bars_month(p["clean"], p["bars"], config, p["quotes"])
+        stages.daily_month(p["bars"], before["bars"] if before else None, p["daily"], config)
+        stages.measures_month(config, p["daily"], before["daily"] if before else None, p["measures"])
     stages.gather([part[m]["measures"] for m in months], str(work / "monthly.parquet"), KEY)
     daily = pl.concat([pl.read_parquet(part[m]["daily"]) for m in months]).sort("security", "date")
     return daily, pl.read_parquet(work / "monthly.parquet")
@@ -174,7 +186,8 @@ def test_many_partitions_give_the_tables_of_one(tmp_path, small_market, gap_meas
 
     # the whole market at once: every clean trade in one frame, one daily table, one measures call
     clean = pl.concat([pl.read_parquet(p) for p in sorted(tmp_path.glob("clean/month=*/clean.parquet"))])
-    whole_daily = daily_bars(clean.lazy()).collect()
+    whole_bars = intraday_bars(clean.lazy(), None, load_market("demo"), config["bars"])
+    whole_daily = add_returns(whole_bars).collect()
     assert_frame_equal(daily, whole_daily)
     assert_frame_equal(monthly, compute_monthly(whole_daily.lazy(), config["measures"]))
     assert monthly.height == whole_daily.select(KEY).unique().height  # no month made of a borrowed day

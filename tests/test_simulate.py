@@ -23,6 +23,7 @@ from liqpanel.errors import ConfigError
 from liqpanel.simulate import (
     Market,
     SimulationSpec,
+    market_factor_returns,
     simulate_market,
     simulate_security_months,
     write_market,
@@ -468,11 +469,16 @@ def test_write_market_is_byte_identical(tmp_path):
     for run in ("a", "b"):
         market = simulate_market(n_securities=5, n_months=2, bad_row_share=0.01, seed=21)
         paths = write_market(market, tmp_path / run)
-        assert sorted(paths) == sorted(["trades", "quotes", "securities", "characteristics", "returns", "truth"])
+        assert sorted(paths) == sorted(
+            ["trades", "quotes", "securities", "characteristics", "returns", "truth", "factors", "daily_example"]
+        )
         digests.append({k: hashlib.sha256(p.read_bytes()).hexdigest() for k, p in paths.items()})
+        tables = {**market.tables(), "factors": market_factor_returns(market)}
         for name, path in paths.items():
+            if name == "daily_example":
+                continue
             assert path.name == f"{name}.parquet"
-            assert pl.read_parquet(path).equals(market.tables()[name]), name
+            assert pl.read_parquet(path).equals(tables[name]), name
     assert digests[0] == digests[1]
 
 
@@ -490,3 +496,15 @@ def test_bad_parameters_raise_clear_errors():
         SimulationSpec(bad_row_share=0.7)
     with pytest.raises(ConfigError, match="'half_spread'"):
         simulate_security_months(np.array([-0.01]), 0.02, 10.0)
+
+
+def test_market_factor_is_the_value_weighted_return():
+    # value weights are the previous month-end market caps (common practice)
+    market = simulate_market(n_securities=6, n_months=3, seed=5)
+    factors = market_factor_returns(market)
+    month = factors["month"][0]
+    rets = market.returns.filter(pl.col("month") == month)
+    caps = market.characteristics.filter(pl.col("date").dt.truncate("1mo") == month.replace(month=month.month - 1))
+    both = rets.join(caps, on="security")
+    expected = (both["ret"] * both["market_cap"]).sum() / both["market_cap"].sum()
+    assert factors["mkt"][0] == pytest.approx(expected, rel=1e-12)

@@ -2,7 +2,8 @@
 
 Runs the whole chain (clean -> bars -> measures -> panel -> models -> report)
 in a temporary directory, twice, and checks the outputs and that the second
-run gives the same run-id and identical CSV tables.
+run, in another directory with its inputs copied to another path, gives the
+same run-id and byte-identical CSV and LaTeX tables.
 """
 
 import json
@@ -27,6 +28,7 @@ def _config(data: Path) -> dict:
     cfg["sample"] = {"start": "2021-01", "end": "2021-08"}
     cfg["inputs"] = {
         "trades": str(data / "trades.parquet"),
+        "quotes": str(data / "quotes.parquet"),
         "returns": str(data / "returns.parquet"),
         "truth": str(data / "truth.parquet"),
         "characteristics": [
@@ -44,6 +46,7 @@ def _config(data: Path) -> dict:
         {"name": "roll_size", "regressors": ["roll_spread", "log_size"], "estimator": "fama_macbeth", "lags": 2},
     ]
     cfg["measures"]["roll_spread"]["convention"] = "zero"
+    cfg["study"]["draws"] = 400  # the estimator study runs inside the full run; keep it small here
     return cfg
 
 
@@ -78,30 +81,61 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
     for part in ("tables", "figures", "data", "manifest.json"):
         assert (first / part).exists(), part
     table = pl.read_csv(first / "tables" / "regressions.csv")
-    coef = table.filter(pl.col("variable") == "roll_spread").row(0, named=True)
-    assert float(coef["roll_only"]) == float(coef["roll_only"])  # finite, parsed
-    assert (first / "figures" / "roll_spread_median.png").exists()
+    coef = table.filter((pl.col("model") == "roll_only") & (pl.col("variable") == "roll_spread")).row(0, named=True)
+    assert coef["coef"] / coef["std_error"] == pytest.approx(coef["tstat"], rel=1e-12)  # t = b / se
+    assert (first / "figures" / "spread_median.png").exists()
+    assert (first / "tables" / "study_estimators.csv").exists()  # compared byte for byte below
+    assert (first / "figures" / "effective_spread_median.png").exists()
+    truth = pl.read_csv(first / "tables" / "spread_vs_truth.csv")
+    effective = truth.filter(pl.col("measure") == "effective_spread").row(0, named=True)
+    assert abs(effective["mean_bias"]) < 1e-3 * effective["mean_truth"] + 1e-5  # 2 tanh(c) against 2c
     assert (first / "tables" / "regressions.tex").read_text().count(r"\toprule") == 1
     audit = pl.read_csv(first / "tables" / "cleaning_audit.csv")
-    counts = dict(zip(audit["rows"], audit["count"]))
-    dropped = sum(v for k, v in counts.items() if k.startswith("dropped"))
-    assert counts["kept"] + dropped == counts["read"] and dropped > 0
+    assert set(audit["table"]) == {"trades", "quotes"}
+    for table in ("trades", "quotes"):
+        part = audit.filter(pl.col("table") == table)
+        counts = dict(zip(part["rows"], part["count"]))
+        dropped = sum(v for k, v in counts.items() if k.startswith("dropped"))
+        assert counts["kept"] + dropped == counts["read"]
+    trades_audit = audit.filter(pl.col("table") == "trades")
+    trades = dict(zip(trades_audit["rows"], trades_audit["count"]))
+    for rule in ("nonpositive", "outside_session", "duplicate"):  # the simulator's planted bad rows
+        assert trades[f"dropped: {rule}"] > 0
     manifest = json.loads((first / "manifest.json").read_text())
     listed = {o["path"] for o in manifest["outputs"]}
     assert "tables/regressions.csv" in listed and manifest["run_id"] == first.name
 
-    second = _run(tmp_path / "b", tiny_market)
-    assert second.name == first.name  # same inputs, same run-id
-    for csv in sorted((first / "tables").glob("*.csv")):
-        assert csv.read_bytes() == (second / "tables" / csv.name).read_bytes(), csv.name
+    moved = shutil.copytree(tiny_market, tmp_path / "elsewhere" / "market")
+    second = _run(tmp_path / "b", moved)
+    assert second.name == first.name  # same input contents at another path, same run-id
+    tables = sorted((first / "tables").glob("*.*"))
+    assert {p.suffix for p in tables} == {".csv", ".tex", ".md"}
+    for table in tables:
+        assert table.read_bytes() == (second / "tables" / table.name).read_bytes(), table.name
+
+
+def _failed_run(tmp_path: Path, cfg: dict) -> str:
+    """Run the workflow on ``cfg``, check it fails without a Python traceback, return stderr."""
+    path = tmp_path / "config.yaml"
+    path.write_text(yaml.safe_dump(cfg))
+    done = _snakemake(tmp_path, path)
+    assert done.returncode != 0
+    assert "Traceback" not in done.stderr
+    return done.stderr
+
+
+def test_workflow_stops_on_bad_rows_naming_file_column_and_row(tmp_path, tiny_market):
+    bad = tmp_path / "trades.csv"
+    bad.write_text("sym,when,px,qty\nAAA,2021-01-04 10:00:00,10.0,100\nAAA,2021-01-04 10:00:01,ten,100\n")
+    cfg = _config(tiny_market)
+    cfg["inputs"]["trades"] = str(bad)
+    cfg["inputs"]["quotes"] = None
+    cfg["columns"] = {"trades": {"sym": "security", "when": "ts", "px": "price", "qty": "size"}}
+    stderr = _failed_run(tmp_path, cfg)
+    assert "trades.csv, column 'price': data row 2 (line 3 of the CSV) of the trades has 'ten'" in stderr
 
 
 def test_workflow_stops_on_an_unknown_key_naming_it(tmp_path, tiny_market):
     cfg = _config(tiny_market)
     cfg["measurs"] = {}
-    path = tmp_path / "config.yaml"
-    path.write_text(yaml.safe_dump(cfg))
-    done = _snakemake(tmp_path, path)
-    assert done.returncode != 0
-    assert "unknown key 'measurs'" in done.stderr
-    assert "Traceback" not in done.stderr
+    assert "unknown key 'measurs'" in _failed_run(tmp_path, cfg)

@@ -4,16 +4,29 @@ Open, high, low and close are the first, highest, lowest and last trade
 prices of the local trading day; volume is the sum of sizes; dollar volume
 the sum of price x size, in the market's currency; VWAP = dollar volume /
 volume. The return is close-to-close, simple, from the security's previous
-trading day (which may lie in the previous month partition). After a whole
+trading day (which may lie in the previous month partition), adjusted for
+splits and dividends when an adjustment file is given:
+
+    ret_t = (close_t * split_ratio_t + dividend_t) / close_{t-1} - 1,
+
+with split_ratio the new shares per old share and dividend the cash per old
+share of the events whose ex-date lies after the previous trading day and
+on or before day t (several such events: ratios multiplied, dividends
+added; convention of this project). Closes stay as traded. After a whole
 calendar month without a trading day the return is missing: the month
 partitions look back one month only, and a table of many months follows the
 same rule so that both give the same returns (convention of this project).
+
+Where clean quotes exist, the high-frequency benchmarks of
+``liqpanel.intraday`` (signed trades, quoted, effective and realized
+spreads, price impact) and the daily realized variance join the bars.
 """
 
 from __future__ import annotations
 
 import polars as pl
 
+from liqpanel import intraday
 from liqpanel.contracts import month_of
 
 
@@ -47,11 +60,15 @@ def trading_bars(trades: pl.LazyFrame, timezone: str | None = None) -> pl.LazyFr
     )
 
 
-def add_returns(bars: pl.LazyFrame, previous: pl.LazyFrame | None = None) -> pl.LazyFrame:
-    """Add the close-to-close simple return ``ret``.
+def add_returns(
+    bars: pl.LazyFrame, previous: pl.LazyFrame | None = None, adjustments: pl.DataFrame | None = None
+) -> pl.LazyFrame:
+    """Add the close-to-close simple return ``ret`` (adjusted when ``adjustments`` are given).
 
     ``previous`` holds earlier bars (e.g. the previous month partition); only
     each security's last close there is used, and its rows are not returned.
+    ``adjustments``: ``security``, ``date`` (ex-date), ``split_ratio``,
+    ``dividend`` (see the module docstring).
     """
     cols = bars.collect_schema().names()
     if previous is not None:
@@ -64,21 +81,89 @@ def add_returns(bars: pl.LazyFrame, previous: pl.LazyFrame | None = None) -> pl.
         stacked = pl.concat([last, bars.with_columns(pl.lit(False).alias("_previous"))], how="diagonal_relaxed")
     else:
         stacked = bars.with_columns(pl.lit(False).alias("_previous"))
-    previous_date = pl.col("date").shift(1).over("security")
-    stale = previous_date < month_of("date").dt.offset_by("-1mo")
+    stacked = stacked.sort("security", "date").with_columns(
+        pl.col("close").shift(1).over("security").alias("_close_before"),
+        pl.col("date").shift(1).over("security").alias("_date_before"),
+    )
+    numerator = pl.col("close")
+    if adjustments is not None and adjustments.height:
+        stacked = stacked.join(_events_by_bar(stacked, adjustments), on=["security", "date"], how="left")
+        numerator = pl.col("close") * pl.col("_split").fill_null(1.0) + pl.col("_dividend").fill_null(0.0)
+    stale = pl.col("_date_before") < month_of("date").dt.offset_by("-1mo")
     return (
-        stacked.sort("security", "date")
-        .with_columns(
-            pl.when(stale)
-            .then(None)
-            .otherwise(pl.col("close") / pl.col("close").shift(1).over("security") - 1.0)
-            .alias("ret")
-        )
+        stacked.with_columns(pl.when(stale).then(None).otherwise(numerator / pl.col("_close_before") - 1.0).alias("ret"))
         .filter(~pl.col("_previous"))
         .select(*cols, "ret")
+        .sort("security", "date")
+    )
+
+
+def _events_by_bar(stacked: pl.LazyFrame, adjustments: pl.DataFrame) -> pl.LazyFrame:
+    """Split ratio and dividend per bar: events after the previous bar and on or before this one."""
+    days = stacked.select("security", pl.col("date").alias("_bar"), "_date_before").sort("security", "_bar")
+    events = adjustments.lazy().select(
+        pl.col("security").cast(pl.String), pl.col("date").cast(pl.Date), "split_ratio", "dividend"
+    )
+    mapped = events.sort("security", "date").join_asof(
+        days, left_on="date", right_on="_bar", by="security", strategy="forward", check_sortedness=False
+    )
+    return (
+        mapped.filter(pl.col("_bar").is_not_null() & (pl.col("_date_before").is_null() | (pl.col("date") > pl.col("_date_before"))))
+        .group_by("security", pl.col("_bar").alias("date"))
+        .agg(pl.col("split_ratio").product().alias("_split"), pl.col("dividend").sum().alias("_dividend"))
     )
 
 
 def daily_bars(trades: pl.LazyFrame, timezone: str | None = None) -> pl.LazyFrame:
     """The daily table (bars and returns) from a whole trade file at once."""
     return add_returns(trading_bars(trades, timezone))
+
+
+BAR_OPTIONS = {
+    "signing": "lee_ready",
+    "quote_lag_seconds": 0.0,
+    "horizon_minutes": 5.0,
+    "past_close": "session_close",
+    "realized_variance": {"interval_minutes": 5.0, "price": "auto"},
+}
+
+
+def intraday_bars(
+    trades: pl.LazyFrame, quotes: pl.LazyFrame | None, market: dict, options: dict | None = None
+) -> pl.LazyFrame:
+    """Daily bars with the high-frequency benchmarks and realized variance.
+
+    ``trades`` and ``quotes`` are clean (``liqpanel.clean``); ``quotes`` may
+    be None or empty, then the benchmark columns are missing (null) and the
+    realized variance uses trade prices. ``options`` as ``BAR_OPTIONS``.
+    """
+    options = {**BAR_OPTIONS, **(options or {})}
+    rv_options = {**BAR_OPTIONS["realized_variance"], **(options.get("realized_variance") or {})}
+    trades = intraday.with_local_date(trades, market)
+    bars = trading_bars(trades)
+    if quotes is None:
+        quotes = pl.LazyFrame(schema={"security": pl.String, "date": pl.Date, "ts": pl.Datetime("us", "UTC"),
+                                      "bid": pl.Float64, "ask": pl.Float64})
+    quotes = intraday.with_local_date(quotes, market)
+    per_trade = intraday.trade_benchmarks(
+        trades,
+        quotes,
+        market,
+        signing=options["signing"],
+        quote_lag_seconds=float(options["quote_lag_seconds"]),
+        horizon_minutes=float(options["horizon_minutes"]),
+        past_close=options["past_close"],
+    )
+    price = rv_options["price"]
+    has_quotes = quotes.select(pl.len()).collect().item() > 0
+    if price == "midquote" or (price == "auto" and has_quotes):
+        series = quotes.select("security", "ts", ((pl.col("bid") + pl.col("ask")) / 2.0).alias("price"))
+    else:
+        series = trades.select("security", "ts", "price")
+    variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]))
+    key = ["security", "date"]
+    out = bars.join(intraday.daily_benchmarks(per_trade), on=key, how="left").join(variance, on=key, how="left")
+    columns = intraday.daily_columns()
+    return out.with_columns(
+        [pl.col(c).cast(t) for c, t in columns.items()]
+    ).sort(key)

@@ -88,6 +88,12 @@ def validate_config(config: dict, *, source: str = "config") -> dict:
             resolve_options(get_measure(name), options)
         except ConfigError as exc:
             raise ConfigError(f"{source}: {exc}") from None
+    from liqpanel.study import check_settings
+
+    try:
+        check_settings(filled.get("study"))
+    except ConfigError as exc:
+        raise ConfigError(f"{source}: {exc}") from None
     return filled
 
 
@@ -103,11 +109,15 @@ def load_config(path: str | Path) -> dict:
     return validate_config(raw, source=str(path))
 
 
+def market_path(name_or_path: str) -> Path:
+    """The profile file of a market name (``config/markets/<name>.yaml``) or path."""
+    path = Path(name_or_path)
+    return MARKETS_DIR / f"{name_or_path}.yaml" if not path.suffix else path
+
+
 def load_market(name_or_path: str) -> dict:
     """Load a market profile by name (``config/markets/<name>.yaml``) or path."""
-    path = Path(name_or_path)
-    if not path.suffix:
-        path = MARKETS_DIR / f"{name_or_path}.yaml"
+    path = market_path(name_or_path)
     if not path.exists():
         known = ", ".join(sorted(p.stem for p in MARKETS_DIR.glob("*.yaml")))
         raise ConfigError(f"market profile '{name_or_path}' not found (looked for {path}); known profiles: {known}")
@@ -116,4 +126,6 @@ def load_market(name_or_path: str) -> dict:
     for key in ("timezone", "sessions"):
         if key not in market:
             raise ConfigError(f"market profile {path} has no '{key}'")
-    return market
+    from liqpanel.markets import check_market  # imports polars: not before the engine is pinned
+
+    return check_market(market, path)

@@ -26,6 +26,11 @@ def _files(path: str) -> list[str]:
     return files
 
 
+def expand_inputs(path: str | Path) -> list[str]:
+    """The files an input path names: the file itself, or a glob's sorted matches."""
+    return _files(str(path))
+
+
 def scan_table(path: str | Path, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
     """Lazily scan a Parquet or CSV file (or a glob of them) and rename columns.
 
@@ -67,6 +72,7 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
+    os.chmod(tmp, 0o644)  # mkstemp makes files private; outputs are for reading
     try:
         yield Path(tmp)
         os.replace(tmp, path)
@@ -78,7 +84,8 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
 def write_parquet(frame: pl.DataFrame | pl.LazyFrame, path: str | Path) -> Path:
     """Write a frame to Parquet atomically with deterministic settings."""
     if isinstance(frame, pl.LazyFrame):
-        frame = frame.collect()
+        # the in-memory engine gives bit-identical floats from run to run
+        frame = frame.collect(engine="in-memory")
     with atomic_path(path) as tmp:
         frame.write_parquet(tmp, compression="zstd", statistics=True)
     return Path(path)

@@ -24,9 +24,26 @@ from liqpanel.io import scan_table
 KEY = ["security", "month"]
 
 
+def with_delisting(returns: pl.LazyFrame) -> pl.LazyFrame:
+    """Combine ``ret`` with an optional ``delist_ret`` column.
+
+    When a delisting return is present the month's return is
+    (1 + ret)(1 + delist_ret) - 1, or the delisting return alone when ``ret``
+    is missing (common practice for delisted securities, e.g. Shumway 1997).
+    """
+    if "delist_ret" not in returns.collect_schema().names():
+        return returns
+    combined = (
+        pl.when(pl.col("delist_ret").is_null()).then(pl.col("ret"))
+        .when(pl.col("ret").is_null()).then(pl.col("delist_ret"))
+        .otherwise((1.0 + pl.col("ret")) * (1.0 + pl.col("delist_ret")) - 1.0)
+    )
+    return returns.with_columns(combined.alias("ret")).drop("delist_ret")
+
+
 def next_month_returns(returns: pl.LazyFrame) -> pl.LazyFrame:
     """``ret_next`` for month t from a monthly (security, month, ret) table."""
-    return returns.select(
+    return with_delisting(returns).select(
         "security",
         pl.col("month").dt.offset_by("-1mo").alias("month"),
         pl.col("ret").alias("ret_next"),
@@ -46,7 +63,13 @@ def monthly_from_daily(daily: pl.LazyFrame) -> pl.LazyFrame:
 def read_monthly_returns(path: str, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
     lf = scan_table(path, mapping)
     require_columns(lf, ("security", "month", "ret"), table="monthly returns", path=path)
-    return lf.select(pl.col("security").cast(pl.String), month_of(pl.col("month").cast(pl.Date)).alias("month"), pl.col("ret").cast(pl.Float64))
+    delist = [pl.col("delist_ret").cast(pl.Float64)] if "delist_ret" in lf.collect_schema().names() else []
+    return lf.select(
+        pl.col("security").cast(pl.String),
+        month_of(pl.col("month").cast(pl.Date)).alias("month"),
+        pl.col("ret").cast(pl.Float64),
+        *delist,
+    )
 
 
 def asof_characteristics(
@@ -105,3 +128,62 @@ def build_panel(
     panel = panel.join(next_month_returns(returns), on=KEY, how="left")
     out = panel.sort(KEY).collect()
     return check_unique_key(out, KEY, table="panel")
+
+
+def transform_panel(panel: pl.DataFrame, transforms: dict[str, Any]) -> pl.DataFrame:
+    """Per-month cross-sectional transforms named in the config, in this order.
+
+    - ``log``: adds ``log_<name>`` = ln(x) for x > 0, missing otherwise;
+    - ``winsorize``: clips each listed variable, month by month, to its
+      ``lower`` and ``upper`` cross-sectional quantiles (linear
+      interpolation; common practice, e.g. 1% and 99%);
+    - ``standardize``: replaces each listed variable by its month-by-month
+      z-score (x - mean) / sd (sample sd).
+    """
+    out = panel
+    names = set(panel.columns)
+
+    def _check(variables, what):
+        for v in variables:
+            if v not in names:
+                raise InputError(f"`panel.{what}` names '{v}', which is not a panel column; columns: {sorted(names)}")
+
+    logs = transforms.get("log") or []
+    _check(logs, "log")
+    out = out.with_columns(
+        [pl.when(pl.col(v) > 0).then(pl.col(v).log()).otherwise(None).alias(f"log_{v}") for v in logs]
+    )
+    names |= {f"log_{v}" for v in logs}
+    wins = transforms.get("winsorize") or {}
+    variables = wins.get("variables") or []
+    _check(variables, "winsorize")
+    if variables:
+        lo, hi = wins.get("lower", 0.01), wins.get("upper", 0.99)
+        out = out.with_columns(
+            [
+                pl.col(v).clip(
+                    pl.col(v).quantile(lo, "linear").over("month"), pl.col(v).quantile(hi, "linear").over("month")
+                ).alias(v)
+                for v in variables
+            ]
+        )
+    std = transforms.get("standardize") or []
+    _check(std, "standardize")
+    out = out.with_columns(
+        [((pl.col(v) - pl.col(v).mean().over("month")) / pl.col(v).std().over("month")).alias(v) for v in std]
+    )
+    return out
+
+
+def coverage(panel: pl.DataFrame, variables: list[str]) -> pl.DataFrame:
+    """Securities per month and the share of each variable that is missing."""
+    present = [v for v in variables if v in panel.columns]
+    return (
+        panel.group_by("month")
+        .agg(
+            pl.len().cast(pl.Int64).alias("securities"),
+            *[(pl.col(v).is_null() | pl.col(v).is_nan()).mean().alias(f"missing_{v}") if panel.schema[v].is_float()
+              else pl.col(v).is_null().mean().alias(f"missing_{v}") for v in present],
+        )
+        .sort("month")
+    )

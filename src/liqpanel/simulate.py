@@ -114,6 +114,8 @@ ticker clashes loops over names.
 
 from __future__ import annotations
 
+import gzip
+
 import dataclasses
 from dataclasses import dataclass, field
 from datetime import timedelta
@@ -804,6 +806,58 @@ def simulate_security_months(
     return _run(np.random.default_rng(seed), pop, cal, how)
 
 
+def market_factor_returns(market: Market) -> pl.DataFrame:
+    """A factor file of the invented market: ``month``, ``mkt``.
+
+    ``mkt`` is the value-weighted average of the securities' monthly returns,
+    weighted by market capitalisation at the end of the previous month, dated
+    by the month in which it is earned (the way factor returns are usually
+    published). It lets the demo estimate factor alphas.
+    """
+    caps = market.characteristics.select(
+        "security",
+        pl.col("date").dt.truncate("1mo").dt.offset_by("1mo").alias("month"),
+        pl.col("market_cap").alias("_weight"),
+    )
+    return (
+        market.returns.join(caps, on=["security", "month"], how="inner")
+        .drop_nulls(["ret", "_weight"])
+        .group_by("month")
+        .agg(((pl.col("ret") * pl.col("_weight")).sum() / pl.col("_weight").sum()).alias("mkt"))
+        .sort("month")
+    )
+
+
+# A daily file as a data vendor might deliver it: its own column names, CSV,
+# gzip-compressed. The mapping to our names is in config/daily_example.yaml.
+DAILY_EXAMPLE_COLUMNS = {
+    "security": "ticker", "date": "trade_day", "open": "first_px", "high": "top_px", "low": "bottom_px",
+    "close": "last_px", "volume": "qty", "dollar_volume": "turnover_ccy", "n_trades": "deals", "ret": "day_return",
+}
+
+
+def daily_example(market: Market, timezone: str | None = None) -> pl.DataFrame:
+    """The market's daily bars in a vendor-style layout, for the daily entry point.
+
+    Built from the good trades by :func:`liqpanel.bars.daily_bars`, then
+    renamed to the invented vendor names in ``DAILY_EXAMPLE_COLUMNS`` and
+    with ``shares_out`` renamed ``shares_outstanding``.
+    """
+    from liqpanel.bars import daily_bars
+
+    tz = timezone or (market.spec.tz if market.spec is not None else "America/New_York")
+    trades = market.trades.lazy().filter(pl.col("true_sign") != 0)
+    daily = daily_bars(trades, timezone=tz).join(
+        market.securities.lazy().select("security", "shares_out"), on="security", how="left"
+    )
+    return (
+        daily.select(*DAILY_EXAMPLE_COLUMNS, "shares_out")
+        .rename({**DAILY_EXAMPLE_COLUMNS, "shares_out": "shares_outstanding"})
+        .sort("ticker", "trade_day")
+        .collect()
+    )
+
+
 def write_market(market: Market, out_dir: str | Path) -> dict[str, Path]:
     """Write ``<table>.parquet`` for every table of ``market`` into ``out_dir``.
 
@@ -820,7 +874,8 @@ def write_market(market: Market, out_dir: str | Path) -> dict[str, Path]:
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     paths = {}
-    for name, frame in market.tables().items():
+    tables = {**market.tables(), "factors": market_factor_returns(market)}
+    for name, frame in tables.items():
         encoding = {c: "BYTE_STREAM_SPLIT" for c in ("price", "bid", "ask") if c in frame.columns}
         if "ts" in frame.columns:
             encoding["ts"] = "DELTA_BINARY_PACKED"
@@ -837,4 +892,10 @@ def write_market(market: Market, out_dir: str | Path) -> dict[str, Path]:
                 write_statistics=True,
             )
         paths[name] = path
+    path = out / "daily_example.csv.gz"
+    with atomic_path(path) as tmp:
+        # mtime=0 keeps the gzip header, and so the file, byte-identical
+        with open(tmp, "wb") as raw, gzip.GzipFile(filename="", mode="wb", fileobj=raw, mtime=0) as gz:
+            gz.write(daily_example(market).write_csv(float_precision=10).encode())
+    paths["daily_example"] = path
     return paths

@@ -8,7 +8,6 @@ nothing else, so every stage can be run and tested without Snakemake.
 from __future__ import annotations
 
 import json
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
@@ -16,57 +15,136 @@ import polars as pl
 
 from liqpanel import bars as bars_mod
 from liqpanel import report as rep
-from liqpanel.clean import check_conservation, clean_trades, read_trades
+from liqpanel import readers
+from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
 from liqpanel.contracts import DAILY, month_of, require_columns
+from liqpanel.errors import InputError
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
-from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns
+from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
 from liqpanel.partition import month_window
+from liqpanel.replication import write_replication_files
 
 
 def _month_filter(month: str) -> pl.Expr:
     return pl.col("month") == pl.lit(f"{month}-01").str.to_date()
 
 
-def clean_month(config: dict, month: str, out_trades: str, out_audit: str) -> None:
+def check_inputs(config: dict) -> None:
+    """Check the market profile and every input file's columns before any job runs.
+
+    Raises ConfigError or InputError naming the profile, file or column;
+    row-level problems are found later, by the clean stage.
+    """
     market = load_market(config["market"])
-    path = config["inputs"]["trades"]
-    mapping = config["columns"].get("trades", {})
+    inputs, columns = config["inputs"], config.get("columns", {})
+    for key, spec in (("trades", readers.TRADES_SPEC), ("quotes", readers.QUOTES_SPEC)):
+        if inputs.get(key):
+            readers.read_table(inputs[key], columns.get(key, {}), spec, market["timezone"])
+    if inputs.get("adjustments"):
+        readers.read_adjustments(inputs["adjustments"], columns.get("adjustments", {}))
+
+
+def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
+    """Clean one month partition of the trades (and quotes, when the config names them)."""
+    market = load_market(config["market"])
+    rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
-    stored = scan_table(path, mapping).collect_schema()
-    window = month_window(stored["ts"], month, sample, market["timezone"]) if "ts" in stored else None
-    trades = read_trades(path, mapping, market, where=window)
-    kept, audit = clean_trades(trades, market, config["clean"], month=month, sample=sample)
-    kept, audit = pl.collect_all([kept, audit], engine="streaming")
+    columns = config.get("columns", {})
+    audits, quotes, tz = [], None, market["timezone"]
+
+    def window(schema: pl.Schema) -> pl.Expr | None:  # only this month's rows leave the file
+        return month_window(schema["ts"], month, sample, tz) if "ts" in schema else None
+
+    if config["inputs"].get("quotes"):
+        read = readers.read_table(config["inputs"]["quotes"], columns.get("quotes", {}), readers.QUOTES_SPEC, tz, window)
+        flagged = flag_quotes(read.frame, market, rules, month=month, sample=sample).collect()
+        _stop_on_unparseable(flagged, read, "quotes", rules)
+        quotes = kept_rows(flagged, QUOTE_COLUMNS).collect()
+        audits.append(audit_of(flagged, "quotes", month=month, timestamps=read.describe_timestamps()))
+    read = readers.read_table(config["inputs"]["trades"], columns.get("trades", {}), readers.TRADES_SPEC, tz, window)
+    flagged = flag_trades(
+        read.frame, market, rules, month=month, sample=sample, quotes=quotes.lazy() if quotes is not None else None
+    )
+    _stop_on_unparseable(flagged, read, "trades", rules)
+    kept = kept_rows(flagged, TRADE_COLUMNS).collect()
+    audits.append(audit_of(flagged, "trades", month=month, timestamps=read.describe_timestamps()))
+    audit = pl.concat(pl.collect_all(audits), how="diagonal_relaxed").sort("table", "security", "date", nulls_last=True)
     check_conservation(audit)
     write_parquet(kept, out_trades)
     write_parquet(audit, out_audit)
+    if out_quotes:
+        empty = pl.DataFrame(schema={"security": pl.String, "ts": pl.Datetime("us", "UTC"), "bid": pl.Float64,
+                                     "ask": pl.Float64, "date": pl.Date})
+        write_parquet(quotes if quotes is not None else empty, out_quotes)
 
 
-def bars_month(clean_trades_path: str, out: str) -> None:
-    write_parquet(bars_mod.trading_bars(pl.scan_parquet(clean_trades_path)).collect(engine="streaming"), out)
+def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict) -> None:
+    if rules.get("unparseable", "error") == "error":
+        error = readers.unparseable_error(flagged, read.files, table)
+        if error is not None:
+            raise error
 
 
-def daily_month(bars_path: str, previous_bars_path: str | None, out: str) -> None:
+def bars_month(clean_trades_path: str, out: str, config: dict | None = None, clean_quotes_path: str | None = None) -> None:
+    """Daily bars of one month; with a config, also the high-frequency benchmarks."""
+    trades = pl.scan_parquet(clean_trades_path)
+    if config is None:
+        write_parquet(bars_mod.trading_bars(trades), out)
+        return
+    market = load_market(config["market"])
+    quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
+    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars")), out)
+
+
+def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
-    write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous).collect(engine="streaming"), out)
+    adjustments = None
+    if config is not None and config["inputs"].get("adjustments"):
+        mapping = config["columns"].get("adjustments", {})
+        adjustments = readers.read_adjustments(config["inputs"]["adjustments"], mapping)
+    write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments), out)
+
+
+def read_daily_file(path: str, mapping: dict[str, str]) -> pl.LazyFrame:
+    """A user's daily file in the daily contract (see DEVELOPERS.md).
+
+    Needs security, date, open, high, low, close and volume; ``dollar_volume``
+    defaults to close x volume, ``n_trades`` to missing, and ``ret`` to the
+    close-to-close return (only when the file has no return column: a
+    vendor's adjusted return is always preferred). ``shares_out`` is kept
+    when present.
+    """
+    lf = scan_table(path, mapping)
+    required = ["security", "date", "open", "high", "low", "close", "volume"]
+    require_columns(lf, required, table="daily", path=path)
+    schema = lf.collect_schema()
+    for column in ("open", "high", "low", "close", "volume"):
+        if not schema[column].is_numeric():
+            raise InputError(f"expected numbers, found {schema[column]}", path=path, column=column)
+    date = pl.col("date").str.to_date("%Y-%m-%d", strict=False) if schema["date"] == pl.String else pl.col("date").cast(pl.Date)
+    lf = lf.with_columns(date.alias("date"), pl.col("security").cast(pl.String))
+    bad = lf.filter(pl.col("date").is_null()).select(pl.len()).collect().item()
+    if bad:
+        raise InputError(f"{bad} rows have a date that is missing or not YYYY-MM-DD", path=path, column="date")
+    lf = lf.with_columns(month_of("date").alias("month"))
+    if "dollar_volume" not in schema:
+        lf = lf.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
+    if "n_trades" not in schema:
+        lf = lf.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
+    if "ret" not in schema:
+        lf = bars_mod.add_returns(lf)
+    keep = [*DAILY, *[c for c in ("shares_out", "mkt_ret") if c in schema]]
+    return lf.select(
+        [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in keep[len(DAILY):]]
+    ).sort("security", "date")
 
 
 def daily_from_file(config: dict, month: str, out: str) -> None:
-    """The daily entry point: one month of a user's own daily file."""
-    path = config["inputs"]["daily"]
-    lf = scan_table(path, config["columns"].get("daily", {}))
-    required = [c for c in DAILY if c not in ("month", "n_trades", "dollar_volume")]
-    require_columns(lf, required, table="daily", path=path)
-    names = lf.collect_schema().names()
-    lf = lf.with_columns(pl.col("date").cast(pl.Date), pl.col("security").cast(pl.String))
-    lf = lf.with_columns(month_of("date").alias("month"))
-    if "dollar_volume" not in names:
-        lf = lf.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
-    if "n_trades" not in names:
-        lf = lf.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
-    write_parquet(lf.filter(_month_filter(month)).sort("security", "date"), out)
+    """The daily entry point: one month partition of a user's own daily file."""
+    lf = read_daily_file(config["inputs"]["daily"], config["columns"].get("daily", {}))
+    write_parquet(lf.filter(_month_filter(month)), out)
 
 
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
@@ -91,29 +169,36 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> 
         {**c, "frame": scan_table(c["path"])}
         for c in inputs.get("characteristics", [])
     ]
-    write_parquet(build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars), out)
+    built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
+    write_parquet(transform_panel(built, config["panel"]), out)
 
 
-def models(config: dict, panel_path: str, out_results: str, out_table: str) -> None:
-    from liqpanel.models import ModelSpec, fit_model, regression_table
+def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> None:
+    """Fit every configured model; write each result table and an index."""
+    from liqpanel.models.run import run_models
 
-    frame = pl.read_parquet(panel_path)
-    specs = [ModelSpec.from_config(m) for m in config["models"]["regressions"]]
-    results = [fit_model(frame, s) for s in specs]
-    long = pl.DataFrame(
-        [
-            {
-                "model": r.name, "estimator": r.estimator, "covariance": r.covariance, "variable": v,
-                "coef": r.params[v], "std_error": r.std_errors[v], "tstat": r.tstats[v], "pvalue": r.pvalues[v],
-                "nobs": r.nobs, "n_months": r.n_months, "r2": r.r2,
-            }
-            for r in results
-            for v in r.params
-        ],
-        schema_overrides={"nobs": pl.Int64, "n_months": pl.Int64},
-    ) if results else pl.DataFrame()
-    write_parquet(long, out_results)
-    write_parquet(regression_table(results) if results else pl.DataFrame(), out_table)
+    factors = None
+    if config["inputs"].get("factors"):
+        path = config["inputs"]["factors"]
+        factors = scan_table(path, config["columns"].get("factors", {})).collect()
+        if "month" not in factors.columns:
+            raise InputError("the factor file needs a 'month' column", path=path, column="month")
+        factors = factors.with_columns(month_of(pl.col("month").cast(pl.Date)).alias("month"))
+    sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
+    result = run_models(
+        pl.read_parquet(panel_path), config["models"], monthly=pl.read_parquet(monthly_path), factors=factors,
+        sources=sources,
+    )
+    out = Path(out_dir)
+    index = []
+    for table in result.tables:
+        write_parquet(table.frame, out / f"{table.name}.parquet")
+        index.append({"name": table.name, "caption": table.caption, "notes": table.notes})
+    for name, series in result.series.items():
+        write_parquet(series, out / "series" / f"{name}.parquet")
+    if result.regressions_long is not None:
+        write_parquet(result.regressions_long, out / "regressions_long.parquet")
+    write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
 
 
 def report(
@@ -124,51 +209,180 @@ def report(
     monthly_path: str,
     panel_path: str,
     audit_path: str | None,
-    regression_table_path: str,
+    models_dir: str,
     started: str,
     command: str,
+    study_dir: str | None = None,
 ) -> None:
-    run = Path(run_dir)
-    tables, figures, data = run / "tables", run / "figures", run / "data"
+    """Write ``results/<run-id>/``: tables, figures, data, README, manifest.
+
+    The folder is built beside its final place and moved there in one step,
+    so it is either absent or complete. Before the move the inputs are
+    checksummed again: if they changed while the workflow ran, the run stops
+    instead of labelling its tables with a run-id that does not describe them.
+    """
+    build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
     truth_path = config["inputs"].get("truth")
     truth = pl.read_parquet(truth_path) if truth_path else None
-    outputs = [o for name in config["measures"] for o in REGISTRY[name].outputs]
-    sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
+    measures = list(config["measures"])
+    outputs = [o for name in measures for o in REGISTRY[name].outputs]
+    sources = rep.measure_sources(measures)
+    settings = config["report"]
+    out = rep.RunFolder(
+        build, rid=rid, captions=settings.get("captions"), sample=rep.sample_note(config, monthly),
+        digits=settings.get("digits", 4),
+    )
 
-    reg = pl.read_parquet(regression_table_path)
-    if reg.height:
-        rep.write_table(
-            reg, tables / "regressions",
-            caption="Regressions of next-month return on liquidity",
-            label="tab:regressions",
-            notes="t-statistics in parentheses. " + sources,
-        )
-    rep.write_table(
-        rep.measure_summary(monthly, outputs), tables / "measures_summary",
-        caption="Monthly measures: pooled distribution over security-months",
-        label="tab:measures", notes=sources,
+    models = Path(models_dir)
+    for entry in json.loads((models / "index.json").read_text()):
+        frame, display, notes = pl.read_parquet(models / f"{entry['name']}.parquet"), None, entry["notes"]
+        if entry["name"] == "regressions" and (models / "regressions_long.parquet").exists():
+            # full-precision numbers in the CSV; the printed layout in LaTeX and Markdown
+            frame, display = pl.read_parquet(models / "regressions_long.parquet"), frame
+            notes = rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), sources)
+        out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes)
+    panel_frame = pl.read_parquet(panel_path)
+    variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
+    out.table(
+        "panel_coverage", coverage(panel_frame, variables),
+        caption="Panel coverage: securities per month and missing share per variable", label="tab:coverage",
+        notes="Month t holds liquidity and characteristics known at t and the return of t+1",
+    )
+    out.table(
+        "measures_summary", rep.measure_summary(monthly, outputs),
+        caption="Monthly measures: pooled distribution over security-months", label="tab:measures", notes=sources,
     )
     if audit_path:
-        rep.write_table(
-            rep.audit_summary(pl.read_parquet(audit_path)), tables / "cleaning_audit",
-            caption="Trade cleaning: rows read, kept and dropped by rule",
-            label="tab:audit", notes="Each row read is kept or dropped by the first rule it breaks.",
+        audit = pl.read_parquet(audit_path)
+        out.table(
+            "cleaning_audit", rep.audit_summary(audit),
+            caption="Trade and quote cleaning: rows read, kept and dropped by rule", label="tab:audit",
+            notes=rep.join_notes("Each row read is kept or dropped by the first rule it breaks", rep.timestamp_notes(audit)),
         )
-    spread_outputs = [o for name in config["measures"] if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
+    spread_outputs = [o for name in measures if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
     if truth is not None and spread_outputs:
-        rep.write_table(
-            rep.spread_against_truth(monthly, truth, spread_outputs), tables / "spread_vs_truth",
-            caption="Spread estimates against the simulator's true spread",
-            label="tab:truth", notes="Proportional full spreads (0.01 = 1%). " + sources,
+        out.table(
+            "spread_vs_truth", rep.spread_against_truth(monthly, truth, spread_outputs),
+            caption="Spread estimates against the simulator's true spread", label="tab:truth",
+            notes=rep.join_notes("Proportional full spreads (0.01 = 1%)", sources),
         )
-    if config["report"]["figures"] and "roll_spread" in monthly.columns:
-        rep.figure_median_spread(monthly, truth, "roll_spread", figures / "roll_spread_median", rid)
-    write_parquet(monthly, data / "monthly.parquet")
-    write_parquet(pl.read_parquet(panel_path), data / "panel.parquet")
-    rep.write_manifest(run, config=config, inputs=rep.input_files(config), rid=rid, started=started, command=command)
-    rep.point_latest(run.parent, rid)
+    if settings["figures"]:
+        figures = build / "figures"
+        if spread_outputs:
+            out.figure(
+                "spread_median",
+                rep.figure_median_spread(monthly, truth, spread_outputs, figures / "spread_median", rid),
+                caption="Cross-sectional median of each spread estimate by month"
+                + (", against the simulator's true spread" if truth is not None else ""),
+                notes="Percent of the price",
+            )
+        if "effective_spread" in monthly.columns:
+            out.figure(
+                "effective_spread_median",
+                rep.figure_median_spread(monthly, truth, ["effective_spread"], figures / "effective_spread_median", rid),
+                caption="Cross-sectional median effective spread by month"
+                + (", against the simulator's true spread" if truth is not None else ""),
+                notes="Percent of the price",
+            )
+        for series_path in sorted((models / "series").glob("*.parquet")):
+            name = f"cumulative_{series_path.stem}"
+            out.figure(
+                name, rep.figure_cumulative(pl.read_parquet(series_path), figures / name, rid),
+                caption=f"Cumulative value of 1 invested: {series_path.stem.replace('_', ' ')}",
+                notes="Returns earned the month after formation",
+            )
+        val = config["models"].get("validation")
+        if val and val["benchmark"] in monthly.columns:
+            proxies = [p for p in val["proxies"] if p in monthly.columns]
+            if proxies:
+                out.figure(
+                    "proxy_vs_benchmark",
+                    rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid),
+                    caption=f"Spread proxies against the benchmark {val['benchmark']}, by security-month",
+                    notes="Percent of the price",
+                )
+    if study_dir:
+        render_study(study_dir, out, figures=settings["figures"], min_cell=config["study"]["min_cell"])
+    write_parquet(monthly, build / "data" / "monthly.parquet")
+    write_parquet(panel_frame, build / "data" / "panel.parquet")
+
+    identity = rep.check_identity(config, rid)
+    inputs = rep.input_listing(config)
+    contents = out.contents()
+    finished = rep.now()
+    git, machine = rep.git_state(), rep.machine()
+    write_replication_files(
+        build, rid=rid, config=config, inputs=inputs, contents=contents, command=command, git=git, machine=machine,
+        elapsed=rep.elapsed_seconds(started, finished),
+    )
+    rep.write_manifest(
+        build, config=config, inputs=inputs, rid=rid, started=started, command=command, finished=finished,
+        identity=identity, contents=contents,
+    )
+    rep.publish_folder(build, run_dir)
+    rep.point_latest(Path(run_dir).parent, rid)
+
+
+def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_dir: str) -> None:
+    """Calibrate to the daily table, run the simulation study, write its tables and an index."""
+    from liqpanel import study as st
+
+    settings = config["study"]
+    daily = pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed")
+    monthly = pl.read_parquet(monthly_path) if monthly_path else None
+    pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"])
+    market = st.Market.from_profile(load_market(config["market"]), settings["overnight_share"])
+    result = st.run_study(pool, study=settings, measures=config["measures"], market=market)
+    out = Path(out_dir)
+    index = []
+    for table in st.result_tables(result, pool, audit):
+        write_parquet(table.frame, out / f"{table.name}.parquet")
+        index.append({"name": table.name, "caption": table.caption, "notes": table.notes})
+    write_parquet(result.long, out / "draws.parquet")
+    write_text(st.summary_text(result), out / "summary.md")
+    write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
+
+
+def render_study(study_dir: str | Path, out: "rep.RunFolder", *, figures: bool = True, min_cell: int = 20) -> None:
+    """Put the study into a run folder: its tables, heat maps, summary and per-draw data."""
+    from liqpanel import study as st
+
+    source = Path(study_dir)
+    for entry in json.loads((source / "index.json").read_text()):
+        out.table(entry["name"], pl.read_parquet(source / f"{entry['name']}.parquet"),
+                  caption=entry["caption"], notes=entry["notes"])
+    if figures:
+        paths = st.bias_maps(pl.read_parquet(source / "study_by_cell.parquet"), out.path / "figures", out.rid,
+                             min_cell=min_cell)
+        for kind in st.KINDS:
+            mine = [p for p in paths if p.stem == f"study_bias_{kind}"]
+            if mine:
+                out.figure(
+                    f"study_bias_{kind}", mine,
+                    caption=f"Mean bias of the {kind} estimators by true spread / volatility and trades per day",
+                    notes="Simulated security-months calibrated to this market; percent of the mean truth",
+                )
+    write_text((source / "summary.md").read_text(), out.path / "study_summary.md")
+    write_parquet(pl.read_parquet(source / "draws.parquet"), out.path / "data" / "study_draws.parquet")
+
+
+def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, started: str, command: str) -> None:
+    """The study alone: ``results/study-<run-id>/`` with its tables, heat maps, summary and manifest.
+
+    Built beside its final place and moved there in one step, like a full run's folder.
+    """
+    build = rep.build_folder(Path(run_dir).parent, Path(run_dir).name)
+    settings = config["report"]
+    out = rep.RunFolder(build, rid=rid, captions=settings.get("captions"), digits=settings.get("digits", 4))
+    render_study(study_dir, out, figures=settings["figures"], min_cell=config["study"]["min_cell"])
+    identity = rep.check_identity(config, rid)
+    rep.write_manifest(
+        build, config=config, inputs=rep.input_listing(config), rid=rid, started=started, command=command,
+        identity=identity, contents=out.contents(),
+    )
+    rep.publish_folder(build, run_dir)
 
 
 def now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+    return rep.now()

@@ -3,20 +3,27 @@ if FROM_TRADES:
 
     rule bars:
         input:
-            f"{WORK}/clean/month={{month}}/trades.parquet",
+            trades=f"{WORK}/clean/month={{month}}/trades.parquet",
+            quotes=f"{WORK}/clean/month={{month}}/quotes.parquet",
         output:
             f"{WORK}/bars/month={{month}}/bars.parquet",
+        params:
+            bars=CONFIG["bars"],
+            market=CONFIG["market"],
         run:
-            stages.bars_month(input[0], output[0])
+            stages.bars_month(input.trades, output[0], CONFIG, input.quotes)
 
     rule daily:
         input:
             bars=f"{WORK}/bars/month={{month}}/bars.parquet",
             previous=previous_partition(f"{WORK}/bars/month={{month}}/bars.parquet"),
+            adjustments=expand_inputs("adjustments"),
         output:
             f"{WORK}/daily/month={{month}}/daily.parquet",
+        params:
+            columns=CONFIG["columns"]["adjustments"],
         run:
-            stages.daily_month(input.bars, input.previous[0] if input.previous else None, output[0])
+            stages.daily_month(input.bars, input.previous[0] if input.previous else None, output[0], CONFIG)
 
 else:
 

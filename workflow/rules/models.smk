@@ -1,11 +1,13 @@
-# models: panel -> regression results (liqpanel.models)
+# models: panel -> regressions, sorts, liquidity factor, proxy validation (liqpanel.models)
 rule models:
     input:
-        f"{WORK}/panel.parquet",
+        panel=f"{WORK}/panel.parquet",
+        monthly=f"{WORK}/monthly.parquet",
+        factors=[CONFIG["inputs"]["factors"]] if CONFIG["inputs"]["factors"] else [],
     output:
-        results=f"{WORK}/models/regressions.parquet",
-        table=f"{WORK}/models/regression_table.parquet",
+        directory(f"{WORK}/models"),
     params:
         models=CONFIG["models"],
+        measures=CONFIG["measures"],
     run:
-        stages.models(CONFIG, input[0], output.results, output.table)
+        stages.models(CONFIG, input.panel, input.monthly, output[0])

@@ -1,13 +1,25 @@
 # report: everything -> results/<run-id>/ (liqpanel.report)
+# `make report` (snakemake --report) turns the tables and figures marked here
+# into one HTML file; each gets its caption from the run's manifest.
+report: "../report/workflow.rst"
+
+
 rule report:
     input:
         monthly=f"{WORK}/monthly.parquet",
         panel=f"{WORK}/panel.parquet",
         audit=[f"{WORK}/audit.parquet"] if FROM_TRADES else [],
-        table=f"{WORK}/models/regression_table.parquet",
+        models=f"{WORK}/models",
         truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
+        study=[f"{WORK}/study"] if CONFIG["study"]["in_report"] else [],
     output:
-        directory(f"{RESULTS}/{RUN_ID}"),
+        report(
+            directory(f"{RESULTS}/{RUN_ID}"),
+            patterns=["tables/{table}.csv", "figures/{figure}.png"],
+            caption="../report/result.rst",
+            category=report_category,
+            labels=report_labels,
+        ),
     run:
         stages.report(
             CONFIG,
@@ -16,7 +28,8 @@ rule report:
             monthly_path=input.monthly,
             panel_path=input.panel,
             audit_path=input.audit[0] if input.audit else None,
-            regression_table_path=input.table,
+            models_dir=input.models,
             started=STARTED,
             command=COMMAND,
+            study_dir=input.study[0] if input.study else None,
         )

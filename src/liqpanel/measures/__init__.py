@@ -12,46 +12,14 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.contracts import check_unique_key, require_columns
+from liqpanel.contracts import check_unique_key
 from liqpanel.errors import ConfigError
-from liqpanel.measures.activity import amihud_illiquidity
+from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
+from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
-from liqpanel.measures.roll import roll_spread
 from liqpanel.partition import PREVIOUS_DAY, with_previous_day
 
 KEY = ["security", "month"]
-
-register(
-    Measure(
-        name="roll_spread",
-        function=roll_spread,
-        outputs=("roll_spread", "roll_efficient_var"),
-        columns=("ret",),
-        source="Roll (1984), Journal of Finance 39(4)",
-        family="spread",
-        min_days=15,
-        options={"series": "log_price", "convention": "missing"},
-        description="2*sqrt(-cov(dp_t, dp_t-1)); implied efficient-price variance gamma0 + 2*gamma1",
-    )
-)
-register(
-    Measure(
-        name="amihud",
-        function=amihud_illiquidity,
-        outputs=("amihud",),
-        columns=("ret", "dollar_volume"),
-        source="Amihud (2002), Journal of Financial Markets 5(1)",
-        family="impact",
-        min_days=15,
-        options={"scale": 1e6},
-        description="mean |r| / dollar volume over days with volume, x 10^6",
-    )
-)
-
-try:  # the estimator library registers the remaining measures
-    from liqpanel.measures import library as _library  # noqa: F401
-except ImportError:  # pragma: no cover - absent only while the library is built
-    pass
 
 
 def _needs_market_return(names: list[str]) -> bool:
@@ -119,7 +87,7 @@ def compute_monthly(
             .alias(f"{m.name}_reason"),
         )
         result = result.join(frame, on=KEY, how="left")
-    out = result.sort(KEY).collect()
+    out = result.sort(KEY).collect(engine="in-memory")  # bit-stable floats run to run
     return check_unique_key(out, KEY, table="monthly measures")
 
 

@@ -29,4 +29,5 @@ def amihud_illiquidity(daily: pl.LazyFrame, *, scale: float = 1e6, **_) -> pl.La
         .with_columns(
             pl.when(pl.col("n_obs") == 0).then(pl.lit("zero_volume")).otherwise(None).cast(pl.String).alias("reason")
         )
+        .sort(KEY)
     )

@@ -43,7 +43,8 @@ def roll_spread(daily: pl.LazyFrame, *, series: str = "log_price", convention: s
 
     Outputs (per security-month): ``roll_spread`` (proportional full spread),
     ``roll_efficient_var`` (sigma_u^2 per day, in squared log-return units),
-    ``n_obs`` (returns used), ``reason`` ("non_negative_autocovariance").
+    ``n_obs`` (returns used), ``reason`` ("non_negative_autocovariance", or
+    "too_few_returns" below two returns).
     """
     if series not in SERIES:
         raise ValueError(f"roll_spread: series must be one of {SERIES}, got {series!r}")
@@ -57,6 +58,7 @@ def roll_spread(daily: pl.LazyFrame, *, series: str = "log_price", convention: s
         .agg(gamma0.alias("gamma0"), gamma1.alias("gamma1"), n.cast(pl.Int64).alias("n_obs"))
     )
     undefined = pl.col("gamma1") >= 0
+    too_few = pl.col("n_obs") < 2  # an autocovariance needs two returns
     if convention == "missing":
         when_undefined = pl.lit(None, dtype=pl.Float64)
     elif convention == "zero":
@@ -65,8 +67,12 @@ def roll_spread(daily: pl.LazyFrame, *, series: str = "log_price", convention: s
         when_undefined = -2.0 * pl.col("gamma1").sqrt()
     return monthly.select(
         *KEY,
-        pl.when(undefined).then(when_undefined).otherwise(2.0 * (-pl.col("gamma1")).sqrt()).alias("roll_spread"),
-        (pl.col("gamma0") + 2.0 * pl.col("gamma1")).alias("roll_efficient_var"),
+        pl.when(too_few).then(None)
+        .when(undefined).then(when_undefined)
+        .otherwise(2.0 * (-pl.col("gamma1")).sqrt()).alias("roll_spread"),
+        pl.when(too_few).then(None).otherwise(pl.col("gamma0") + 2.0 * pl.col("gamma1")).alias("roll_efficient_var"),
         "n_obs",
-        pl.when(undefined).then(pl.lit("non_negative_autocovariance")).otherwise(None).cast(pl.String).alias("reason"),
-    )
+        pl.when(too_few).then(pl.lit("too_few_returns"))
+        .when(undefined).then(pl.lit("non_negative_autocovariance"))
+        .otherwise(None).cast(pl.String).alias("reason"),
+    ).sort(KEY)

@@ -37,6 +37,7 @@ import polars as pl
 
 from liqpanel.errors import InputError
 from liqpanel.models.regressions import newey_west_mean
+from liqpanel.stable import ordered_mean, ordered_sum
 
 KEY = ("security", "month")
 
@@ -200,14 +201,16 @@ def _assign(frame: pl.LazyFrame, on: str, n: int, by: list[str], label: str) -> 
 
 def _portfolio_returns(assigned: pl.LazyFrame, labels: list[str], ret: str, weight: str | None,
                        characteristics: list[str]) -> pl.LazyFrame:
+    # sums run over each cell's securities in name order (liqpanel.stable), so
+    # their last digit does not depend on the order in which rows arrive
     if weight:
-        value = (pl.col(ret) * pl.col(weight)).sum() / pl.col(weight).sum()
+        value = ordered_sum(pl.col(ret) * pl.col(weight)) / ordered_sum(pl.col(weight))
     else:
-        value = pl.col(ret).mean()
+        value = ordered_mean(pl.col(ret))
     return assigned.group_by(["month", *labels]).agg(
         pl.len().cast(pl.Int64).alias("n_securities"),
         value.alias("ret"),
-        *[pl.col(c).mean().alias(c) for c in characteristics],
+        *[ordered_mean(pl.col(c)).alias(c) for c in characteristics],
     )
 
 

@@ -74,14 +74,19 @@ def validate_proxies(monthly: pl.DataFrame, benchmark: str, proxies: list[str]) 
             & pl.col("_value").is_not_null() & pl.col("_value").is_finite()
         )
     )
+    # Floating-point sums depend on the order of their terms; every aggregate
+    # below orders its inputs by a key first, so the result does not depend
+    # on how the engine happened to partition the rows.
+    by_security = lambda c: pl.col(c).sort_by("security")  # noqa: E731
     per_month = (
         long.group_by("proxy", "month")
         .agg(
             pl.len().alias("_pairs"),
-            pl.corr("_value", "_bench", method="pearson").alias("_pearson"),
-            pl.corr("_value", "_bench", method="spearman").alias("_spearman"),
-            pl.col("_value").mean().alias("_value_mean"),
-            pl.col("_bench").mean().alias("_bench_mean"),
+            pl.corr(by_security("_value"), by_security("_bench"), method="pearson").alias("_pearson"),
+            # Spearman = Pearson of average ranks (ties share their mean rank)
+            pl.corr(by_security("_value").rank("average"), by_security("_bench").rank("average")).alias("_spearman"),
+            by_security("_value").mean().alias("_value_mean"),
+            by_security("_bench").mean().alias("_bench_mean"),
         )
         .with_columns(
             [
@@ -91,16 +96,19 @@ def validate_proxies(monthly: pl.DataFrame, benchmark: str, proxies: list[str]) 
             ]
         )
     )
+    by_month = lambda c: pl.col(c).sort_by("month")  # noqa: E731
+    per_month = per_month.collect(engine="in-memory").sort("proxy", "month").lazy()
     cross = per_month.group_by("proxy").agg(
-        pl.col("_pearson").mean().alias("mean_cs_pearson"),
-        pl.col("_spearman").mean().alias("mean_cs_spearman"),
+        by_month("_pearson").mean().alias("mean_cs_pearson"),
+        by_month("_spearman").mean().alias("mean_cs_spearman"),
         pl.col("_pearson").is_not_null().sum().cast(pl.Int64).alias("n_months_cs"),
-        pl.corr("_value_mean", "_bench_mean", method="pearson").alias("ts_corr_market"),
+        pl.corr(by_month("_value_mean"), by_month("_bench_mean"), method="pearson").alias("ts_corr_market"),
         pl.len().cast(pl.Int64).alias("n_months"),
     )
+    error = (pl.col("_value") - pl.col("_bench")).sort_by("month", "security")
     errors = long.group_by("proxy").agg(
-        (pl.col("_value") - pl.col("_bench")).mean().alias("mean_bias"),
-        ((pl.col("_value") - pl.col("_bench")) ** 2).mean().sqrt().alias("rmse"),
+        error.mean().alias("mean_bias"),
+        (error**2).mean().sqrt().alias("rmse"),
         pl.len().cast(pl.Int64).alias("n_security_months"),
     )
     order = pl.LazyFrame({"proxy": proxies, "_order": list(range(len(proxies)))})
@@ -121,5 +129,5 @@ def validate_proxies(monthly: pl.DataFrame, benchmark: str, proxies: list[str]) 
             "n_security_months",
             "n_months",
         )
-        .collect()
+        .collect(engine="in-memory")
     )

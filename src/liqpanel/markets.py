@@ -1,0 +1,138 @@
+"""Market profiles: time zone, trading sessions, half days, tick size.
+
+A profile is a small YAML file in ``config/markets/`` (or any path):
+
+    name: ...                 # free text
+    timezone: Asia/Kolkata    # an IANA time-zone name
+    sessions:                 # one or more [open, close] local times, in order
+      - ["09:00", "11:45"]
+      - ["13:15", "15:30"]    # a midday break between the two
+    half_days:                # optional: local date -> early close
+      "2021-11-04": "11:00"
+    tick_size: 0.01           # optional price grid, currency units
+    currency: ABC             # optional currency code
+
+Session bounds are inclusive (common practice: the opening and the closing
+trade belong to the day). A session must close after it opens on the same
+local day; sessions may not overlap. On a half day every session ends at the
+early close at the latest, and sessions that would open after it are closed.
+
+Every helper here is a polars expression over whole columns: the profile's
+handful of sessions is unrolled into the expression, never a loop over rows.
+"""
+
+from __future__ import annotations
+
+import re
+import zoneinfo
+from datetime import date, time
+from pathlib import Path
+
+import polars as pl
+
+from liqpanel.errors import ConfigError
+
+_CLOCK = re.compile(r"^([01][0-9]|2[0-3]):([0-5][0-9])(?::([0-5][0-9]))?$")
+
+
+def parse_clock(text, *, where: str) -> time:
+    """'HH:MM' or 'HH:MM:SS' local clock time, or a ConfigError naming ``where``."""
+    match = _CLOCK.match(str(text))
+    if not match:
+        raise ConfigError(f"{where}: expected a local time 'HH:MM', got {text!r}")
+    hh, mm, ss = match.groups()
+    return time(int(hh), int(mm), int(ss or 0))
+
+
+def check_market(market: dict, path: str | Path) -> dict:
+    """Validate a loaded profile; return it with parsed ``_sessions`` and ``_half_days``.
+
+    Raises ConfigError naming the profile file, the key and what was expected.
+    """
+    where = f"market profile {path}"
+    if not isinstance(market, dict):
+        raise ConfigError(f"{where}: expected a mapping of keys to values")
+    allowed = {"name", "timezone", "sessions", "half_days", "tick_size", "currency"}
+    unknown = sorted(set(market) - allowed)
+    if unknown:
+        raise ConfigError(f"{where}: unknown key '{unknown[0]}'; allowed keys: {', '.join(sorted(allowed))}")
+    try:
+        zoneinfo.ZoneInfo(str(market["timezone"]))
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        raise ConfigError(f"{where}: timezone {market['timezone']!r} is not an IANA time-zone name") from None
+    sessions = market["sessions"]
+    if not isinstance(sessions, list) or not sessions:
+        raise ConfigError(f"{where}: sessions: expected a list of [open, close] local times")
+    parsed = []
+    for k, session in enumerate(sessions):
+        if not isinstance(session, (list, tuple)) or len(session) != 2:
+            raise ConfigError(f"{where}: sessions[{k}]: expected [open, close], got {session!r}")
+        open_ = parse_clock(session[0], where=f"{where}: sessions[{k}]")
+        close = parse_clock(session[1], where=f"{where}: sessions[{k}]")
+        if close <= open_:
+            raise ConfigError(f"{where}: sessions[{k}]: the close {session[1]} must follow the open {session[0]}")
+        if parsed and open_ <= parsed[-1][1]:
+            raise ConfigError(f"{where}: sessions[{k}] opens before the previous session closes; list them in order")
+        parsed.append((open_, close))
+    half_days = {}
+    for day, close in (market.get("half_days") or {}).items():
+        try:
+            key = day if isinstance(day, date) else date.fromisoformat(str(day))
+        except ValueError:
+            raise ConfigError(f"{where}: half_days: {day!r} is not a date 'YYYY-MM-DD'") from None
+        half_days[key] = parse_clock(close, where=f"{where}: half_days[{day}]")
+    tick = market.get("tick_size")
+    if tick is not None and not (isinstance(tick, (int, float)) and tick > 0):
+        raise ConfigError(f"{where}: tick_size: expected a positive number or null, got {tick!r}")
+    return {**market, "_sessions": parsed, "_half_days": half_days}
+
+
+def sessions_of(market: dict) -> list[tuple[time, time]]:
+    if "_sessions" in market:
+        return market["_sessions"]
+    return check_market(market, market.get("name", "(given as a mapping)"))["_sessions"]
+
+
+def _early_close(market: dict, day: pl.Expr) -> pl.Expr | None:
+    half = market.get("_half_days")
+    if half is None:
+        half = check_market(market, market.get("name", "(given as a mapping)"))["_half_days"]
+    if not half:
+        return None
+    return day.replace_strict(list(half), list(half.values()), default=None, return_dtype=pl.Time)
+
+
+def session_index(market: dict, local_time: pl.Expr, day: pl.Expr) -> pl.Expr:
+    """0-based index of the session holding each local time, null outside every session."""
+    early = _early_close(market, day)
+    index = pl.lit(None, dtype=pl.Int32)
+    for k, (open_, close) in reversed(list(enumerate(sessions_of(market)))):
+        inside = local_time.is_between(pl.lit(open_), pl.lit(close), closed="both")
+        if early is not None:
+            inside = inside & (early.is_null() | (local_time <= early))
+        index = pl.when(inside).then(pl.lit(k, dtype=pl.Int32)).otherwise(index)
+    return index
+
+
+def session_bound(market: dict, index: pl.Expr, day: pl.Expr, which: str) -> pl.Expr:
+    """UTC timestamp of the open or close (``which``) of session ``index`` on local ``day``.
+
+    The close honours the half-day early close.
+    """
+    position = 0 if which == "open" else 1
+    clock = pl.lit(None, dtype=pl.Time)
+    for k, bounds in enumerate(sessions_of(market)):
+        clock = pl.when(index == k).then(pl.lit(bounds[position])).otherwise(clock)
+    early = _early_close(market, day)
+    if which == "close" and early is not None:
+        clock = pl.when(early.is_not_null() & (early < clock)).then(early).otherwise(clock)
+    local = day.dt.combine(clock, time_unit="us")
+    return local.dt.replace_time_zone(market["timezone"], ambiguous="earliest", non_existent="null").dt.convert_time_zone(
+        "UTC"
+    )
+
+
+def local_clock(ts: pl.Expr, market: dict) -> tuple[pl.Expr, pl.Expr]:
+    """(local date, local time of day) of UTC timestamps in the market's time zone."""
+    local = ts.dt.convert_time_zone(market["timezone"])
+    return local.dt.date(), local.dt.time()

@@ -1,0 +1,222 @@
+"""Registration of every measure: spreads, volatility, zero returns, turnover, Amihud, gamma.
+
+Each entry names its function, outputs, the daily columns it needs, the
+published source, the family, the minimum number of observations (``n_obs``)
+below which the measures stage reports a missing value, and the default
+options. For measures built from pairs of consecutive days (Corwin-Schultz,
+Abdi-Ranaldo, EDGE, Yang-Zhang, Pastor-Stambaugh) ``n_obs`` counts the pairs,
+so a month needs one trading day more than the minimum.
+"""
+
+from __future__ import annotations
+
+from liqpanel.measures.activity import amihud_illiquidity
+from liqpanel.measures.edge import edge_spread
+from liqpanel.measures.gibbs import DEFAULT_PRIOR, gibbs_spread
+from liqpanel.measures.highlow import abdi_ranaldo_monthly_spread, abdi_ranaldo_two_day_spread, corwin_schultz_spread
+from liqpanel.measures.impact import pastor_stambaugh_gamma, turnover, zero_return_share, zero_return_share_traded
+from liqpanel.measures.registry import Measure, register
+from liqpanel.measures.roll import roll_spread
+from liqpanel.measures.volatility import (
+    close_to_close_volatility,
+    garman_klass_volatility,
+    parkinson_volatility,
+    rogers_satchell_volatility,
+    yang_zhang_volatility,
+)
+
+MIN_DAYS = 15  # common practice for monthly estimates from daily data
+VOLATILITY_OPTIONS = {"annualise": False, "trading_days": 252}
+OHLC = ("open", "high", "low", "close")
+
+MEASURES = (
+    Measure(
+        name="roll_spread",
+        function=roll_spread,
+        outputs=("roll_spread", "roll_efficient_var"),
+        columns=("ret",),
+        source="Roll (1984), Journal of Finance 39(4)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={"series": "log_price", "convention": "missing"},
+        description="2*sqrt(-cov(dp_t, dp_t-1)); implied efficient-price variance gamma0 + 2*gamma1",
+    ),
+    Measure(
+        name="amihud",
+        function=amihud_illiquidity,
+        outputs=("amihud",),
+        columns=("ret", "dollar_volume"),
+        source="Amihud (2002), Journal of Financial Markets 5(1)",
+        family="impact",
+        min_days=MIN_DAYS,
+        options={"scale": 1e6},
+        description="mean |r| / dollar volume over days with volume, x 10^6",
+    ),
+    Measure(
+        name="gibbs_spread",
+        function=gibbs_spread,
+        outputs=("gibbs_spread", "gibbs_spread_lo", "gibbs_spread_hi", "gibbs_sigma_u"),
+        columns=("ret",),
+        source="Hasbrouck (2004), Journal of Financial and Quantitative Analysis 39(2); "
+        "Hasbrouck (2009), Journal of Finance 64(3)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={
+            "sweeps": 1000,
+            "burn": 200,
+            "seed": 1984,
+            "prior": dict(DEFAULT_PRIOR),
+            "use_market": False,
+            "interval": 0.90,
+        },
+        description="Gibbs sampler for the Roll model: 2 x posterior mean of the half-spread, interval, sigma_u",
+    ),
+    Measure(
+        name="cs_spread",
+        function=corwin_schultz_spread,
+        outputs=("cs_spread",),
+        columns=("high", "low", "close"),
+        source="Corwin & Schultz (2012), Journal of Finance 67(2)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={"negative": "zero"},
+        description="high-low spread from two-day ranges with the overnight adjustment, monthly mean",
+    ),
+    Measure(
+        name="ar_spread_2day",
+        function=abdi_ranaldo_two_day_spread,
+        outputs=("ar_spread_2day",),
+        columns=("high", "low", "close"),
+        source="Abdi & Ranaldo (2017), Review of Financial Studies 30(12)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={},
+        description="close-high-low spread, mean of floored two-day square roots",
+    ),
+    Measure(
+        name="ar_spread_monthly",
+        function=abdi_ranaldo_monthly_spread,
+        outputs=("ar_spread_monthly",),
+        columns=("high", "low", "close"),
+        source="Abdi & Ranaldo (2017), Review of Financial Studies 30(12)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={},
+        description="close-high-low spread, square root of the floored monthly mean of two-day pieces",
+    ),
+    Measure(
+        name="edge_spread",
+        function=edge_spread,
+        outputs=("edge_spread",),
+        columns=OHLC,
+        source="Ardia, Guidotti & Kroencke (2024), Journal of Financial Economics 161",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={"signed": False},
+        description="efficient open-high-low-close spread estimator (EDGE)",
+    ),
+    Measure(
+        name="vol_close",
+        function=close_to_close_volatility,
+        outputs=("vol_close",),
+        columns=("ret",),
+        source="common practice (sample standard deviation of daily log returns)",
+        family="volatility",
+        min_days=MIN_DAYS,
+        options=dict(VOLATILITY_OPTIONS),
+        description="close-to-close volatility of daily log returns",
+    ),
+    Measure(
+        name="vol_parkinson",
+        function=parkinson_volatility,
+        outputs=("vol_parkinson",),
+        columns=("high", "low"),
+        source="Parkinson (1980), Journal of Business 53(1)",
+        family="volatility",
+        min_days=MIN_DAYS,
+        options=dict(VOLATILITY_OPTIONS),
+        description="high-low range volatility, mean (h - l)^2 / (4 ln 2)",
+    ),
+    Measure(
+        name="vol_garman_klass",
+        function=garman_klass_volatility,
+        outputs=("vol_garman_klass",),
+        columns=OHLC,
+        source="Garman & Klass (1980), Journal of Business 53(1)",
+        family="volatility",
+        min_days=MIN_DAYS,
+        options=dict(VOLATILITY_OPTIONS),
+        description="open-high-low-close volatility, trading hours",
+    ),
+    Measure(
+        name="vol_rogers_satchell",
+        function=rogers_satchell_volatility,
+        outputs=("vol_rogers_satchell",),
+        columns=OHLC,
+        source="Rogers & Satchell (1991), Annals of Applied Probability 1(4)",
+        family="volatility",
+        min_days=MIN_DAYS,
+        options=dict(VOLATILITY_OPTIONS),
+        description="drift-independent range volatility, trading hours",
+    ),
+    Measure(
+        name="vol_yang_zhang",
+        function=yang_zhang_volatility,
+        outputs=("vol_yang_zhang",),
+        columns=OHLC,
+        source="Yang & Zhang (2000), Journal of Business 73(3)",
+        family="volatility",
+        min_days=MIN_DAYS,
+        options=dict(VOLATILITY_OPTIONS),
+        description="drift-independent volatility with the overnight move, whole day",
+    ),
+    Measure(
+        name="zero_return_share",
+        function=zero_return_share,
+        outputs=("zero_return_share",),
+        columns=("ret", "volume"),
+        source="Lesmond, Ogden & Trzcinka (1999), Review of Financial Studies 12(5)",
+        family="activity",
+        min_days=MIN_DAYS,
+        options={"calendar": "market"},
+        description="share of trading days with a zero return, days without trades included",
+    ),
+    Measure(
+        name="zero_return_share_traded",
+        function=zero_return_share_traded,
+        outputs=("zero_return_share_traded",),
+        columns=("ret", "volume"),
+        source="Lesmond, Ogden & Trzcinka (1999), Review of Financial Studies 12(5); positive-volume variant",
+        family="activity",
+        min_days=MIN_DAYS,
+        options={"calendar": "market"},
+        description="share of trading days with a zero return and positive volume",
+    ),
+    Measure(
+        name="turnover",
+        function=turnover,
+        outputs=("turnover",),
+        columns=("volume", "shares_out"),
+        source="common practice (month's volume / shares outstanding)",
+        family="activity",
+        min_days=1,  # a monthly total: defined whenever the security traded in the month
+        options={},
+        description="month's share volume divided by shares outstanding at the month's end",
+    ),
+    Measure(
+        name="ps_gamma",
+        function=pastor_stambaugh_gamma,
+        outputs=("ps_gamma",),
+        columns=("ret", "mkt_ret", "dollar_volume"),
+        source="Pastor & Stambaugh (2003), Journal of Political Economy 111(3)",
+        family="impact",
+        min_days=15,  # Pastor & Stambaugh (2003): at least 15 observations
+        options={"dollar_volume_unit": 1e6},
+        description="return-reversal gamma: OLS of next-day excess return on signed dollar volume",
+    ),
+)
+
+for _measure in MEASURES:
+    register(_measure)
+
+__all__ = ["MEASURES"]

@@ -1,0 +1,101 @@
+"""Market profiles: a midday break, a half day, a time zone east of UTC whose
+session crosses UTC midnight, and clear errors for a bad profile.
+
+Which local session a UTC instant falls in is computed independently with
+Python's ``zoneinfo`` (the IANA time-zone database)."""
+
+from datetime import date, time
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import numpy as np
+import polars as pl
+import pytest
+import yaml
+
+from liqpanel.bars import trading_bars
+from liqpanel.clean import clean_trades
+from liqpanel.config import MARKETS_DIR, load_market
+from liqpanel.errors import ConfigError
+from liqpanel.simulate import simulate_security_months
+
+RULES = {"nonpositive": True, "outside_session": True, "duplicates": True}
+
+
+def _local(ts, tz):
+    return [t.astimezone(ZoneInfo(tz)) for t in ts]
+
+
+def test_midday_break_and_half_day_drop_exactly_the_trades_outside_the_sessions():
+    market = load_market("kestrel")  # 09:00-11:45 and 13:15-15:30 Asia/Kolkata; 2021-11-04 closes 11:00
+    sim = simulate_security_months(np.array([0.002, 0.004]), 0.02, 60.0, n_days=5, seed=4, tz="Asia/Kolkata",
+                                   session=("09:00", "15:30"), start="2021-11")
+    kept, audit = clean_trades(sim.trades.lazy(), market, RULES, month="2021-11", sample=("2021-11", "2021-11"))
+    kept, audit = kept.collect(), audit.collect()
+    local = _local(sim.trades["ts"].to_list(), "Asia/Kolkata")
+
+    def inside(t):
+        clock = t.time()
+        close = time(11, 0) if t.date() == date(2021, 11, 4) else time(15, 30)
+        morning = time(9, 0) <= clock <= min(time(11, 45), close)
+        afternoon = time(13, 15) <= clock <= close
+        return morning or afternoon
+
+    expected_kept = sum(inside(t) for t in local)
+    assert 0 < expected_kept < len(local)
+    assert kept.height == expected_kept
+    assert audit["drop_outside_session"].sum() == len(local) - expected_kept
+    half_day = kept.filter(pl.col("date") == date(2021, 11, 4))
+    assert max(_local(half_day["ts"].to_list(), "Asia/Kolkata")).time() <= time(11, 0)
+
+
+def test_session_crossing_utc_midnight_keeps_local_days_and_months():
+    market = load_market("tidewater")  # 10:00-16:45 Pacific/Auckland (UTC+13 in summer)
+    sim = simulate_security_months(np.array([0.003]), 0.02, 30.0, n_days=25, seed=6, tz="Pacific/Auckland",
+                                   session=("10:00", "16:45"), start="2021-01")
+    utc_days = {t.date() for t in sim.trades["ts"].to_list()}
+    local_days = {t.date() for t in _local(sim.trades["ts"].to_list(), "Pacific/Auckland")}
+    assert utc_days != local_days  # the session straddles UTC midnight
+    months = {}
+    for month in ("2021-01", "2021-02"):
+        kept, audit = clean_trades(sim.trades.lazy(), market, RULES, month=month, sample=("2021-01", "2021-02"))
+        months[month] = kept.collect()
+        assert audit.collect()["drop_outside_session"].sum() == 0
+    assert sum(f.height for f in months.values()) == sim.trades.height
+    bars = trading_bars(pl.concat(months.values()).lazy())
+    assert sorted(bars.collect()["date"].unique().to_list()) == sorted(local_days)
+    february = months["2021-02"]
+    first = february.sort("ts").row(0, named=True)
+    assert first["date"] == date(2021, 2, 1) and first["ts"].date() == date(2021, 1, 31)
+
+
+def test_shipped_profiles_load():
+    names = sorted(p.stem for p in MARKETS_DIR.glob("*.yaml"))
+    assert {"demo", "kestrel", "tidewater"} <= set(names)
+    for name in names:
+        market = load_market(name)
+        assert market["_sessions"] and ZoneInfo(market["timezone"])
+    assert len(load_market("kestrel")["_sessions"]) == 2
+
+
+@pytest.mark.parametrize(
+    "change,needle",
+    [
+        ({"timezone": "Mars/Olympus"}, "not an IANA time-zone name"),
+        ({"sessions": [["10:00", "09:00"]]}, "must follow the open"),
+        ({"sessions": [["09:00", "12:00"], ["11:00", "15:00"]]}, "opens before the previous session closes"),
+        ({"sessions": [["9am", "12:00"]]}, "expected a local time 'HH:MM'"),
+        ({"half_days": {"2021-13-01": "12:00"}}, "is not a date"),
+        ({"tick_size": -1}, "tick_size"),
+        ({"lunch": True}, "unknown key 'lunch'"),
+    ],
+)
+def test_bad_profiles_are_refused_naming_file_and_key(tmp_path, change, needle):
+    profile = yaml.safe_load((MARKETS_DIR / "demo.yaml").read_text())
+    profile.update(change)
+    path = Path(tmp_path) / "bad.yaml"
+    path.write_text(yaml.safe_dump(profile))
+    with pytest.raises(ConfigError) as info:
+        load_market(str(path))
+    assert needle in str(info.value) and "bad.yaml" in str(info.value)
+
