@@ -14,10 +14,10 @@ measured by the operating system for each process). Cleaning applies the
 missing-field, sample, non-positive, session and duplicate rules (the
 outlier filter and the same-time merge are off, as in the pandas script).
 
-Side by side on the smallest market: a naive pandas script that loads the
-whole trade file and computes the same daily table and the Roll and Amihud
-measures in one process; its results are checked against ours before its
-time counts.
+Side by side on the 1x and 4x markets (``--pandas-sizes``): a naive pandas
+script that loads the whole trade file and computes the same daily table and
+the Roll and Amihud measures in one process; its results are checked against
+ours before its time counts.
 
 Run: ``make bench`` (or ``python -m bench.scale --help``). No assertion is
 made on time: the table is the result.
@@ -267,7 +267,7 @@ def machine() -> str:
             f"polars {pl.__version__}, pandas {pd.__version__}")
 
 
-def table(results: dict[int, dict], baseline: dict, jobs: int, threads: int, order: str) -> str:
+def table(results: dict[int, dict], baselines: dict[int, dict], jobs: int, threads: int, order: str) -> str:
     one = results[min(results)]
     largest_one = max(one["peak_mb"].values())
     lines = [
@@ -283,19 +283,22 @@ def table(results: dict[int, dict], baseline: dict, jobs: int, threads: int, ord
             f"| {k}x | {r['months']} | {r['trades']:,} | {r['wall']:.1f} | {r['cpu']:.1f} | {r['cpu'] / one['cpu']:.2f} "
             f"| {r['trades'] / r['cpu']:,.0f} | {times} | {peaks} | {max(r['peak_mb'].values()) / largest_one:.2f} |"
         )
-    b = baseline
-    lines.append(
-        f"| pandas, 1x | whole file | {one['trades']:,} | {b['wall']:.1f} | {b['process_cpu']:.1f} "
-        f"| {b['process_cpu'] / one['cpu']:.2f} | {one['trades'] / b['process_cpu']:,.0f} | {b['cpu']:.2f} (one script) "
-        f"| {b['peak_mb']:.0f} (one script) | {b['peak_mb'] / largest_one:.2f} |"
-    )
+    first = baselines[min(baselines)]
+    for k, b in sorted(baselines.items()):
+        trades = results[k]["trades"]
+        lines.append(
+            f"| pandas, {k}x | whole file | {trades:,} | {b['wall']:.1f} | {b['process_cpu']:.1f} "
+            f"| {b['process_cpu'] / first['process_cpu']:.2f} | {trades / b['process_cpu']:,.0f} "
+            f"| {b['cpu']:.2f} (one script) | {b['peak_mb']:.0f} (one script) | {b['peak_mb'] / first['peak_mb']:.2f} |"
+        )
+    b = first
     notes = [
         "",
         f"One process per stage and month partition (as one workflow job), {jobs} at a time, {threads} polars "
         "thread(s) each. CPU time adds up every job's process, start-up included; CPU per job is the stage "
         "alone, averaged over the partitions; peak memory is the largest over the partitions. "
-        "x / 1x compares with the 1x market.",
-        f"pandas against liqpanel at 1x: {b['process_cpu'] / one['cpu']:.2f}x the CPU time, "
+        "x / 1x compares with the 1x market of the same program.",
+        f"pandas against liqpanel at {min(baselines)}x: {b['process_cpu'] / one['cpu']:.2f}x the CPU time, "
         f"{b['peak_mb'] / largest_one:.2f}x the peak memory of liqpanel's largest job; "
         f"same results (largest relative difference: Roll {b['diff_roll']:.1e}, Amihud {b['diff_amihud']:.1e}).",
         f"Trade files in {order} order. Machine: {machine()}.",
@@ -306,6 +309,7 @@ def table(results: dict[int, dict], baseline: dict, jobs: int, threads: int, ord
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(prog="python -m bench.scale", description=__doc__.split("\n\n")[0])
     parser.add_argument("--sizes", default="1,4,16", help="market sizes, multiples of the base (default 1,4,16)")
+    parser.add_argument("--pandas-sizes", default="1,4", help="sizes the pandas script runs at too (default 1,4)")
     parser.add_argument("--base-months", type=int, default=2, help="months of the 1x market (default 2)")
     parser.add_argument("--securities", type=int, default=100, help="securities in every market (default 100)")
     parser.add_argument("--jobs", type=int, default=2, help="jobs run at once (default 2)")
@@ -319,22 +323,23 @@ def main(argv: list[str] | None = None) -> None:
         job_main(json.loads(args.job))
         return
     sizes = sorted({int(s) for s in args.sizes.split(",")})
+    pandas_sizes = sorted({int(s) for s in args.pandas_sizes.split(",")} & set(sizes)) or [min(sizes)]
     months = {k: k * args.base_months for k in sizes}
     with tempfile.TemporaryDirectory(prefix="liqpanel-bench-") as tmp:
         root = Path(tmp)
         t0 = time.perf_counter()
         files = make_markets(root, sorted(months.values()), args.securities, args.seed, args.order)
         print(f"simulated the markets in {time.perf_counter() - t0:.0f}s; running...", file=sys.stderr)
-        results = {}
+        results, baselines = {}, {}
         for k in sizes:
             results[k] = run_market(files[months[k]], months[k], root / f"x{k}" / "work", args.jobs, args.threads)
             print(f"  {k}x done in {results[k]['wall']:.1f}s", file=sys.stderr)
-        smallest = min(sizes)
-        baseline = run_pandas(files[months[smallest]], months[smallest], root, args.threads)
-        ours = results[smallest]["monthly"]
-        baseline["diff_roll"] = largest_difference(ours, baseline["monthly"], "roll_spread")
-        baseline["diff_amihud"] = largest_difference(ours, baseline["monthly"], "amihud")
-    print(table(results, baseline, args.jobs, args.threads, args.order))
+        for k in pandas_sizes:
+            baselines[k] = b = run_pandas(files[months[k]], months[k], root / f"x{k}", args.threads)
+            b["diff_roll"] = largest_difference(results[k]["monthly"], b["monthly"], "roll_spread")
+            b["diff_amihud"] = largest_difference(results[k]["monthly"], b["monthly"], "amihud")
+            print(f"  pandas {k}x done in {b['wall']:.1f}s", file=sys.stderr)
+    print(table(results, baselines, args.jobs, args.threads, args.order))
 
 
 if __name__ == "__main__":
