@@ -292,7 +292,7 @@ def table(results: dict[int, dict], baselines: dict[int, dict], jobs: int, threa
             f"| {b['cpu']:.2f} (one script) | {b['peak_mb']:.0f} (one script) | {b['peak_mb'] / first['peak_mb']:.2f} |"
         )
     b = first
-    notes = [
+    footer = [
         "",
         f"One process per stage and month partition (as one workflow job), {jobs} at a time, {threads} polars "
         "thread(s) each. CPU time adds up every job's process, start-up included; CPU per job is the stage "
@@ -303,7 +303,7 @@ def table(results: dict[int, dict], baselines: dict[int, dict], jobs: int, threa
         f"same results (largest relative difference: Roll {b['diff_roll']:.1e}, Amihud {b['diff_amihud']:.1e}).",
         f"Trade files in {order} order. Machine: {machine()}.",
     ]
-    return "\n".join(lines + notes)
+    return "\n".join(lines + footer)
 
 
 def main(argv: list[str] | None = None) -> None:
