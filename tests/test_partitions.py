@@ -12,7 +12,7 @@
   measures and ``n_days`` never see the borrowed day.
 """
 
-from datetime import date, datetime
+from datetime import date, datetime, time
 from pathlib import Path
 
 import numpy as np
@@ -27,7 +27,7 @@ from liqpanel.config import load_market, validate_config
 from liqpanel.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
 from liqpanel.measures.roll import roll_spread
-from liqpanel.partition import PREVIOUS_DAY, month_window, with_previous_day
+from liqpanel.partition import PREVIOUS_DAY, month_window, stored_window, with_previous_day
 from liqpanel.simulate import simulate_market, write_market
 
 KEY = ["security", "month"]
@@ -84,12 +84,15 @@ def _stored_as(trades: pl.DataFrame, kind: str) -> pl.DataFrame:
         return trades.with_columns(ts.dt.cast_time_unit("ms"))
     if kind == "paris":
         return trades.with_columns(ts.dt.convert_time_zone("Europe/Paris"))
+    local = ts.dt.convert_time_zone("America/New_York").dt.replace_time_zone(None)
     if kind == "naive_local":
-        return trades.with_columns(ts.dt.convert_time_zone("America/New_York").dt.replace_time_zone(None))
+        return trades.with_columns(local)
+    if kind == "date_and_time":  # the local trading date and clock in two columns
+        return trades.with_columns(local.dt.date().alias("date"), local.dt.time().alias("time")).drop("ts")
     raise ValueError(kind)
 
 
-@pytest.mark.parametrize("kind", ["utc_ms", "paris", "naive_local"])
+@pytest.mark.parametrize("kind", ["utc_ms", "paris", "naive_local", "date_and_time"])
 def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, kind):
     market = simulate_market(n_securities=6, n_months=4, seed=7, bad_row_share=0.03)
     trades = market.trades.drop("true_sign")
@@ -105,10 +108,11 @@ def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, ki
         schema=trades.schema,
     )
     stored = _stored_as(pl.concat([trades, odd]).sort("ts"), kind)
+    odd2 = pl.col("security") == "ODD2"
     if kind == "naive_local":  # the skipped local time itself, as a vendor would write it
-        stored = stored.with_columns(
-            pl.when(pl.col("security") == "ODD2").then(datetime(2021, 3, 14, 2, 30)).otherwise(pl.col("ts")).alias("ts")
-        )
+        stored = stored.with_columns(pl.when(odd2).then(datetime(2021, 3, 14, 2, 30)).otherwise(pl.col("ts")).alias("ts"))
+    if kind == "date_and_time":
+        stored = stored.with_columns(pl.when(odd2).then(time(2, 30)).otherwise(pl.col("time")).alias("time"))
     path = tmp_path / "trades.parquet"
     stored.write_parquet(path, row_group_size=500, statistics=True)  # small row groups: the window prunes
 
@@ -119,7 +123,7 @@ def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, ki
     for month in ("2021-02", "2021-03"):
         windowed = _clean(config, month, tmp_path / "windowed" / month)
         with monkeypatch.context() as patch:  # the same job reading the whole file
-            patch.setattr(stages, "month_window", lambda *args, **kwargs: None)
+            patch.setattr(stages, "stored_window", lambda *args, **kwargs: None)
             whole = _clean(config, month, tmp_path / "whole" / month)
         for name in ("trades", "audit", "quotes"):
             assert_frame_equal(windowed[name], whole[name])
@@ -127,7 +131,7 @@ def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, ki
     assert total == stored.height  # each row read by exactly one partition
 
     # the window reaches the reader: fewer rows leave the file, still numbered as in the file
-    window = lambda schema: month_window(schema["ts"], "2021-03", ("2021-02", "2021-03"), "America/New_York")  # noqa: E731
+    window = lambda schema: stored_window(schema, "2021-03", ("2021-02", "2021-03"), "America/New_York")  # noqa: E731
     read = readers.read_table(str(path), {}, readers.TRADES_SPEC, "America/New_York", window).frame.collect()
     assert 0 < read.height < stored.height  # January and February stay in the file
     numbered = stored.with_row_index("_row").select(pl.col("_row").cast(pl.Int64), "price")
@@ -149,6 +153,18 @@ def test_month_window_bounds_are_local_month_ends():
     first = month_window(pl.Datetime("us", "UTC"), "2021-01", ("2021-01", "2021-06"), "America/New_York")
     assert pl.DataFrame({"ts": [None]}, schema={"ts": pl.Datetime("us", "UTC")}).select(first).item() is True
     assert month_window(pl.String, "2021-03", ("2021-01", "2021-06"), "America/New_York") is None
+
+
+def test_window_on_a_date_column_keeps_two_days_either_side():
+    sample = ("2021-01", "2021-06")
+    days = [date(2021, 2, 26), date(2021, 2, 27), date(2021, 4, 2), date(2021, 4, 3)]
+    as_dates = pl.DataFrame({"date": days, "time": ["10:00"] * 4})
+    as_numbers = as_dates.with_columns(pl.col("date").dt.strftime("%Y%m%d").cast(pl.Int64))
+    for frame in (as_dates, as_numbers):
+        window = stored_window(frame.schema, "2021-03", sample, "America/New_York")
+        assert frame.select(window)["date"].to_list() == [False, True, True, False]
+    # the first partition also takes the rows whose date or time does not parse: no narrowing
+    assert stored_window(as_dates.schema, "2021-01", sample, "America/New_York") is None
 
 
 # ---------------------------------------------------------------- one partition or many

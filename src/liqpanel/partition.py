@@ -6,9 +6,10 @@ month, not by the market. Two things cross a month boundary:
 
 - Reading the trades. A month's clean job scans the whole trade file (or a
   glob of files) but keeps only rows whose timestamp can belong to the month.
-  ``month_window`` builds that condition on the file's own timestamp column,
-  before any conversion, so Polars pushes it into the Parquet reader: row
-  groups (and files) whose statistics lie outside the month are skipped. A
+  ``month_window`` (``stored_window`` for a file with separate date and time
+  columns) builds that condition on the file's own columns, before any
+  conversion, so Polars pushes it into the Parquet reader: row groups (and
+  files) whose statistics lie outside the month are skipped. A
   file sorted by time, or one file per day or month, is read once in total
   over all months; a file sorted by security is still read once per month,
   but streamed, so memory stays bounded by the month.
@@ -29,7 +30,7 @@ tests compute both and compare them.
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import date, datetime, timedelta
 from zoneinfo import ZoneInfo
 
 import polars as pl
@@ -93,6 +94,34 @@ def month_window(
     return after & before
 
 
+def stored_window(schema: pl.Schema, month: str, sample: tuple[str, str], timezone: str) -> pl.Expr | None:
+    """``month_window`` for a file as stored: on its ``ts`` column, or on its ``date`` column.
+
+    A file that gives the time as two columns, ``date`` (the local trading
+    date: a date, a datetime or a YYYYMMDD integer) and ``time``, is narrowed
+    on the date with two days to spare on each side (a clock past midnight
+    can move a trade to the next day), except in the first partition, which
+    also takes every row whose time does not parse. Anything else: None.
+    """
+    if "ts" in schema:
+        return month_window(schema["ts"], month, sample, timezone)
+    if "date" not in schema or "time" not in schema or month == sample[0] or sample[0] == sample[1]:
+        return None
+    dtype = schema["date"]
+    lo = date.fromisoformat(f"{month}-01") - timedelta(days=2)
+    hi = date.fromisoformat(f"{next_month(month)}-01") + timedelta(days=2)
+    if dtype == pl.Date:
+        bounds = pl.lit(lo), pl.lit(hi)
+    elif isinstance(dtype, pl.Datetime) and dtype.time_zone is None:
+        bounds = tuple(pl.lit(datetime(d.year, d.month, d.day), dtype=dtype) for d in (lo, hi))
+    elif dtype.is_integer():
+        bounds = tuple(pl.lit(d.year * 10_000 + d.month * 100 + d.day, dtype=dtype) for d in (lo, hi))
+    else:
+        return None
+    after = pl.col("date") >= bounds[0]
+    return after if month == sample[1] else after & (pl.col("date") < bounds[1])
+
+
 def with_previous_day(daily: pl.LazyFrame, previous: pl.LazyFrame | None = None) -> pl.LazyFrame:
     """Daily rows plus, per security-month, the security's last day of the previous month.
 
@@ -118,4 +147,4 @@ def with_previous_day(daily: pl.LazyFrame, previous: pl.LazyFrame | None = None)
     return pl.concat([daily, carried], how="diagonal_relaxed").select(names).sort("security", "date")
 
 
-__all__ = ["PREVIOUS_DAY", "month_start", "month_window", "next_month", "with_previous_day"]
+__all__ = ["PREVIOUS_DAY", "month_start", "month_window", "next_month", "stored_window", "with_previous_day"]

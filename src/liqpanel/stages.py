@@ -23,7 +23,7 @@ from liqpanel.errors import InputError
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
 from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
-from liqpanel.partition import month_window
+from liqpanel.partition import stored_window
 from liqpanel.replication import write_replication_files
 
 
@@ -55,7 +55,7 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_q
     audits, quotes, tz = [], None, market["timezone"]
 
     def window(schema: pl.Schema) -> pl.Expr | None:  # only this month's rows leave the file
-        return month_window(schema["ts"], month, sample, tz) if "ts" in schema else None
+        return stored_window(schema, month, sample, tz)
 
     if config["inputs"].get("quotes"):
         read = readers.read_table(config["inputs"]["quotes"], columns.get("quotes", {}), readers.QUOTES_SPEC, tz, window)
