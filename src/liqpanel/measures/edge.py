@@ -5,12 +5,9 @@ from __future__ import annotations
 import polars as pl
 
 from liqpanel.contracts import require_columns
+from liqpanel.measures.neighbours import previous_in_month
 
 KEY = ["security", "month"]
-
-
-def _previous_in_month(expr: pl.Expr) -> pl.Expr:
-    return expr.shift(1).over(KEY, order_by="date")
 
 
 def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
@@ -57,7 +54,7 @@ def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
     daily = daily.sort("security", "date")  # the result must not depend on the row order
     O, H, L, C = pl.col("open"), pl.col("high"), pl.col("low"), pl.col("close")
-    H1, L1, C1 = _previous_in_month(H), _previous_in_month(L), _previous_in_month(C)
+    H1, L1, C1 = previous_in_month(H), previous_in_month(L), previous_in_month(C)
     o, h, l = O.log(), H.log(), L.log()
     c1 = C1.log()
     eta = (h + l) / 2.0

@@ -18,6 +18,7 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import next_in_month
 
 KEY = ["security", "month"]
 NEGATIVE_CHOICES = ("zero", "keep")
@@ -25,7 +26,7 @@ _K = 3.0 - 2.0 * math.sqrt(2.0)  # the constant 3 - 2 sqrt(2) of Corwin & Schult
 
 
 def _next_in_month(col: str) -> pl.Expr:
-    return pl.col(col).shift(-1).over(KEY, order_by="date")
+    return next_in_month(pl.col(col))
 
 
 def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
@@ -120,7 +121,7 @@ def abdi_ranaldo_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
     daily = daily.sort("security", "date")  # the result must not depend on the row order
     eta = ((pl.col("high").log() + pl.col("low").log()) / 2.0)
     close = pl.col("close").log()
-    eta_next = eta.shift(-1).over(KEY, order_by="date")
+    eta_next = next_in_month(eta)
     return daily.with_columns(ar_piece=4.0 * (close - eta) * (close - eta_next))
 
 

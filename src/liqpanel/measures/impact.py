@@ -6,6 +6,7 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import next_in_month
 
 KEY = ["security", "month"]
 CALENDARS = ("market", "security")
@@ -170,7 +171,7 @@ def pastor_stambaugh_gamma(daily: pl.LazyFrame, *, dollar_volume_unit: float = 1
     excess = pl.col("ret") - pl.col("mkt_ret")
     x1 = pl.col("ret")
     x2 = excess.sign() * pl.col("dollar_volume") / dollar_volume_unit
-    y = excess.shift(-1).over(KEY, order_by="date")
+    y = next_in_month(excess)
     valid = pl.all_horizontal([x1.is_not_null(), x2.is_not_null(), y.is_not_null()])
     frame = daily.with_columns(
         pl.when(valid).then(x1).alias("_x1"),

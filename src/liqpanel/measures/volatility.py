@@ -37,6 +37,7 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import previous_in_month
 
 KEY = ["security", "month"]
 LN2 = math.log(2.0)
@@ -45,10 +46,6 @@ PARKINSON_CONSTANT = 4.0 * LN2
 
 def _log(col: str) -> pl.Expr:
     return pl.col(col).log()
-
-
-def _previous_in_month(expr: pl.Expr) -> pl.Expr:
-    return expr.shift(1).over(KEY, order_by="date")
 
 
 def _finish(daily: pl.LazyFrame, variance: pl.Expr, n_obs: pl.Expr, output: str, *, min_obs: int,
@@ -179,7 +176,7 @@ def yang_zhang_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tradi
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
     daily = daily.sort("security", "date")  # the result must not depend on the row order
-    overnight = _log("open") - _previous_in_month(_log("close"))
+    overnight = _log("open") - previous_in_month(_log("close"))
     paired = overnight.is_not_null() & _rogers_satchell_piece().is_not_null()
     frame = daily.with_columns(
         pl.when(paired).then(overnight).alias("_overnight"),
