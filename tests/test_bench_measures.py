@@ -58,7 +58,7 @@ def test_naive_baseline_equals_the_library(panel):
 
 def test_benchmark_runs_on_a_tiny_panel_and_prints_every_family(tmp_path):
     args = argparse.Namespace(securities=8, years=0.25, baseline_fraction=0.5, gibbs_fraction=0.5, gibbs_months=2,
-                              sweeps=20, workdir=str(tmp_path), seed=3)
+                              sweeps=20, repeat=1, workdir=str(tmp_path), seed=3)
     rows, lines = bench.run(args, echo=lambda text: None, isolate=lambda f, *a: f(*a))
     labels = [r.label for r in rows]
     assert labels == [*bench._families(), "all daily measures", "gibbs (20 sweeps)"]
