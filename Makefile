@@ -8,7 +8,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 CORES ?= 2
 
-.PHONY: demo test study bench clean-work report expected verify
+.PHONY: demo test study bench bench-measures clean-work report expected verify
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -27,8 +27,12 @@ study: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest -q
 
-bench: $(STAMP)
-	$(BIN)/python -m bench
+bench: bench-measures
+
+# Measures stage against a naive pandas baseline and a one-pass floor (a few minutes);
+# smaller: make bench-measures BENCH_MEASURES_ARGS="--securities 500 --years 2"
+bench-measures: $(STAMP)
+	$(BIN)/python -m bench.measures $(BENCH_MEASURES_ARGS)
 
 clean-work:
 	rm -rf work .snakemake

@@ -16,6 +16,7 @@ from liqpanel.contracts import check_unique_key
 from liqpanel.errors import ConfigError
 from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
 from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
+from liqpanel.measures.neighbours import SORTED_MARK
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
 
 KEY = ["security", "month"]
@@ -23,6 +24,21 @@ KEY = ["security", "month"]
 
 def _needs_market_return(names: list[str]) -> bool:
     return any("mkt_ret" in REGISTRY[n].columns for n in names)
+
+
+def _sorted_once(daily: pl.LazyFrame) -> pl.LazyFrame:
+    """The daily table in (security, date) order, marked so that no measure sorts it again.
+
+    A table that arrives sorted (the workflow writes its daily files sorted)
+    is checked with one comparison of neighbouring rows instead of a sort.
+    """
+    frame = daily.collect(engine="in-memory")
+    security, date = pl.col("security"), pl.col("date")
+    ordered = (security.shift(-1) > security) | ((security.shift(-1) == security) & (date.shift(-1) > date))
+    last = pl.int_range(pl.len()) == pl.len() - 1
+    if not frame.select((ordered.fill_null(False) | last).all()).item():
+        frame = frame.sort("security", "date")
+    return frame.lazy().with_columns(pl.lit(True).alias(SORTED_MARK))
 
 
 def compute_monthly(daily: pl.LazyFrame, selection: dict[str, dict[str, Any] | None]) -> pl.DataFrame:
@@ -49,7 +65,7 @@ def compute_monthly(daily: pl.LazyFrame, selection: dict[str, dict[str, Any] | N
                 f"measure '{m.name}' needs daily column(s) {missing}, which the daily table lacks; "
                 "drop the measure from `measures:` or supply the column"
             )
-    daily = daily.sort("security", "date").cache()
+    daily = _sorted_once(daily)
     result = daily.group_by(KEY).agg(pl.len().cast(pl.Int64).alias("n_days"))
     for m in measures:
         options = resolve_options(m, selection[m.name])
