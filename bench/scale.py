@@ -19,7 +19,7 @@ script that loads the whole trade file and computes the same daily table and
 the Roll and Amihud measures in one process; its results are checked against
 ours before its time counts.
 
-Run: ``make bench`` (or ``python -m bench.scale --help``). No assertion is
+Run: ``make bench-scale`` (or ``python -m bench.scale --help``). No assertion is
 made on time: the table is the result.
 """
 

@@ -26,6 +26,7 @@ from liqpanel.bars import add_returns, intraday_bars
 from liqpanel.config import load_market, validate_config
 from liqpanel.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
+from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
 from liqpanel.measures.roll import roll_spread
 from liqpanel.partition import PREVIOUS_DAY, month_window, stored_window, with_previous_day
 from liqpanel.simulate import simulate_market, write_market
@@ -52,9 +53,9 @@ def overnight_gap(daily: pl.LazyFrame, **_) -> pl.LazyFrame:
     previous month's last (common practice for an overnight return). A check
     measure for these tests only: it needs the day before each day.
     """
-    gap = (pl.col("open") / pl.col("close").shift(1).over(KEY)).log()
+    gap = (pl.col("open") / previous_in_month(pl.col("close"))).log()
     return (
-        daily.sort("security", "date")
+        in_security_date_order(daily)
         .with_columns(gap.alias("gap"))
         .filter(~pl.col(PREVIOUS_DAY))
         .group_by(KEY)
@@ -249,6 +250,11 @@ def test_previous_day_is_borrowed_only_from_the_month_before():
         ("AAA", date(2021, 1, 29), date(2021, 2, 1), 11.0)
     ]
     assert out.filter(~pl.col(PREVIOUS_DAY)).height == 5
+    # the lent day sits just before the month it leads into, after its own month's row of the same date
+    assert out.filter(pl.col("security") == "AAA").select("date", "month", PREVIOUS_DAY).rows() == [
+        (date(2021, 1, 28), date(2021, 1, 1), False), (date(2021, 1, 29), date(2021, 1, 1), False),
+        (date(2021, 1, 29), date(2021, 2, 1), True), (date(2021, 2, 1), date(2021, 2, 1), False),
+    ]
     # from a previous partition, the same row
     previous, current = (daily.filter(pl.col("month") == date(2021, m, 1)) for m in (1, 2))
     part = with_previous_day(current, previous).collect()

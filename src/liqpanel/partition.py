@@ -130,7 +130,10 @@ def with_previous_day(daily: pl.LazyFrame, previous: pl.LazyFrame | None = None)
     added row keeps its own date and values, takes the month it leads into,
     and has ``from_previous_month`` = True (False on every other row). It is
     added only where the security has days in both months: a security with no
-    day in the previous calendar month gets none. Sorted by security and date.
+    day in the previous calendar month gets none. Sorted by security, month and
+    date, so the lent day sits just before the first day of the month it
+    leads into (in a table of several months it shares its date with the
+    previous month's own last row, which comes first).
     """
     daily = daily.with_columns(pl.lit(False).alias(PREVIOUS_DAY))
     names = daily.collect_schema().names()
@@ -144,7 +147,7 @@ def with_previous_day(daily: pl.LazyFrame, previous: pl.LazyFrame | None = None)
         .with_columns(pl.col("month").dt.offset_by("1mo"), pl.lit(True).alias(PREVIOUS_DAY))
         .join(daily.select("security", "month").unique(), on=["security", "month"], how="semi")
     )
-    return pl.concat([daily, carried], how="diagonal_relaxed").select(names).sort("security", "date")
+    return pl.concat([daily, carried], how="diagonal_relaxed").select(names).sort("security", "month", "date")
 
 
 __all__ = ["PREVIOUS_DAY", "month_start", "month_window", "next_month", "stored_window", "with_previous_day"]

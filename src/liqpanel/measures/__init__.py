@@ -16,6 +16,7 @@ from liqpanel.contracts import check_unique_key
 from liqpanel.errors import ConfigError
 from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
 from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
+from liqpanel.measures.neighbours import SORTED_MARK
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
 from liqpanel.partition import PREVIOUS_DAY, with_previous_day
 
@@ -24,6 +25,21 @@ KEY = ["security", "month"]
 
 def _needs_market_return(names: list[str]) -> bool:
     return any("mkt_ret" in REGISTRY[n].columns for n in names)
+
+
+def _sorted_once(daily: pl.LazyFrame) -> pl.LazyFrame:
+    """The daily table in (security, date) order, marked so that no measure sorts it again.
+
+    A table that arrives sorted (the workflow writes its daily files sorted)
+    is checked with one comparison of neighbouring rows instead of a sort.
+    """
+    frame = daily.collect(engine="in-memory")
+    security, date = pl.col("security"), pl.col("date")
+    ordered = (security.shift(-1) > security) | ((security.shift(-1) == security) & (date.shift(-1) > date))
+    last = pl.int_range(pl.len()) == pl.len() - 1
+    if not frame.select((ordered.fill_null(False) | last).all()).item():
+        frame = frame.sort("security", "date")
+    return frame.lazy().with_columns(pl.lit(True).alias(SORTED_MARK))
 
 
 def compute_monthly(
@@ -66,8 +82,10 @@ def compute_monthly(
                 f"measure '{m.name}' needs daily column(s) {missing}, which the daily table lacks; "
                 "drop the measure from `measures:` or supply the column"
             )
-    daily = daily.sort("security", "date").cache()
-    with_previous = with_previous_day(daily, previous).cache() if wants_previous_day else daily
+    daily = _sorted_once(daily)
+    with_previous = daily
+    if wants_previous_day:  # sorted by security, month and date: a lent day shares a date with a row of its own
+        with_previous = with_previous_day(daily.drop(SORTED_MARK), previous).with_columns(pl.lit(True).alias(SORTED_MARK))
     result = daily.group_by(KEY).agg(pl.len().cast(pl.Int64).alias("n_days"))
     for m in measures:
         options = resolve_options(m, selection[m.name])

@@ -5,12 +5,9 @@ from __future__ import annotations
 import polars as pl
 
 from liqpanel.contracts import require_columns
+from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
 
 KEY = ["security", "month"]
-
-
-def _previous_in_month(expr: pl.Expr) -> pl.Expr:
-    return expr.shift(1).over(KEY, order_by="date")
 
 
 def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
@@ -55,9 +52,9 @@ def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
     Output ``edge_spread``; ``n_obs`` days with a previous day in the month.
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     O, H, L, C = pl.col("open"), pl.col("high"), pl.col("low"), pl.col("close")
-    H1, L1, C1 = _previous_in_month(H), _previous_in_month(L), _previous_in_month(C)
+    H1, L1, C1 = previous_in_month(H), previous_in_month(L), previous_in_month(C)
     o, h, l = O.log(), H.log(), L.log()
     c1 = C1.log()
     eta = (h + l) / 2.0
@@ -80,23 +77,31 @@ def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
         masked(tau * (C1 != H1).cast(pl.Float64)).alias("_pc1"),
         masked(tau * (C1 != L1).cast(pl.Float64)).alias("_pc2"),
     )
-    # Everything below is per month, inside one aggregation.
+    # The month's means as window columns, so that the aggregation below needs
+    # only plain means, variances and sums (the fast path of the group-by).
     tau_col = pl.col("_tau")
-    pt = tau_col.mean()
-    po = pl.col("_po1").mean() + pl.col("_po2").mean()
-    pc = pl.col("_pc1").mean() + pl.col("_pc2").mean()
-    d1, d3, d5 = (pl.col(r) - tau_col * pl.col(r).mean() / pt for r in ("_r1", "_r3", "_r5"))
+    frame = frame.with_columns(
+        tau_col.mean().over(KEY).alias("_pt"),
+        (pl.col("_po1").mean() + pl.col("_po2").mean()).over(KEY).alias("_po"),
+        (pl.col("_pc1").mean() + pl.col("_pc2").mean()).over(KEY).alias("_pc"),
+        *[pl.col(r).mean().over(KEY).alias(f"{r}_mean") for r in ("_r1", "_r3", "_r5")],
+    )
+    po, pc = pl.col("_po"), pl.col("_pc")
+    d1, d3, d5 = (pl.col(r) - tau_col * pl.col(f"{r}_mean") / pl.col("_pt") for r in ("_r1", "_r3", "_r5"))
     r2, r4, r5 = pl.col("_r2"), pl.col("_r4"), pl.col("_r5")
-    x1 = -4.0 / po * d1 * r2 - 4.0 / pc * d3 * r4
-    x2 = -4.0 / po * d1 * r5 - 4.0 / pc * d5 * r4
+    frame = frame.with_columns(
+        (-4.0 / po * d1 * r2 - 4.0 / pc * d3 * r4).alias("_x1"),
+        (-4.0 / po * d1 * r5 - 4.0 / pc * d5 * r4).alias("_x2"),
+    )
+    x1, x2 = pl.col("_x1"), pl.col("_x2")
     monthly = frame.group_by(KEY, maintain_order=True).agg(
         x1.mean().alias("_e1"),
         x2.mean().alias("_e2"),
         x1.var(ddof=0).alias("_v1"),
         x2.var(ddof=0).alias("_v2"),
         tau_col.sum().alias("_n_tau"),
-        po.alias("_po"),
-        pc.alias("_pc"),
+        po.first().alias("_po"),
+        pc.first().alias("_pc"),
         tau_col.count().cast(pl.Int64).alias("n_obs"),
     )
     e1, e2, v1, v2 = pl.col("_e1"), pl.col("_e2"), pl.col("_v1"), pl.col("_v2")

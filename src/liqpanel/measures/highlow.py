@@ -18,6 +18,7 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import in_security_date_order, next_in_month
 
 KEY = ["security", "month"]
 NEGATIVE_CHOICES = ("zero", "keep")
@@ -25,7 +26,7 @@ _K = 3.0 - 2.0 * math.sqrt(2.0)  # the constant 3 - 2 sqrt(2) of Corwin & Schult
 
 
 def _next_in_month(col: str) -> pl.Expr:
-    return pl.col(col).shift(-1).over(KEY, order_by="date")
+    return next_in_month(pl.col(col))
 
 
 def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
@@ -35,7 +36,7 @@ def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
     (null on a month's last day). See ``corwin_schultz_spread`` for the formula.
     """
     require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     high0, low0, close0 = pl.col("high"), pl.col("low"), pl.col("close")
     high1, low1 = _next_in_month("high"), _next_in_month("low")
     # Overnight adjustment (Corwin & Schultz 2012, their treatment of overnight returns), in price levels:
@@ -117,10 +118,10 @@ def abdi_ranaldo_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
     Adds ``ar_piece`` (null on a month's last day); log prices, eta = (h + l) / 2.
     """
     require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     eta = ((pl.col("high").log() + pl.col("low").log()) / 2.0)
     close = pl.col("close").log()
-    eta_next = eta.shift(-1).over(KEY, order_by="date")
+    eta_next = next_in_month(eta)
     return daily.with_columns(ar_piece=4.0 * (close - eta) * (close - eta_next))
 
 

@@ -6,6 +6,7 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import in_security_date_order, next_in_month
 
 KEY = ["security", "month"]
 CALENDARS = ("market", "security")
@@ -16,7 +17,7 @@ def _zero_return_counts(daily: pl.LazyFrame, calendar: str) -> pl.LazyFrame:
     if calendar not in CALENDARS:
         raise ConfigError(f"measure 'zero_return_share': option `calendar` must be one of {CALENDARS}, got {calendar!r}")
     require_columns(daily, ["security", "month", "date", "ret", "volume"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     ret = pl.col("ret")
     counts = daily.group_by(KEY, maintain_order=True).agg(
         pl.len().cast(pl.Int64).alias("_rows"),
@@ -115,7 +116,7 @@ def turnover(daily: pl.LazyFrame) -> pl.LazyFrame:
     "no_shares_out" when no day of the month has a positive shares_out.
     """
     require_columns(daily, ["security", "month", "date", "volume", "shares_out"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     shares = pl.when(pl.col("shares_out") > 0).then(pl.col("shares_out"))
     return (
         daily.group_by(KEY, maintain_order=True)
@@ -164,21 +165,23 @@ def pastor_stambaugh_gamma(daily: pl.LazyFrame, *, dollar_volume_unit: float = 1
     correlation between them above 1 - 1e-8.
     """
     require_columns(daily, ["security", "month", "date", "ret", "mkt_ret", "dollar_volume"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     if not dollar_volume_unit > 0:
         raise ConfigError(f"measure 'ps_gamma': option `dollar_volume_unit` must be positive, got {dollar_volume_unit}")
     excess = pl.col("ret") - pl.col("mkt_ret")
     x1 = pl.col("ret")
     x2 = excess.sign() * pl.col("dollar_volume") / dollar_volume_unit
-    y = excess.shift(-1).over(KEY, order_by="date")
+    y = next_in_month(excess)
     valid = pl.all_horizontal([x1.is_not_null(), x2.is_not_null(), y.is_not_null()])
     frame = daily.with_columns(
         pl.when(valid).then(x1).alias("_x1"),
         pl.when(valid).then(x2).alias("_x2"),
         pl.when(valid).then(y).alias("_y"),
     )
-    # Centred within the month (the intercept partialled out), inside the aggregation.
-    a, b, yy = (pl.col(c) - pl.col(c).mean() for c in ("_x1", "_x2", "_y"))
+    # Centred within the month (the intercept partialled out); the month's means
+    # are window columns, so the group-by needs only sums.
+    frame = frame.with_columns((pl.col(c) - pl.col(c).mean().over(KEY)).alias(f"{c}_c") for c in ("_x1", "_x2", "_y"))
+    a, b, yy = pl.col("_x1_c"), pl.col("_x2_c"), pl.col("_y_c")
     monthly = frame.group_by(KEY, maintain_order=True).agg(
         (a * a).sum().alias("_s11"),
         (a * b).sum().alias("_s12"),

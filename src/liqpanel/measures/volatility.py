@@ -37,6 +37,7 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
 
 KEY = ["security", "month"]
 LN2 = math.log(2.0)
@@ -45,10 +46,6 @@ PARKINSON_CONSTANT = 4.0 * LN2
 
 def _log(col: str) -> pl.Expr:
     return pl.col(col).log()
-
-
-def _previous_in_month(expr: pl.Expr) -> pl.Expr:
-    return expr.shift(1).over(KEY, order_by="date")
 
 
 def _finish(daily: pl.LazyFrame, variance: pl.Expr, n_obs: pl.Expr, output: str, *, min_obs: int,
@@ -89,7 +86,7 @@ def close_to_close_volatility(daily: pl.LazyFrame, *, annualise: bool = False, t
     Output ``vol_close``; ``n_obs`` counts the returns used (at least 2).
     """
     require_columns(daily, ["security", "month", "date", "ret"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     x = (pl.col("ret") + 1.0).log()
     return _finish(daily, x.var(ddof=1), x.count(), "vol_close", min_obs=2,
                    annualise=annualise, trading_days=trading_days)
@@ -108,7 +105,7 @@ def parkinson_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tradin
     Output ``vol_parkinson`` (daily, trading hours); ``n_obs`` days used.
     """
     require_columns(daily, ["security", "month", "date", "high", "low"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     piece = (_log("high") - _log("low")) ** 2 / PARKINSON_CONSTANT
     return _finish(daily, piece.mean(), piece.count(), "vol_parkinson", min_obs=1,
                    annualise=annualise, trading_days=trading_days)
@@ -128,7 +125,7 @@ def garman_klass_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tra
     Output ``vol_garman_klass`` (daily, trading hours); ``n_obs`` days used.
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     piece = 0.5 * (_log("high") - _log("low")) ** 2 - (2.0 * LN2 - 1.0) * (_log("close") - _log("open")) ** 2
     return _finish(daily, piece.mean(), piece.count(), "vol_garman_klass", min_obs=1,
                    annualise=annualise, trading_days=trading_days)
@@ -151,7 +148,7 @@ def rogers_satchell_volatility(daily: pl.LazyFrame, *, annualise: bool = False, 
     Output ``vol_rogers_satchell`` (daily, trading hours); ``n_obs`` days used.
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
     piece = _rogers_satchell_piece()
     return _finish(daily, piece.mean(), piece.count(), "vol_rogers_satchell", min_obs=1,
                    annualise=annualise, trading_days=trading_days)
@@ -178,8 +175,8 @@ def yang_zhang_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tradi
     Output ``vol_yang_zhang`` (daily, whole day); ``n_obs`` days used (at least 2).
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = daily.sort("security", "date")  # the result must not depend on the row order
-    overnight = _log("open") - _previous_in_month(_log("close"))
+    daily = in_security_date_order(daily)  # the result must not depend on the row order
+    overnight = _log("open") - previous_in_month(_log("close"))
     paired = overnight.is_not_null() & _rogers_satchell_piece().is_not_null()
     frame = daily.with_columns(
         pl.when(paired).then(overnight).alias("_overnight"),

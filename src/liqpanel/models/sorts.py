@@ -232,7 +232,7 @@ def _complete_grid(cells: pl.LazyFrame, grid: pl.LazyFrame, labels: list[str], m
               for c in characteristics],
         )
         .sort(["month", *labels])
-        .collect()
+        .collect(engine="in-memory")  # bit-stable means run to run
     )
     return out
 

@@ -1,1 +1,0 @@
-"""Benchmarks, run side by side with a naive baseline: ``make bench``."""

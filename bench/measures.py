@@ -1,0 +1,287 @@
+"""Speed and memory of the measures stage against a naive baseline and a one-pass floor.
+
+    python -m bench.measures [--securities 5000] [--years 5] [--baseline-fraction 0.02]
+
+Writes a synthetic daily panel (``bench.measures_data``) to Parquet, then for
+every family of daily measures in the registry (and for all of them together)
+times, each in a fresh process so that peak memory is the run's own (ours
+and the floor: the fastest of ``--repeat`` runs):
+
+- ours: ``liqpanel.measures.compute_monthly`` on a scan of the Parquet file,
+  the measures stage as the workflow runs it;
+- the naive baseline: pandas ``groupby(...).apply`` of one plain function per
+  measure and security-month (``bench.measures_naive``), on the securities
+  of a random ``--baseline-fraction`` of the panel, its time scaled by rows
+  to the whole panel;
+- the floor: one scan of the same Parquet file aggregating each column the
+  family reads once (a sum per security-month), the least any measure stage
+  must do.
+
+The Gibbs sampler is timed apart, per security-month at ``--sweeps`` sweeps:
+ours on ``--gibbs-fraction`` of the securities, the baseline as a loop that
+runs the same sampler one security-month at a time on ``--gibbs-months``
+months. The table prints seconds, the ratio baseline / ours, ours / floor and
+our peak resident memory; the lines below it compare the results with the
+targets. Timings are wall-clock on whatever else the machine is doing: run it
+on a quiet machine.
+"""
+
+from __future__ import annotations
+
+import argparse
+import multiprocessing
+import os
+import platform
+import resource
+import shutil
+import sys
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+TARGET_RATIO = 50.0  # all daily measures together against the naive baseline
+TARGET_FLOOR = 3.0  # ours over the one-pass floor
+TARGET_MEMORY_GB = 4.0  # peak resident memory at the default size
+TARGET_GIBBS_RATIO = 100.0  # vectorised sampler against the per-month loop
+GIB = 1024.0**3
+
+
+def _families() -> dict[str, list[str]]:
+    """Registered measures computable from daily bars alone, by family.
+
+    Measures that need intraday columns (the high-frequency benchmarks) and
+    the Gibbs sampler (timed apart) are left out.
+    """
+    from liqpanel.contracts import DAILY
+    from liqpanel.measures import REGISTRY
+
+    daily_columns = set(DAILY) | {"shares_out", "mkt_ret"}
+    families: dict[str, list[str]] = {}
+    for name, measure in REGISTRY.items():
+        if name != "gibbs_spread" and set(measure.columns) <= daily_columns:
+            families.setdefault(measure.family, []).append(name)
+    return families
+
+
+def _columns_read(names: list[str]) -> list[str]:
+    from liqpanel.measures import REGISTRY
+
+    needed = {c for n in names for c in REGISTRY[n].columns}
+    needed = {"ret" if c == "mkt_ret" else c for c in needed}  # the market return is made from ret
+    return sorted(needed)
+
+
+def _peak_bytes() -> int:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024  # Linux reports kilobytes
+
+
+def _run_ours(path: str, names: list[str], options: dict | None = None) -> tuple[float, int, int]:
+    """compute_monthly on a scan of the panel: seconds, output rows, peak bytes of this process."""
+    import polars as pl
+
+    from liqpanel.measures import compute_monthly
+
+    started = time.perf_counter()
+    out = compute_monthly(pl.scan_parquet(path), {n: (options or {}).get(n) for n in names})
+    return time.perf_counter() - started, out.height, _peak_bytes()
+
+
+def _run_gibbs(path: str, securities: list[str], sweeps: int, burn: int) -> tuple[float, int, int]:
+    """The registered Gibbs measure on the given securities: seconds, sampled months, peak bytes."""
+    import polars as pl
+
+    from liqpanel.measures import compute_monthly
+
+    lf = pl.scan_parquet(path).filter(pl.col("security").is_in(securities))
+    started = time.perf_counter()
+    out = compute_monthly(lf, {"gibbs_spread": {"sweeps": sweeps, "burn": burn}})
+    seconds = time.perf_counter() - started
+    sampled = int((out["gibbs_spread_n"] >= 3).sum())  # the sampler runs on every month with 3 returns or more
+    return seconds, sampled, _peak_bytes()
+
+
+def _run_floor(path: str, columns: list[str]) -> tuple[float, int, int]:
+    """One scan of the panel, each column aggregated once per security-month."""
+    import polars as pl
+
+    started = time.perf_counter()
+    out = pl.scan_parquet(path).group_by("security", "month").agg(pl.col(columns).sum()).collect(engine="in-memory")
+    return time.perf_counter() - started, out.height, _peak_bytes()
+
+
+def _run_naive(path: str, names: list[str], securities: list[str]) -> tuple[float, int, int]:
+    from bench.measures_naive import time_monthly
+
+    seconds, rows, _ = time_monthly(path, names, securities)
+    return seconds, rows, _peak_bytes()
+
+
+def _run_naive_gibbs(path: str, securities: list[str], months: int, sweeps: int, burn: int) -> tuple[float, int, int]:
+    from bench.measures_naive import gibbs_per_month
+
+    seconds, done = gibbs_per_month(path, securities, months=months, sweeps=sweeps, burn=burn, seed=1984)
+    return seconds, done, _peak_bytes()
+
+
+def in_fresh_process(function, *args):
+    """Run ``function(*args)`` in a new interpreter, so its timing and peak memory are its own."""
+    with multiprocessing.get_context("spawn").Pool(1) as pool:
+        return pool.apply(function, args)
+
+
+def fastest(isolate, repeat: int, function, *args) -> tuple[float, int, int]:
+    """The fastest of ``repeat`` isolated runs (other work on the machine only slows a run down), the highest peak."""
+    runs = [isolate(function, *args) for _ in range(max(repeat, 1))]
+    seconds, count, _ = min(runs, key=lambda r: r[0])
+    return seconds, count, max(r[2] for r in runs)  # the highest peak memory of the runs
+
+
+@dataclass
+class Row:
+    label: str
+    measures: int
+    rows: int
+    ours: float
+    baseline: float | None
+    floor: float | None
+    peak: int
+
+    @property
+    def ratio(self) -> float | None:
+        return self.baseline / self.ours if self.baseline is not None else None
+
+    @property
+    def over_floor(self) -> float | None:
+        return self.ours / self.floor if self.floor is not None else None
+
+
+def _fmt(value: float | None, spec: str) -> str:
+    return "-" if value is None else format(value, spec)
+
+
+def format_table(rows: list[Row]) -> str:
+    header = f"{'family':<22}{'measures':>9}{'rows':>12}{'ours s':>10}{'baseline s':>12}{'ratio':>9}{'floor s':>9}{'ours/floor':>12}{'peak GB':>9}"
+    lines = [header, "-" * len(header)]
+    for r in rows:
+        lines.append(
+            f"{r.label:<22}{r.measures:>9}{r.rows:>12,}{r.ours:>10.2f}{_fmt(r.baseline, '12.1f'):>12}"
+            f"{_fmt(r.ratio, '8.0f') + 'x' if r.ratio else '-':>9}{_fmt(r.floor, '9.2f'):>9}"
+            f"{_fmt(r.over_floor, '11.1f') + 'x' if r.over_floor else '-':>12}{r.peak / GIB:>9.2f}"
+        )
+    return "\n".join(lines)
+
+
+def verdicts(total: Row, gibbs: Row | None, default_size: bool) -> list[str]:
+    def mark(ok: bool) -> str:
+        return "met" if ok else "MISSED"
+
+    out = [
+        f"all daily measures vs naive baseline: {total.ratio:.0f}x (target >= {TARGET_RATIO:.0f}x): {mark(total.ratio >= TARGET_RATIO)}",
+        f"all daily measures vs one-pass floor: {total.over_floor:.1f}x (target <= {TARGET_FLOOR:.0f}x): {mark(total.over_floor <= TARGET_FLOOR)}",
+        f"peak memory: {total.peak / GIB:.2f} GB (target < {TARGET_MEMORY_GB:.0f} GB at the default size"
+        + ("" if default_size else "; this run is not at the default size") + f"): {mark(total.peak / GIB < TARGET_MEMORY_GB)}",
+    ]
+    if gibbs is not None:
+        out.append(f"Gibbs sampler vs per-month loop: {gibbs.ratio:.0f}x (target >= {TARGET_GIBBS_RATIO:.0f}x): "
+                   f"{mark(gibbs.ratio >= TARGET_GIBBS_RATIO)}")
+    return out
+
+
+def machine() -> str:
+    memory = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / GIB
+    import polars as pl
+
+    return (f"{os.cpu_count()} cores, {memory:.0f} GB memory, Python {platform.python_version()}, "
+            f"polars {pl.__version__}, numpy {np.__version__}")
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="python -m bench.measures", description=__doc__.split("\n\n")[0])
+    p.add_argument("--securities", type=int, default=5000, help="securities in the synthetic panel (default 5000)")
+    p.add_argument("--years", type=float, default=5.0, help="years of business days, 252 a year (default 5)")
+    p.add_argument("--baseline-fraction", type=float, default=0.02,
+                   help="share of the securities the naive baseline runs on, its time scaled by rows (default 0.02)")
+    p.add_argument("--gibbs-fraction", type=float, default=0.05,
+                   help="share of the securities the Gibbs sampler runs on (default 0.05; 0 skips the Gibbs row)")
+    p.add_argument("--gibbs-months", type=int, default=40,
+                   help="security-months of the per-month Gibbs loop (default 40)")
+    p.add_argument("--sweeps", type=int, default=1000, help="Gibbs sweeps (default 1000, 20%% burn-in)")
+    p.add_argument("--repeat", type=int, default=3,
+                   help="runs of ours and of the floor, the fastest kept (default 3; the baseline runs once)")
+    p.add_argument("--workdir", default=None, help="folder for the panel (default: a temporary folder, removed)")
+    p.add_argument("--seed", type=int, default=20240601, help="seed of the synthetic panel and the subsamples")
+    return p
+
+
+def run(args: argparse.Namespace, echo=print, isolate=in_fresh_process) -> tuple[list[Row], list[str]]:
+    """Run every comparison; return the table rows and the verdict lines.
+
+    ``isolate(function, *args)`` runs each timed step (by default in a fresh
+    process; a smoke test may call the function directly).
+    """
+    from bench.measures_data import write_panel
+
+    if not 0.0 < args.baseline_fraction <= 1.0 or not 0.0 <= args.gibbs_fraction <= 1.0:
+        raise SystemExit("--baseline-fraction must lie in (0, 1] and --gibbs-fraction in [0, 1]")
+    workdir = Path(args.workdir or tempfile.mkdtemp(prefix="liqpanel-bench-"))
+    try:
+        path = str(workdir / f"daily_{args.securities}x{args.years:g}y.parquet")
+        started = time.perf_counter()
+        write_panel(path, args.securities, args.years, seed=args.seed)
+        echo(f"synthetic panel: {args.securities} securities x {args.years:g} years -> {path} "
+             f"({time.perf_counter() - started:.0f} s to write)")
+        names = [f"S{i:06d}" for i in range(args.securities)]
+        rng = np.random.default_rng(args.seed)
+        sample = sorted(rng.choice(names, max(1, round(args.baseline_fraction * len(names))), replace=False).tolist())
+        families = _families()
+        rows: list[Row] = []
+        baselines = 0.0
+        for family, members in [*families.items(), ("all daily measures", [n for m in families.values() for n in m])]:
+            ours, months, peak = fastest(isolate, args.repeat, _run_ours, path, members)
+            floor, _, _ = fastest(isolate, args.repeat, _run_floor, path, _columns_read(members))
+            if family == "all daily measures":
+                baseline = baselines  # the same computations as the families' baselines together
+            else:
+                naive, naive_rows, _ = isolate(_run_naive, path, members, sample)
+                baseline = naive * daily_rows(path) / naive_rows
+                baselines += baseline
+            rows.append(Row(family, len(members), daily_rows(path), ours, baseline, floor, peak))
+            echo(f"  {family}: ours {ours:.2f} s, baseline {baseline:.1f} s (scaled), floor {floor:.2f} s")
+        gibbs = None
+        if args.gibbs_fraction > 0:
+            burn = args.sweeps // 5
+            chosen = sorted(rng.choice(names, max(1, round(args.gibbs_fraction * len(names))), replace=False).tolist())
+            ours, months, peak = fastest(isolate, args.repeat, _run_gibbs, path, chosen, args.sweeps, burn)
+            loop, loop_months, _ = isolate(_run_naive_gibbs, path, chosen, args.gibbs_months, args.sweeps, burn)
+            gibbs = Row(f"gibbs ({args.sweeps} sweeps)", 1, months, ours, loop / loop_months * months, None, peak)
+            echo(f"  gibbs: ours {ours:.1f} s for {months} security-months, loop {loop:.1f} s for {loop_months}")
+        default_size = args.securities == 5000 and args.years == 5.0
+        return rows + ([gibbs] if gibbs else []), verdicts(rows[-1], gibbs, default_size)
+    finally:
+        if args.workdir is None:
+            shutil.rmtree(workdir, ignore_errors=True)
+
+
+def daily_rows(path: str) -> int:
+    import pyarrow.parquet as pq
+
+    return pq.ParquetFile(path).metadata.num_rows
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    print(f"machine: {machine()}")
+    rows, lines = run(args, echo=lambda text: print(text, flush=True))
+    print()
+    print(format_table(rows))
+    print("rows: daily rows (Gibbs: security-months sampled); ratio: baseline / ours; baseline scaled by rows")
+    print()
+    print("\n".join(lines))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

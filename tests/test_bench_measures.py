@@ -1,0 +1,76 @@
+"""The measures benchmark runs, and its naive baseline computes the same measures as the library.
+
+The benchmark's timings are not checked here (speed targets live in
+``bench/``); these tests keep its code from rotting on a size that runs in
+seconds. The naive baseline is an independent implementation of every daily
+measure in pandas and numpy (``np.linalg.lstsq`` for the Pastor & Stambaugh
+regression), written from the formulas in each measure's docstring, so its
+agreement with ``compute_monthly`` is also a cross-check of the library.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+import numpy as np
+import polars as pl
+import pytest
+
+from bench import measures as bench
+from bench import measures_naive as naive
+from bench.measures_data import write_panel
+from liqpanel.contracts import DAILY
+from liqpanel.measures import compute_monthly
+
+
+@pytest.fixture(scope="module")
+def panel(tmp_path_factory) -> str:
+    return str(write_panel(tmp_path_factory.mktemp("bench") / "daily.parquet", securities=12, years=0.5, seed=7))
+
+
+def test_synthetic_panel_follows_the_daily_contract(panel):
+    daily = pl.read_parquet(panel)
+    assert {c: daily.schema[c] for c in DAILY} == DAILY
+    assert daily.select("security", "date").is_unique().all()
+    # Prices are a daily bar: the high and low bound the open and the close (common practice).
+    assert (daily["high"] >= daily[["open", "close"]].max_horizontal()).all()
+    assert (daily["low"] <= daily[["open", "close"]].min_horizontal()).all()
+    assert daily["security"].n_unique() == 12
+    # Some months are short (listing) and some returns are exactly zero (one-cent tick).
+    assert (daily["ret"] == 0).sum() > 0
+    assert daily.group_by("security", "month").len()["len"].min() < 15
+
+
+def test_naive_baseline_equals_the_library(panel):
+    names = list(naive.FUNCTIONS)
+    _, rows, base = naive.time_monthly(panel, names)
+    ours = compute_monthly(pl.scan_parquet(panel), {n: None for n in names}).to_pandas()
+    assert rows == pl.read_parquet(panel).height
+    assert list(base["security"]) == list(ours["security"])
+    for name in names:
+        # Same missing months, same values up to rounding (ps_gamma: a least-squares
+        # solve against the library's centred normal equations).
+        a, b = base[name].to_numpy(float), ours[name].to_numpy(float)
+        assert np.isfinite(b).sum() > len(b) // 2, name
+        np.testing.assert_allclose(a, b, rtol=1e-8 if name == "ps_gamma" else 1e-11, atol=0, equal_nan=True,
+                                   err_msg=name)
+
+
+def test_benchmark_runs_on_a_tiny_panel_and_prints_every_family(tmp_path):
+    args = argparse.Namespace(securities=8, years=0.25, baseline_fraction=0.5, gibbs_fraction=0.5, gibbs_months=2,
+                              sweeps=20, repeat=1, workdir=str(tmp_path), seed=3)
+    rows, lines = bench.run(args, echo=lambda text: None, isolate=lambda f, *a: f(*a))
+    labels = [r.label for r in rows]
+    assert labels == [*bench._families(), "all daily measures", "gibbs (20 sweeps)"]
+    assert all(r.ours > 0 and r.peak > 0 for r in rows)
+    assert all(r.ratio > 0 for r in rows) and all(r.over_floor > 0 for r in rows[:-1])
+    assert rows[-2].baseline == pytest.approx(sum(r.baseline for r in rows[:-2]))
+    table = bench.format_table(rows)
+    assert all(label in table for label in labels)
+    assert len(lines) == 4 and lines[0].startswith("all daily measures vs naive baseline")
+
+
+def test_timed_steps_run_in_a_fresh_process(panel):
+    seconds, months, peak = bench.in_fresh_process(bench._run_floor, panel, ["close", "volume"])
+    assert seconds > 0 and peak > 0
+    assert months == pl.read_parquet(panel).select("security", "month").n_unique()
