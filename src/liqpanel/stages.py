@@ -240,7 +240,9 @@ def report(
         if entry["name"] == "regressions" and (models / "regressions_long.parquet").exists():
             # full-precision numbers in the CSV; the printed layout in LaTeX and Markdown
             frame, display = pl.read_parquet(models / "regressions_long.parquet"), frame
-            notes = rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), sources)
+            used = {v for m in config["models"]["regressions"] for v in m["regressors"]}
+            in_models = [n for n in measures if used & set(REGISTRY[n].outputs)]
+            notes = rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), rep.measure_sources(in_models))
         out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes)
     panel_frame = pl.read_parquet(panel_path)
     variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
@@ -265,7 +267,8 @@ def report(
         out.table(
             "spread_vs_truth", rep.spread_against_truth(monthly, truth, spread_outputs),
             caption="Spread estimates against the simulator's true spread", label="tab:truth",
-            notes=rep.join_notes("Proportional full spreads (0.01 = 1%)", sources),
+            notes=rep.join_notes("Proportional full spreads (0.01 = 1%)", rep.measure_sources(
+                [n for n in measures if REGISTRY[n].family == "spread"])),
         )
     if settings["figures"]:
         figures = build / "figures"
