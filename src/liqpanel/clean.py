@@ -63,7 +63,7 @@ from liqpanel.errors import ConfigError
 from liqpanel.intraday import prevailing_quotes
 from liqpanel.markets import local_clock, session_index
 from liqpanel.outliers import neighbourhood_outliers
-from liqpanel.readers import HELPER_COLUMNS, TRADES_SPEC, read_table
+from liqpanel.readers import HELPER_COLUMNS
 
 TRADE_RULES = (
     "unparseable", "missing_field", "outside_sample", "nonpositive", "outside_session", "excluded_venue",
@@ -79,11 +79,6 @@ MISSING_SECURITY = "(missing)"
 _ORDER = ["security", "ts", "_file", "_row"]
 TRADE_COLUMNS = ["security", "ts", "price", "size", "venue", "cond", "correction"]
 QUOTE_COLUMNS = ["security", "ts", "bid", "ask", "bid_size", "ask_size", "venue"]
-
-
-def read_trades(path: str, mapping: dict[str, str], market: dict) -> pl.LazyFrame:
-    """Scan a trade file (or glob) into the trades contract (``ts`` in UTC)."""
-    return read_table(path, mapping, TRADES_SPEC, market["timezone"]).frame
 
 
 def _with_helpers(frame: pl.LazyFrame) -> pl.LazyFrame:

@@ -11,30 +11,13 @@ CONVENTIONS = ("missing", "zero", "signed")
 SERIES = ("log_price", "return")
 
 
-def autocovariances(x: pl.Expr, by: list[str] = KEY) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
-    """gamma0, gamma1 and the count n of a series within each group.
-
-    gamma_k = (1/n) * sum_{t>k} (x_t - xbar)(x_{t-k} - xbar), the full-sample
-    mean and divisor n (the convention of ``statsmodels.tsa.stattools.acovf``,
-    adopted by this project). Nulls are skipped; the surviving observations are
-    treated as consecutive. Use inside ``group_by(by).agg``.
-    """
-    x = x.drop_nulls()
-    d = x - x.mean()
-    n = x.count()
-    gamma0 = (d * d).sum() / n
-    gamma1 = (d * d.shift(1)).sum() / n
-    return gamma0, gamma1, n
-
-
 def monthly_autocovariances(daily: pl.LazyFrame, x: pl.Expr) -> pl.LazyFrame:
     """gamma0, gamma1 and the count ``n_obs`` of a series within each security-month.
 
     gamma_k = (1/n) * sum_{t>k} (x_t - xbar)(x_{t-k} - xbar), the full-sample
     mean and divisor n (the convention of ``statsmodels.tsa.stattools.acovf``,
     adopted by this project). Nulls are skipped; the surviving observations are
-    treated as consecutive. Same values as ``autocovariances`` up to rounding,
-    faster on a large panel: the month's mean and each day's lagged deviation
+    treated as consecutive. The month's mean and each day's lagged deviation
     are columns of the daily frame, so the group-by needs only sums.
     """
     daily = in_security_date_order(daily).with_columns(x.alias("_x"))
