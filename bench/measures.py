@@ -8,7 +8,9 @@ times, each in a fresh process so that peak memory is the run's own (ours
 and the floor: the fastest of ``--repeat`` runs):
 
 - ours: ``liqpanel.measures.compute_monthly`` on a scan of the Parquet file,
-  the measures stage as the workflow runs it;
+  the measures stage as the workflow runs it (one sort check, one pass over
+  the rows computing every measure's per-day quantities, one sum per
+  quantity and security-month; ``liqpanel.measures.plan``);
 - the naive baseline: pandas ``groupby(...).apply`` of one plain function per
   measure and security-month (``bench.measures_naive``), on the securities
   of a random ``--baseline-fraction`` of the panel, its time scaled by rows
@@ -72,6 +74,19 @@ def _columns_read(names: list[str]) -> list[str]:
     needed = {c for n in names for c in REGISTRY[n].columns}
     needed = {"ret" if c == "mkt_ret" else c for c in needed}  # the market return is made from ret
     return sorted(needed)
+
+
+def pass_size(names: list[str]) -> tuple[int, int]:
+    """Per-day intermediate columns and distinct per-day sums the measures' plans compute in their one pass."""
+    from liqpanel.measures import REGISTRY, resolve_options
+    from liqpanel.measures.plan import _distinct, _steps
+
+    plans = {}
+    for name in names:
+        options = resolve_options(REGISTRY[name], None)
+        options.pop("min_days")
+        plans[name] = REGISTRY[name].plan(**options)
+    return sum(len(level) for level in _steps(plans)), len(_distinct(plans, "sums")[0])
 
 
 def _peak_bytes() -> int:
@@ -280,6 +295,10 @@ def main(argv: list[str] | None = None) -> int:
     print("rows: daily rows (Gibbs: security-months sampled); ratio: baseline / ours; baseline scaled by rows")
     print()
     print("\n".join(lines))
+    names = [n for members in _families().values() for n in members]
+    steps, sums = pass_size(names)
+    print(f"(one pass of the measures stage: {steps} per-day intermediate columns and {sums} per-day sums for "
+          f"{len(names)} measures; the floor sums {len(_columns_read(names))} columns)")
     return 0
 
 

@@ -16,7 +16,9 @@ from liqpanel.contracts import check_unique_key
 from liqpanel.errors import ConfigError
 from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
 from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
-from liqpanel.measures.neighbours import SORTED_MARK
+from liqpanel.measures.market import add_market_return
+from liqpanel.measures.neighbours import FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_MARK, month_flags
+from liqpanel.measures.plan import MONTH_ID, evaluate, prepare
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
 from liqpanel.partition import PREVIOUS_DAY, with_previous_day
 
@@ -27,19 +29,19 @@ def _needs_market_return(names: list[str]) -> bool:
     return any("mkt_ret" in REGISTRY[n].columns for n in names)
 
 
-def _sorted_once(daily: pl.LazyFrame) -> pl.LazyFrame:
-    """The daily table in (security, date) order, marked so that no measure sorts it again.
-
-    A table that arrives sorted (the workflow writes its daily files sorted)
-    is checked with one comparison of neighbouring rows instead of a sort.
-    """
-    frame = daily.collect(engine="in-memory")
-    security, date = pl.col("security"), pl.col("date")
-    ordered = (security.shift(-1) > security) | ((security.shift(-1) == security) & (date.shift(-1) > date))
-    last = pl.int_range(pl.len()) == pl.len() - 1
-    if not frame.select((ordered.fill_null(False) | last).all()).item():
-        frame = frame.sort("security", "date")
-    return frame.lazy().with_columns(pl.lit(True).alias(SORTED_MARK))
+def _finish(frame: pl.DataFrame, measure: Measure, min_days: int) -> pl.DataFrame:
+    """A measure's monthly frame with the minimum-days rule applied and its diagnostics renamed."""
+    if "reason" not in frame.columns:
+        frame = frame.with_columns(pl.lit(None, dtype=pl.String).alias("reason"))
+    too_few = pl.col("n_obs") < min_days
+    return frame.select(
+        *[pl.when(too_few).then(None).otherwise(pl.col(o)).cast(pl.Float64).alias(o) for o in measure.outputs],
+        pl.col("n_obs").cast(pl.Int64).alias(f"{measure.name}_n"),
+        pl.when(too_few)
+        .then(pl.format("too_few_days ({} < {})", pl.col("n_obs"), pl.lit(min_days)))
+        .otherwise(pl.col("reason"))
+        .alias(f"{measure.name}_reason"),
+    )
 
 
 def compute_monthly(
@@ -66,10 +68,8 @@ def compute_monthly(
     names = list(selection)
     measures = [get_measure(n) for n in names]
     available = set(daily.collect_schema().names())
-    if _needs_market_return(names) and "mkt_ret" not in available:
-        from liqpanel.measures.market import add_market_return
-
-        daily = add_market_return(daily)
+    add_market = _needs_market_return(names) and "mkt_ret" not in available
+    if add_market:
         previous = add_market_return(previous) if previous is not None else None
         available.add("mkt_ret")
     wants_previous_day = any(PREVIOUS_DAY in m.columns for m in measures)
@@ -82,30 +82,31 @@ def compute_monthly(
                 f"measure '{m.name}' needs daily column(s) {missing}, which the daily table lacks; "
                 "drop the measure from `measures:` or supply the column"
             )
-    daily = _sorted_once(daily)
-    with_previous = daily
-    if wants_previous_day:  # sorted by security, month and date: a lent day shares a date with a row of its own
-        with_previous = with_previous_day(daily.drop(SORTED_MARK), previous).with_columns(pl.lit(True).alias(SORTED_MARK))
-    result = daily.group_by(KEY).agg(pl.len().cast(pl.Int64).alias("n_days"))
-    for m in measures:
-        options = resolve_options(m, selection[m.name])
-        min_days = options.pop("min_days")
-        frame = m.function(with_previous if PREVIOUS_DAY in m.columns else daily, **options)
-        cols = frame.collect_schema().names()
-        if "reason" not in cols:
-            frame = frame.with_columns(pl.lit(None, dtype=pl.String).alias("reason"))
-        too_few = pl.col("n_obs") < min_days
-        frame = frame.select(
-            *KEY,
-            *[pl.when(too_few).then(None).otherwise(pl.col(o)).cast(pl.Float64).alias(o) for o in m.outputs],
-            pl.col("n_obs").cast(pl.Int64).alias(f"{m.name}_n"),
-            pl.when(too_few)
-            .then(pl.format("too_few_days ({} < {})", pl.col("n_obs"), pl.lit(min_days)))
-            .otherwise(pl.col("reason"))
-            .alias(f"{m.name}_reason"),
-        )
-        result = result.join(frame, on=KEY, how="left")
-    out = result.sort(KEY).collect(engine="in-memory")  # bit-stable floats run to run
+    prepared = prepare(daily)
+    if add_market:  # on the sorted table: the day's sums run in security order without another sort
+        prepared = add_market_return(prepared.lazy()).collect(engine="in-memory")
+    options = {m.name: resolve_options(m, selection[m.name]) for m in measures}
+    fused = [m for m in measures if m.plan is not None and PREVIOUS_DAY not in m.columns]
+    plans = {m.name: m.plan(**{k: v for k, v in options[m.name].items() if k != "min_days"}) for m in fused}
+    months, planned = evaluate(prepared, plans)
+    columns: dict[str, pl.DataFrame] = {
+        m.name: _finish(planned[m.name], m, options[m.name]["min_days"]) for m in fused
+    }
+    result = months
+    alone = [m for m in measures if m.name not in columns]
+    if alone:  # measures without a plan run one by one on the same sorted table
+        sorted_daily = prepared.drop(MONTH_ID).lazy()
+        with_previous = sorted_daily
+        if wants_previous_day:  # sorted by security, month and date: a lent day shares a date with a row of its own
+            own = sorted_daily.drop(SORTED_MARK, FIRST_OF_MONTH, LAST_OF_MONTH)
+            with_previous = month_flags(with_previous_day(own, previous))
+        for m in alone:
+            frame = m.function(with_previous if PREVIOUS_DAY in m.columns else sorted_daily,
+                               **{k: v for k, v in options[m.name].items() if k != "min_days"})
+            frame = frame.collect(engine="in-memory") if isinstance(frame, pl.LazyFrame) else frame
+            finished = pl.concat([frame.select(KEY), _finish(frame, m, options[m.name]["min_days"])], how="horizontal")
+            columns[m.name] = months.select(KEY).join(finished, on=KEY, how="left", maintain_order="left").drop(KEY)
+    out = pl.concat([result, *[columns[n] for n in names]], how="horizontal")
     return check_unique_key(out, KEY, table="monthly measures")
 
 

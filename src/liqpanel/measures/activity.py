@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import polars as pl
 
+from liqpanel.measures.plan import Plan, missing_reason, run_plan
+
 KEY = ["security", "month"]
 
 
@@ -18,16 +20,18 @@ def amihud_illiquidity(daily: pl.LazyFrame, *, scale: float = 1e6, **_) -> pl.La
     Outputs: ``amihud``, ``n_obs`` (days used), ``reason`` ("zero_volume" when
     no day has positive dollar volume).
     """
+    return run_plan(daily, amihud_plan(scale=scale))
+
+
+def amihud_plan(*, scale: float = 1e6, **_) -> Plan:
+    """The plan of ``amihud_illiquidity``."""
     valid = (pl.col("dollar_volume") > 0) & pl.col("ret").is_not_null()
-    ratio = pl.col("ret").abs() / pl.col("dollar_volume")
-    return (
-        daily.group_by(KEY)
-        .agg(
-            (ratio.filter(valid).mean() * scale).alias("amihud"),
-            valid.sum().cast(pl.Int64).alias("n_obs"),
-        )
-        .with_columns(
-            pl.when(pl.col("n_obs") == 0).then(pl.lit("zero_volume")).otherwise(None).cast(pl.String).alias("reason")
-        )
-        .sort(KEY)
+    n = pl.col("n")
+    return Plan(
+        sums={"sum": pl.when(valid).then(pl.col("ret").abs() / pl.col("dollar_volume")), "n": valid},
+        monthly=(
+            pl.when(n > 0).then(pl.col("sum") / n * scale).alias("amihud"),
+            n.cast(pl.Int64).alias("n_obs"),
+            missing_reason(n == 0, "zero_volume"),
+        ),
     )

@@ -12,29 +12,39 @@ minimum-days rule applies as for every other measure.
 
 from __future__ import annotations
 
+from functools import partial
+
 import polars as pl
 
+from liqpanel.measures.plan import Plan, missing_reason, run_plan
 from liqpanel.measures.registry import Measure, register
 
 KEY = ["security", "month"]
 
 
-def _mean_of_days(daily: pl.LazyFrame, column: str, extra: dict[str, pl.Expr] | None = None) -> pl.LazyFrame:
-    outputs = {column: pl.col(column).mean()}
-    weighted = f"{column}_size_weighted"
-    if weighted in daily.collect_schema().names():
-        outputs[weighted] = pl.col(weighted).mean()
-    return (
-        daily.group_by(KEY)
-        .agg(
-            *[expr.alias(name) for name, expr in outputs.items()],
-            *[expr.alias(name) for name, expr in (extra or {}).items()],
-            pl.col(column).is_not_null().sum().cast(pl.Int64).alias("n_obs"),
-        )
-        .with_columns(
-            pl.when(pl.col("n_obs") == 0).then(pl.lit("no_quoted_trades")).otherwise(None).cast(pl.String).alias("reason")
-        )
+def mean_of_days_plan(column: str, *, weighted: bool = True, extra_sums: tuple[str, ...] = ()) -> Plan:
+    """The monthly mean of a daily column (and of its size-weighted twin) over the days it exists.
+
+    ``extra_sums`` names daily columns whose monthly totals are outputs too.
+    """
+    means = [column, *([f"{column}_size_weighted"] if weighted else [])]
+    n = pl.col("n")
+    return Plan(
+        sums={"n": pl.col(column).is_not_null(), **{name: pl.col(name) for name in (*means, *extra_sums)},
+              **{f"{name}_n": pl.col(name).is_not_null() for name in means[1:]}},
+        monthly=(
+            pl.when(n > 0).then(pl.col(column) / n).alias(column),
+            *[pl.when(pl.col(f"{name}_n") > 0).then(pl.col(name) / pl.col(f"{name}_n")).alias(name) for name in means[1:]],
+            *[pl.col(name) for name in extra_sums],
+            n.cast(pl.Int64).alias("n_obs"),
+            missing_reason(n == 0, "no_quoted_trades"),
+        ),
     )
+
+
+def _mean_of_days(daily: pl.LazyFrame, column: str, extra_sums: tuple[str, ...] = ()) -> pl.LazyFrame:
+    weighted = f"{column}_size_weighted" in daily.collect_schema().names()
+    return run_plan(daily, mean_of_days_plan(column, weighted=weighted, extra_sums=extra_sums))
 
 
 def effective_spread(daily: pl.LazyFrame, **_) -> pl.LazyFrame:
@@ -91,8 +101,7 @@ def realized_variance(daily: pl.LazyFrame, **_) -> pl.LazyFrame:
     ``realized_variance`` and ``realized_variance_returns`` (grid returns
     used over the month).
     """
-    extra = {"realized_variance_returns": pl.col("realized_variance_returns").sum().cast(pl.Float64)}
-    return _mean_of_days(daily, "realized_variance", extra)
+    return _mean_of_days(daily, "realized_variance", ("realized_variance_returns",))
 
 
 HUANG_STOLL = "Huang & Stoll (1996), Journal of Financial Economics 41(3) (from memory)"
@@ -102,6 +111,7 @@ def _spread_measure(name, function, family, description, source=HUANG_STOLL) -> 
     return Measure(
         name=name,
         function=function,
+        plan=partial(mean_of_days_plan, name),
         outputs=(name, f"{name}_size_weighted"),
         columns=(name, f"{name}_size_weighted"),
         source=source,
@@ -119,6 +129,7 @@ register(
     Measure(
         name="realized_variance",
         function=realized_variance,
+        plan=partial(mean_of_days_plan, "realized_variance", weighted=False, extra_sums=("realized_variance_returns",)),
         outputs=("realized_variance", "realized_variance_returns"),
         columns=("realized_variance", "realized_variance_returns"),
         source="Andersen & Bollerslev (1998), International Economic Review 39(4) (from memory)",

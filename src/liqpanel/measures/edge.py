@@ -5,7 +5,8 @@ from __future__ import annotations
 import polars as pl
 
 from liqpanel.contracts import require_columns
-from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
+from liqpanel.measures.neighbours import previous_in_month
+from liqpanel.measures.plan import Plan, log_of, run_plan
 
 KEY = ["security", "month"]
 
@@ -52,76 +53,105 @@ def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
     Output ``edge_spread``; ``n_obs`` days with a previous day in the month.
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    O, H, L, C = pl.col("open"), pl.col("high"), pl.col("low"), pl.col("close")
-    H1, L1, C1 = previous_in_month(H), previous_in_month(L), previous_in_month(C)
-    o, h, l = O.log(), H.log(), L.log()
-    c1 = C1.log()
-    eta = (h + l) / 2.0
-    eta1 = (H1.log() + L1.log()) / 2.0
-    valid = pl.all_horizontal([x.is_not_null() for x in (O, H, L, C1, H1, L1)])
+    return run_plan(daily, edge_plan(signed=signed))
+
+
+def _quadratic_mean(coefficients: list[pl.Expr], names: list[str]) -> pl.Expr:
+    """sum_ij a_i a_j sum(u_i u_j) / n from the monthly sums ``names[i]*names[j]`` (products stored once)."""
+    total = pl.lit(0.0)
+    for i, a in enumerate(coefficients):
+        for j, b in enumerate(coefficients):
+            first, second = sorted((names[i], names[j]))
+            total = total + a * b * pl.col(f"{first}*{second}")
+    return total / pl.col("n")
+
+
+def edge_plan(*, signed: bool = False) -> Plan:
+    """The plan of ``edge_spread``: the estimator written in monthly sums.
+
+    With the month's constants A = -4/po, B = -4/pc and k_j = mean(r_j)/pt,
+    x1 = A (r1 r2 - k1 tau r2) + B (r3 r4 - k3 tau r4) and
+    x2 = A (r1 r5 - k1 tau r5) + B (r5 r4 - k5 tau r4), so the means and
+    variances of x1 and x2 follow from the monthly sums of the four products
+    in each and of their pairwise products.
+    """
+    O, H, L = pl.col("open"), pl.col("high"), pl.col("low")
+    H1, L1, C1 = pl.col("_edge_high_prev"), pl.col("_edge_low_prev"), pl.col("_edge_close_prev")
+    o, c1 = log_of("open"), pl.col("_edge_log_close_prev")
+    eta, eta1 = pl.col("_edge_eta"), pl.col("_edge_eta_prev")
+    valid = pl.col("_edge_valid")
 
     def masked(expr: pl.Expr) -> pl.Expr:
         return pl.when(valid).then(expr).otherwise(None)
 
-    tau = ((H != L) | (L != C1)).cast(pl.Float64)
-    frame = daily.with_columns(
-        masked(eta - o).alias("_r1"),
-        masked(o - eta1).alias("_r2"),
-        masked(eta - c1).alias("_r3"),
-        masked(c1 - eta1).alias("_r4"),
-        masked(o - c1).alias("_r5"),
-        masked(tau).alias("_tau"),
-        masked(tau * (O != H).cast(pl.Float64)).alias("_po1"),
-        masked(tau * (O != L).cast(pl.Float64)).alias("_po2"),
-        masked(tau * (C1 != H1).cast(pl.Float64)).alias("_pc1"),
-        masked(tau * (C1 != L1).cast(pl.Float64)).alias("_pc2"),
+    names = ("r1", "r2", "r3", "r4", "r5", "tau")
+    steps = (
+        {
+            "_edge_high_prev": previous_in_month(H),
+            "_edge_low_prev": previous_in_month(L),
+            "_edge_close_prev": previous_in_month(pl.col("close")),
+            "_edge_log_close_prev": previous_in_month(log_of("close")),
+            "_edge_eta": (log_of("high") + log_of("low")) / 2.0,
+        },
+        {
+            "_edge_eta_prev": previous_in_month(eta),
+            "_edge_valid": pl.all_horizontal([x.is_not_null() for x in (O, H, L, C1, H1, L1)]),
+        },
+        {
+            f"_edge_{name}": masked(expr)
+            for name, expr in zip(names, (eta - o, o - eta1, eta - c1, c1 - eta1, o - c1,
+                                          ((H != L) | (L != C1)).cast(pl.Float64)))
+        },
     )
-    # The month's means as window columns, so that the aggregation below needs
-    # only plain means, variances and sums (the fast path of the group-by).
-    tau_col = pl.col("_tau")
-    frame = frame.with_columns(
-        tau_col.mean().over(KEY).alias("_pt"),
-        (pl.col("_po1").mean() + pl.col("_po2").mean()).over(KEY).alias("_po"),
-        (pl.col("_pc1").mean() + pl.col("_pc2").mean()).over(KEY).alias("_pc"),
-        *[pl.col(r).mean().over(KEY).alias(f"{r}_mean") for r in ("_r1", "_r3", "_r5")],
-    )
-    po, pc = pl.col("_po"), pl.col("_pc")
-    d1, d3, d5 = (pl.col(r) - tau_col * pl.col(f"{r}_mean") / pl.col("_pt") for r in ("_r1", "_r3", "_r5"))
-    r2, r4, r5 = pl.col("_r2"), pl.col("_r4"), pl.col("_r5")
-    frame = frame.with_columns(
-        (-4.0 / po * d1 * r2 - 4.0 / pc * d3 * r4).alias("_x1"),
-        (-4.0 / po * d1 * r5 - 4.0 / pc * d5 * r4).alias("_x2"),
-    )
-    x1, x2 = pl.col("_x1"), pl.col("_x2")
-    monthly = frame.group_by(KEY, maintain_order=True).agg(
-        x1.mean().alias("_e1"),
-        x2.mean().alias("_e2"),
-        x1.var(ddof=0).alias("_v1"),
-        x2.var(ddof=0).alias("_v2"),
-        tau_col.sum().alias("_n_tau"),
-        po.first().alias("_po"),
-        pc.first().alias("_pc"),
-        tau_col.count().cast(pl.Int64).alias("n_obs"),
-    )
-    e1, e2, v1, v2 = pl.col("_e1"), pl.col("_e2"), pl.col("_v1"), pl.col("_v2")
+    r1, r2, r3, r4, r5, tau = (pl.col(f"_edge_{name}") for name in names)
+    products = {"r1r2": r1 * r2, "tr2": tau * r2, "r3r4": r3 * r4, "tr4": tau * r4,
+                "r1r5": r1 * r5, "tr5": tau * r5, "r5r4": r5 * r4}
+    in_x1, in_x2 = ["r1r2", "tr2", "r3r4", "tr4"], ["r1r5", "tr5", "r5r4", "tr4"]
+    steps = (*steps, {f"_edge_{name}": expr for name, expr in products.items()})
+    products = {name: pl.col(f"_edge_{name}") for name in products}
+    sums: dict[str, pl.Expr] = {
+        "n": valid,
+        "tau": tau,
+        "po": tau * ((O != H).cast(pl.Float64) + (O != L).cast(pl.Float64)),
+        "pc": tau * ((C1 != H1).cast(pl.Float64) + (C1 != L1).cast(pl.Float64)),
+        "r1": r1, "r3": r3, "r5": r5,
+        **products,
+    }
+    for group in (in_x1, in_x2):
+        for i, first in enumerate(group):
+            for second in group[i:]:
+                a, b = sorted((first, second))
+                sums[f"{a}*{b}"] = products[a] * products[b]
+    n = pl.col("n")
+    pt, po, pc = pl.col("tau") / n, pl.col("po") / n, pl.col("pc") / n
+    A, B = -4.0 / po, -4.0 / pc
+    k1, k3, k5 = (pl.col(r) / n / pt for r in ("r1", "r3", "r5"))
+    a1 = [A, -A * k1, B, -B * k3]
+    a2 = [A, -A * k1, B, -B * k5]
+    e1 = sum((a * pl.col(name) for a, name in zip(a1, in_x1)), pl.lit(0.0)) / n
+    e2 = sum((a * pl.col(name) for a, name in zip(a2, in_x2)), pl.lit(0.0)) / n
+    v1 = _quadratic_mean(a1, in_x1) - e1 * e1
+    v2 = _quadratic_mean(a2, in_x2) - e2 * e2
     s2 = pl.when(v1 + v2 > 0).then((v2 * e1 + v1 * e2) / (v1 + v2)).otherwise((e1 + e2) / 2.0)
     spread = s2.abs().sqrt()
     if signed:
         spread = spread * s2.sign()
     reason = (
-        pl.when(pl.col("n_obs") == 0).then(pl.lit("no_consecutive_days"))
-        .when(pl.col("_n_tau") < 2).then(pl.lit("too_few_moving_days"))
-        .when((pl.col("_po") == 0) | (pl.col("_pc") == 0)).then(pl.lit("no_range"))
+        pl.when(n == 0).then(pl.lit("no_consecutive_days"))
+        .when(pl.col("tau") < 2).then(pl.lit("too_few_moving_days"))
+        .when((pl.col("po") == 0) | (pl.col("pc") == 0)).then(pl.lit("no_range"))
         .otherwise(None)
         .cast(pl.String)
     )
-    return (
-        monthly.with_columns(reason.alias("reason"))
-        .with_columns(pl.when(pl.col("reason").is_null()).then(spread).otherwise(None).cast(pl.Float64).alias("edge_spread"))
-        .select(*KEY, "edge_spread", "n_obs", "reason")
-        .sort(KEY)
+    return Plan(
+        steps=steps,
+        sums=sums,
+        monthly=(
+            pl.when(reason.is_null()).then(spread).otherwise(None).cast(pl.Float64).alias("edge_spread"),
+            n.cast(pl.Int64).alias("n_obs"),
+            reason.alias("reason"),
+        ),
     )
 
 
-__all__ = ["edge_spread"]
+__all__ = ["edge_plan", "edge_spread"]

@@ -18,7 +18,8 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
-from liqpanel.measures.neighbours import in_security_date_order, next_in_month
+from liqpanel.measures.neighbours import next_in_month
+from liqpanel.measures.plan import Plan, log_of, missing_reason, run_plan
 
 KEY = ["security", "month"]
 NEGATIVE_CHOICES = ("zero", "keep")
@@ -29,16 +30,10 @@ def _next_in_month(col: str) -> pl.Expr:
     return next_in_month(pl.col(col))
 
 
-def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
-    """The two-day Corwin-Schultz spread S_t for each day t with a next day in the month.
-
-    Adds the columns ``cs_beta``, ``cs_gamma``, ``cs_alpha`` and ``cs_two_day``
-    (null on a month's last day). See ``corwin_schultz_spread`` for the formula.
-    """
-    require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
+def _cs_steps() -> tuple[dict[str, pl.Expr], ...]:
+    """Per-day columns of the two-day Corwin-Schultz spread S_t (``_cs_two_day``, null on a month's last day)."""
     high0, low0, close0 = pl.col("high"), pl.col("low"), pl.col("close")
-    high1, low1 = _next_in_month("high"), _next_in_month("low")
+    high1, low1 = pl.col("_cs_high_next"), pl.col("_cs_low_next")
     # Overnight adjustment (Corwin & Schultz 2012, their treatment of overnight returns), in price levels:
     # a next-day low above today's close, or a next-day high below it, is a
     # price move outside the trading hours; shift day t+1's range by the gap.
@@ -47,14 +42,50 @@ def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
         .when(high1 < close0).then(high1 - close0)
         .otherwise(0.0)
     )
-    high1 = high1 - gap
-    low1 = low1 - gap
-    beta = (high0 / low0).log() ** 2 + (high1 / low1).log() ** 2
-    gamma = (pl.max_horizontal(high0, high1) / pl.min_horizontal(low0, low1)).log() ** 2
-    gamma = pl.when(high1.is_null() | low1.is_null()).then(None).otherwise(gamma)
-    alpha = ((2.0 * pl.col("cs_beta")).sqrt() - pl.col("cs_beta").sqrt()) / _K - (pl.col("cs_gamma") / _K).sqrt()
-    return daily.with_columns(cs_beta=beta, cs_gamma=gamma).with_columns(cs_alpha=alpha).with_columns(
-        cs_two_day=2.0 * (pl.col("cs_alpha").exp() - 1.0) / (1.0 + pl.col("cs_alpha").exp())
+    high1a, low1a = pl.col("_cs_high_adj"), pl.col("_cs_low_adj")
+    beta, gamma, alpha = pl.col("_cs_beta"), pl.col("_cs_gamma"), pl.col("_cs_alpha")
+    return (
+        {"_cs_high_next": _next_in_month("high"), "_cs_low_next": _next_in_month("low")},
+        {"_cs_gap": gap},
+        {"_cs_high_adj": high1 - pl.col("_cs_gap"), "_cs_low_adj": low1 - pl.col("_cs_gap")},
+        {
+            "_cs_beta": (log_of("high") - log_of("low")) ** 2 + (high1a / low1a).log() ** 2,
+            "_cs_gamma": (pl.max_horizontal(high0, high1a) / pl.min_horizontal(low0, low1a)).log() ** 2,
+        },
+        {"_cs_alpha": ((2.0 * beta).sqrt() - beta.sqrt()) / _K - (gamma / _K).sqrt()},
+        {"_cs_two_day": 2.0 * (alpha.exp() - 1.0) / (1.0 + alpha.exp())},
+    )
+
+
+def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
+    """The daily table with ``cs_two_day``, the two-day Corwin-Schultz spread S_t (null on a month's last day).
+
+    See ``corwin_schultz_spread`` for the formula.
+    """
+    require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
+    from liqpanel.measures.plan import prepare
+
+    table = prepare(daily).lazy()
+    for step in _cs_steps():
+        table = table.with_columns(**step)
+    return table.with_columns(pl.col("_cs_two_day").alias("cs_two_day"))
+
+
+def corwin_schultz_plan(*, negative: str = "zero") -> Plan:
+    """The plan of ``corwin_schultz_spread`` (see there)."""
+    if negative not in NEGATIVE_CHOICES:
+        raise ConfigError(f"measure 'cs_spread': option `negative` must be one of {NEGATIVE_CHOICES}, got {negative!r}")
+    two_day = pl.col("_cs_two_day")
+    if negative == "zero":
+        two_day = two_day.clip(lower_bound=0.0)
+    return Plan(
+        steps=_cs_steps(),
+        sums={"sum": two_day, "n": two_day.is_not_null()},
+        monthly=(
+            pl.when(pl.col("n") > 0).then(pl.col("sum") / pl.col("n")).alias("cs_spread"),
+            pl.col("n").cast(pl.Int64).alias("n_obs"),
+            missing_reason(pl.col("n") == 0, "no_consecutive_days"),
+        ),
     )
 
 
@@ -91,38 +122,46 @@ def corwin_schultz_spread(daily: pl.LazyFrame, *, negative: str = "zero") -> pl.
     Output ``cs_spread`` (proportional full spread); ``n_obs`` the number of
     two-day pairs; ``reason`` "no_consecutive_days" when the month has no pair.
     """
-    if negative not in NEGATIVE_CHOICES:
-        raise ConfigError(f"measure 'cs_spread': option `negative` must be one of {NEGATIVE_CHOICES}, got {negative!r}")
-    pieces = corwin_schultz_pieces(daily)
-    two_day = pl.col("cs_two_day")
-    if negative == "zero":
-        two_day = two_day.clip(lower_bound=0.0)
-    return (
-        pieces.group_by(KEY, maintain_order=True)
-        .agg(two_day.mean().alias("cs_spread"), two_day.count().cast(pl.Int64).alias("n_obs"))
-        .with_columns(_reason_no_pairs())
-        .select(*KEY, "cs_spread", "n_obs", "reason")
-        .sort(KEY)
-    )
+    require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
+    return run_plan(daily, corwin_schultz_plan(negative=negative))
 
 
-def _reason_no_pairs() -> pl.Expr:
-    return (
-        pl.when(pl.col("n_obs") == 0).then(pl.lit("no_consecutive_days")).otherwise(None).cast(pl.String).alias("reason")
-    )
+def _ar_piece() -> pl.Expr:
+    """s_t^2 = 4 (c_t - eta_t)(c_t - eta_{t+1}) in log prices, eta = (h + l) / 2; null on a month's last day."""
+    eta = (log_of("high") + log_of("low")) / 2.0
+    close = log_of("close")
+    return 4.0 * (close - eta) * (close - next_in_month(eta))
 
 
 def abdi_ranaldo_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
-    """The two-day Abdi-Ranaldo piece s_t^2 = 4 (c_t - eta_t)(c_t - eta_{t+1}) per day.
-
-    Adds ``ar_piece`` (null on a month's last day); log prices, eta = (h + l) / 2.
-    """
+    """The daily table with ``ar_piece``, the two-day Abdi-Ranaldo piece (null on a month's last day)."""
     require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    eta = ((pl.col("high").log() + pl.col("low").log()) / 2.0)
-    close = pl.col("close").log()
-    eta_next = next_in_month(eta)
-    return daily.with_columns(ar_piece=4.0 * (close - eta) * (close - eta_next))
+    from liqpanel.measures.plan import prepare
+
+    return prepare(daily).lazy().with_columns(_ar_piece().alias("ar_piece"))
+
+
+def _ar_plan(estimate: pl.Expr, name: str) -> Plan:
+    piece = _ar_piece()
+    n = pl.col("n")
+    return Plan(
+        sums={"sum": piece, "sum_root": piece.clip(lower_bound=0.0).sqrt(), "n": piece.is_not_null()},
+        monthly=(
+            pl.when(n > 0).then(estimate).alias(name),
+            n.cast(pl.Int64).alias("n_obs"),
+            missing_reason(n == 0, "no_consecutive_days"),
+        ),
+    )
+
+
+def abdi_ranaldo_two_day_plan() -> Plan:
+    """The plan of ``abdi_ranaldo_two_day_spread``: the mean of the floored square roots."""
+    return _ar_plan(pl.col("sum_root") / pl.col("n"), "ar_spread_2day")
+
+
+def abdi_ranaldo_monthly_plan() -> Plan:
+    """The plan of ``abdi_ranaldo_monthly_spread``: the floored square root of the mean piece."""
+    return _ar_plan((pl.col("sum") / pl.col("n")).clip(lower_bound=0.0).sqrt(), "ar_spread_monthly")
 
 
 def abdi_ranaldo_two_day_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
@@ -149,8 +188,8 @@ def abdi_ranaldo_two_day_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
     Output ``ar_spread_2day``; ``n_obs`` pairs used; ``reason``
     "no_consecutive_days" when the month has no pair.
     """
-    piece = pl.col("ar_piece")
-    return _monthly_from_pieces(daily, piece.clip(lower_bound=0.0).sqrt().mean(), "ar_spread_2day")
+    require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
+    return run_plan(daily, abdi_ranaldo_two_day_plan())
 
 
 def abdi_ranaldo_monthly_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
@@ -168,26 +207,17 @@ def abdi_ranaldo_monthly_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
     Output ``ar_spread_monthly``; ``n_obs`` pairs used; ``reason``
     "no_consecutive_days" when the month has no pair.
     """
-    piece = pl.col("ar_piece")
-    return _monthly_from_pieces(daily, piece.mean().clip(lower_bound=0.0).sqrt(), "ar_spread_monthly")
-
-
-def _monthly_from_pieces(daily: pl.LazyFrame, estimate: pl.Expr, name: str) -> pl.LazyFrame:
-    """Aggregate the Abdi-Ranaldo two-day pieces of each month with ``estimate``."""
-    return (
-        abdi_ranaldo_pieces(daily)
-        .group_by(KEY, maintain_order=True)
-        .agg(estimate.alias(name), pl.col("ar_piece").count().cast(pl.Int64).alias("n_obs"))
-        .with_columns(_reason_no_pairs())
-        .select(*KEY, name, "n_obs", "reason")
-        .sort(KEY)
-    )
+    require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
+    return run_plan(daily, abdi_ranaldo_monthly_plan())
 
 
 __all__ = [
+    "abdi_ranaldo_monthly_plan",
     "abdi_ranaldo_monthly_spread",
+    "abdi_ranaldo_two_day_plan",
     "abdi_ranaldo_pieces",
     "abdi_ranaldo_two_day_spread",
     "corwin_schultz_pieces",
+    "corwin_schultz_plan",
     "corwin_schultz_spread",
 ]

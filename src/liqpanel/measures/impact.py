@@ -6,60 +6,41 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
-from liqpanel.measures.neighbours import in_security_date_order, next_in_month
+from liqpanel.measures.neighbours import next_in_month
+from liqpanel.measures.plan import Plan, missing_reason, month_shifted, run_plan
 
 KEY = ["security", "month"]
 CALENDARS = ("market", "security")
 
 
-def _zero_return_counts(daily: pl.LazyFrame, calendar: str) -> pl.LazyFrame:
-    """Per security-month: days counted, zero-return days, zero-return days with volume."""
+def _zero_share_plan(calendar: str, output: str, traded: bool) -> Plan:
     if calendar not in CALENDARS:
-        raise ConfigError(f"measure 'zero_return_share': option `calendar` must be one of {CALENDARS}, got {calendar!r}")
-    require_columns(daily, ["security", "month", "date", "ret", "volume"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
+        raise ConfigError(f"measure '{output}': option `calendar` must be one of {CALENDARS}, got {calendar!r}")
     ret = pl.col("ret")
-    counts = daily.group_by(KEY, maintain_order=True).agg(
-        pl.len().cast(pl.Int64).alias("_rows"),
-        ret.is_null().sum().cast(pl.Int64).alias("_no_ret"),
-        (ret == 0).sum().cast(pl.Int64).alias("_zero"),
-        ((ret == 0) & (pl.col("volume") > 0)).sum().cast(pl.Int64).alias("_zero_traded"),
+    no_trade = (
+        (pl.col("market_days") - pl.col("n_days")).clip(lower_bound=0) if calendar == "market" else pl.lit(0, dtype=pl.Int64)
     )
-    if calendar == "security":
-        return counts.with_columns(pl.lit(0, dtype=pl.Int64).alias("_no_trade"))
-    days = daily.select("date", "month").unique().sort("date").with_row_index("_day")
-    month_span = days.group_by("month").agg(pl.col("_day").min().alias("_m_first"), pl.col("_day").max().alias("_m_last"))
-    listed = (
-        daily.group_by("security")
-        .agg(pl.col("date").min().alias("_first_date"), pl.col("date").max().alias("_last_date"))
-        .join(days.select(pl.col("date").alias("_first_date"), pl.col("_day").alias("_s_first")), on="_first_date", how="left")
-        .join(days.select(pl.col("date").alias("_last_date"), pl.col("_day").alias("_s_last")), on="_last_date", how="left")
-        .select("security", "_s_first", "_s_last")
-    )
-    market_days = (
-        pl.min_horizontal(pl.col("_s_last"), pl.col("_m_last")).cast(pl.Int64)
-        - pl.max_horizontal(pl.col("_s_first"), pl.col("_m_first")).cast(pl.Int64)
-        + 1
-    )
-    return (
-        counts.join(month_span, on="month", how="left")
-        .join(listed, on="security", how="left")
-        .with_columns((market_days - pl.col("_rows")).clip(lower_bound=0).alias("_no_trade"))
+    n_obs = pl.col("n_days") + no_trade - pl.col("no_ret").cast(pl.Int64)
+    numerator = pl.col("zero_traded") if traded else pl.col("zero") + no_trade
+    return Plan(
+        sums={"no_ret": ret.is_null(), "zero": ret == 0, "zero_traded": (ret == 0) & (pl.col("volume") > 0)},
+        monthly=(
+            pl.when(n_obs > 0).then(numerator.cast(pl.Float64) / n_obs).otherwise(None).alias(output),
+            n_obs.alias("n_obs"),
+            missing_reason(n_obs <= 0, "no_returns"),
+        ),
+        context=("market_days",) if calendar == "market" else (),
     )
 
 
-def _zero_share(daily: pl.LazyFrame, calendar: str, numerator: pl.Expr, output: str) -> pl.LazyFrame:
-    n_obs = pl.col("_rows") + pl.col("_no_trade") - pl.col("_no_ret")
-    return (
-        _zero_return_counts(daily, calendar)
-        .with_columns(n_obs.alias("n_obs"))
-        .with_columns(
-            pl.when(pl.col("n_obs") > 0).then(numerator.cast(pl.Float64) / pl.col("n_obs")).otherwise(None).alias(output),
-            pl.when(pl.col("n_obs") > 0).then(None).otherwise(pl.lit("no_returns")).cast(pl.String).alias("reason"),
-        )
-        .select(*KEY, output, "n_obs", "reason")
-        .sort(KEY)
-    )
+def zero_return_share_plan(*, calendar: str = "market") -> Plan:
+    """The plan of ``zero_return_share``."""
+    return _zero_share_plan(calendar, "zero_return_share", traded=False)
+
+
+def zero_return_share_traded_plan(*, calendar: str = "market") -> Plan:
+    """The plan of ``zero_return_share_traded``."""
+    return _zero_share_plan(calendar, "zero_return_share_traded", traded=True)
 
 
 def zero_return_share(daily: pl.LazyFrame, *, calendar: str = "market") -> pl.LazyFrame:
@@ -84,7 +65,8 @@ def zero_return_share(daily: pl.LazyFrame, *, calendar: str = "market") -> pl.La
     Output ``zero_return_share``; ``n_obs`` days counted; ``reason``
     "no_returns" when none.
     """
-    return _zero_share(daily, calendar, pl.col("_zero") + pl.col("_no_trade"), "zero_return_share")
+    require_columns(daily, ["security", "month", "date", "ret", "volume"], table="daily")
+    return run_plan(daily, zero_return_share_plan(calendar=calendar))
 
 
 def zero_return_share_traded(daily: pl.LazyFrame, *, calendar: str = "market") -> pl.LazyFrame:
@@ -99,7 +81,8 @@ def zero_return_share_traded(daily: pl.LazyFrame, *, calendar: str = "market") -
 
     Output ``zero_return_share_traded``; ``n_obs`` days counted.
     """
-    return _zero_share(daily, calendar, pl.col("_zero_traded"), "zero_return_share_traded")
+    require_columns(daily, ["security", "month", "date", "ret", "volume"], table="daily")
+    return run_plan(daily, zero_return_share_traded_plan(calendar=calendar))
 
 
 def turnover(daily: pl.LazyFrame) -> pl.LazyFrame:
@@ -116,21 +99,20 @@ def turnover(daily: pl.LazyFrame) -> pl.LazyFrame:
     "no_shares_out" when no day of the month has a positive shares_out.
     """
     require_columns(daily, ["security", "month", "date", "volume", "shares_out"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    shares = pl.when(pl.col("shares_out") > 0).then(pl.col("shares_out"))
-    return (
-        daily.group_by(KEY, maintain_order=True)
-        .agg(
-            pl.col("volume").sum().alias("_volume"),
-            shares.sort_by("date").drop_nulls().last().alias("_shares"),
-            pl.col("volume").count().cast(pl.Int64).alias("n_obs"),
-        )
-        .with_columns(
-            (pl.col("_volume") / pl.col("_shares")).alias("turnover"),
-            pl.when(pl.col("_shares").is_null()).then(pl.lit("no_shares_out")).otherwise(None).cast(pl.String).alias("reason"),
-        )
-        .select(*KEY, "turnover", "n_obs", "reason")
-        .sort(KEY)
+    return run_plan(daily, turnover_plan())
+
+
+def turnover_plan() -> Plan:
+    """The plan of ``turnover``."""
+    shares = pl.col("shares")
+    return Plan(
+        sums={"volume": pl.col("volume"), "n": pl.col("volume").is_not_null()},
+        lasts={"shares": pl.when(pl.col("shares_out") > 0).then(pl.col("shares_out"))},
+        monthly=(
+            (pl.col("volume") / shares).alias("turnover"),
+            pl.col("n").cast(pl.Int64).alias("n_obs"),
+            missing_reason(shares.is_null(), "no_shares_out"),
+        ),
     )
 
 
@@ -165,53 +147,60 @@ def pastor_stambaugh_gamma(daily: pl.LazyFrame, *, dollar_volume_unit: float = 1
     correlation between them above 1 - 1e-8.
     """
     require_columns(daily, ["security", "month", "date", "ret", "mkt_ret", "dollar_volume"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
+    return run_plan(daily, pastor_stambaugh_plan(dollar_volume_unit=dollar_volume_unit))
+
+
+def pastor_stambaugh_plan(*, dollar_volume_unit: float = 1e6) -> Plan:
+    """The plan of ``pastor_stambaugh_gamma``: centred cross products from monthly sums."""
     if not dollar_volume_unit > 0:
         raise ConfigError(f"measure 'ps_gamma': option `dollar_volume_unit` must be positive, got {dollar_volume_unit}")
     excess = pl.col("ret") - pl.col("mkt_ret")
     x1 = pl.col("ret")
     x2 = excess.sign() * pl.col("dollar_volume") / dollar_volume_unit
     y = next_in_month(excess)
-    valid = pl.all_horizontal([x1.is_not_null(), x2.is_not_null(), y.is_not_null()])
-    frame = daily.with_columns(
-        pl.when(valid).then(x1).alias("_x1"),
-        pl.when(valid).then(x2).alias("_x2"),
-        pl.when(valid).then(y).alias("_y"),
+    valid = pl.col("_ps_valid")
+    # Shifted by their first value in the month: the centred products below are
+    # differences of sums, exact for a constant regressor.
+    a, b, yy = pl.col("_ps_a"), pl.col("_ps_b"), pl.col("_ps_y")
+    steps = (
+        {"_ps_x2": x2, "_ps_next": y},
+        {"_ps_valid": pl.all_horizontal([x1.is_not_null(), pl.col("_ps_x2").is_not_null(), pl.col("_ps_next").is_not_null()])},
+        {name: month_shifted(pl.when(valid).then(v)) for name, v in
+         (("_ps_a", x1), ("_ps_b", pl.col("_ps_x2")), ("_ps_y", pl.col("_ps_next")))},
     )
-    # Centred within the month (the intercept partialled out); the month's means
-    # are window columns, so the group-by needs only sums.
-    frame = frame.with_columns((pl.col(c) - pl.col(c).mean().over(KEY)).alias(f"{c}_c") for c in ("_x1", "_x2", "_y"))
-    a, b, yy = pl.col("_x1_c"), pl.col("_x2_c"), pl.col("_y_c")
-    monthly = frame.group_by(KEY, maintain_order=True).agg(
-        (a * a).sum().alias("_s11"),
-        (a * b).sum().alias("_s12"),
-        (b * b).sum().alias("_s22"),
-        (a * yy).sum().alias("_s1y"),
-        (b * yy).sum().alias("_s2y"),
-        pl.col("_x1").count().cast(pl.Int64).alias("n_obs"),
-    )
-    s11, s12, s22 = pl.col("_s11"), pl.col("_s12"), pl.col("_s22")
+    sums = {"n": valid, "a": a, "b": b, "y": yy, "aa": a * a, "ab": a * b, "bb": b * b, "ay": a * yy, "by": b * yy}
+    n = pl.col("n")
+
+    def centred(first: str, second: str) -> pl.Expr:
+        return pl.col(first + second) - pl.col(first) * pl.col(second) / n
+
+    s11, s12, s22 = centred("a", "a"), centred("a", "b"), centred("b", "b")
     det = s11 * s22 - s12 * s12
     # Collinear regressors: fewer than three pairs, a regressor without
     # variation, or a squared correlation of r_t and sign(r^e_t) v_t above
     # 1 - 1e-8 (det <= 1e-8 S11 S22; convention of this project), where the
     # solution would be noise amplified by rounding.
-    singular = (pl.col("n_obs") < 3) | (s11 <= 0) | (s22 <= 0) | (det <= 1e-8 * s11 * s22)
-    gamma = (s11 * pl.col("_s2y") - s12 * pl.col("_s1y")) / det
-    return (
-        monthly.with_columns(
+    singular = (n < 3) | (s11 <= 0) | (s22 <= 0) | (det <= 1e-8 * s11 * s22)
+    gamma = (s11 * centred("b", "y") - s12 * centred("a", "y")) / det
+    return Plan(
+        steps=steps,
+        sums=sums,
+        monthly=(
             pl.when(singular).then(None).otherwise(gamma).cast(pl.Float64).alias("ps_gamma"),
-            pl.when(singular).then(pl.lit("collinear_regressors")).otherwise(None).cast(pl.String).alias("reason"),
-        )
-        .select(*KEY, "ps_gamma", "n_obs", "reason")
-        .sort(KEY)
+            n.cast(pl.Int64).alias("n_obs"),
+            missing_reason(singular, "collinear_regressors"),
+        ),
     )
 
 
 __all__ = [
     "CALENDARS",
     "pastor_stambaugh_gamma",
+    "pastor_stambaugh_plan",
     "turnover",
+    "turnover_plan",
     "zero_return_share",
+    "zero_return_share_plan",
     "zero_return_share_traded",
+    "zero_return_share_traded_plan",
 ]

@@ -10,18 +10,39 @@ so a month needs one trading day more than the minimum.
 
 from __future__ import annotations
 
-from liqpanel.measures.activity import amihud_illiquidity
-from liqpanel.measures.edge import edge_spread
+from liqpanel.measures.activity import amihud_illiquidity, amihud_plan
+from liqpanel.measures.edge import edge_plan, edge_spread
 from liqpanel.measures.gibbs import DEFAULT_PRIOR, gibbs_spread
-from liqpanel.measures.highlow import abdi_ranaldo_monthly_spread, abdi_ranaldo_two_day_spread, corwin_schultz_spread
-from liqpanel.measures.impact import pastor_stambaugh_gamma, turnover, zero_return_share, zero_return_share_traded
+from liqpanel.measures.highlow import (
+    abdi_ranaldo_monthly_plan,
+    abdi_ranaldo_monthly_spread,
+    abdi_ranaldo_two_day_plan,
+    abdi_ranaldo_two_day_spread,
+    corwin_schultz_plan,
+    corwin_schultz_spread,
+)
+from liqpanel.measures.impact import (
+    pastor_stambaugh_gamma,
+    pastor_stambaugh_plan,
+    turnover,
+    turnover_plan,
+    zero_return_share,
+    zero_return_share_plan,
+    zero_return_share_traded,
+    zero_return_share_traded_plan,
+)
 from liqpanel.measures.registry import Measure, register
-from liqpanel.measures.roll import roll_spread
+from liqpanel.measures.roll import roll_spread, roll_spread_plan
 from liqpanel.measures.volatility import (
+    close_to_close_plan,
     close_to_close_volatility,
+    garman_klass_plan,
     garman_klass_volatility,
+    parkinson_plan,
     parkinson_volatility,
+    rogers_satchell_plan,
     rogers_satchell_volatility,
+    yang_zhang_plan,
     yang_zhang_volatility,
 )
 
@@ -33,6 +54,7 @@ MEASURES = (
     Measure(
         name="roll_spread",
         function=roll_spread,
+        plan=roll_spread_plan,
         outputs=("roll_spread", "roll_efficient_var"),
         columns=("ret",),
         source="Roll (1984), Journal of Finance 39(4)",
@@ -44,6 +66,7 @@ MEASURES = (
     Measure(
         name="amihud",
         function=amihud_illiquidity,
+        plan=amihud_plan,
         outputs=("amihud",),
         columns=("ret", "dollar_volume"),
         source="Amihud (2002), Journal of Financial Markets 5(1)",
@@ -74,6 +97,7 @@ MEASURES = (
     Measure(
         name="cs_spread",
         function=corwin_schultz_spread,
+        plan=corwin_schultz_plan,
         outputs=("cs_spread",),
         columns=("high", "low", "close"),
         source="Corwin & Schultz (2012), Journal of Finance 67(2)",
@@ -85,6 +109,7 @@ MEASURES = (
     Measure(
         name="ar_spread_2day",
         function=abdi_ranaldo_two_day_spread,
+        plan=abdi_ranaldo_two_day_plan,
         outputs=("ar_spread_2day",),
         columns=("high", "low", "close"),
         source="Abdi & Ranaldo (2017), Review of Financial Studies 30(12)",
@@ -96,6 +121,7 @@ MEASURES = (
     Measure(
         name="ar_spread_monthly",
         function=abdi_ranaldo_monthly_spread,
+        plan=abdi_ranaldo_monthly_plan,
         outputs=("ar_spread_monthly",),
         columns=("high", "low", "close"),
         source="Abdi & Ranaldo (2017), Review of Financial Studies 30(12)",
@@ -107,6 +133,7 @@ MEASURES = (
     Measure(
         name="edge_spread",
         function=edge_spread,
+        plan=edge_plan,
         outputs=("edge_spread",),
         columns=OHLC,
         source="Ardia, Guidotti & Kroencke (2024), Journal of Financial Economics 161",
@@ -118,6 +145,7 @@ MEASURES = (
     Measure(
         name="vol_close",
         function=close_to_close_volatility,
+        plan=close_to_close_plan,
         outputs=("vol_close",),
         columns=("ret",),
         source="common practice (sample standard deviation of daily log returns)",
@@ -129,6 +157,7 @@ MEASURES = (
     Measure(
         name="vol_parkinson",
         function=parkinson_volatility,
+        plan=parkinson_plan,
         outputs=("vol_parkinson",),
         columns=("high", "low"),
         source="Parkinson (1980), Journal of Business 53(1)",
@@ -140,6 +169,7 @@ MEASURES = (
     Measure(
         name="vol_garman_klass",
         function=garman_klass_volatility,
+        plan=garman_klass_plan,
         outputs=("vol_garman_klass",),
         columns=OHLC,
         source="Garman & Klass (1980), Journal of Business 53(1)",
@@ -151,6 +181,7 @@ MEASURES = (
     Measure(
         name="vol_rogers_satchell",
         function=rogers_satchell_volatility,
+        plan=rogers_satchell_plan,
         outputs=("vol_rogers_satchell",),
         columns=OHLC,
         source="Rogers & Satchell (1991), Annals of Applied Probability 1(4)",
@@ -162,6 +193,7 @@ MEASURES = (
     Measure(
         name="vol_yang_zhang",
         function=yang_zhang_volatility,
+        plan=yang_zhang_plan,
         outputs=("vol_yang_zhang",),
         columns=OHLC,
         source="Yang & Zhang (2000), Journal of Business 73(3)",
@@ -173,6 +205,7 @@ MEASURES = (
     Measure(
         name="zero_return_share",
         function=zero_return_share,
+        plan=zero_return_share_plan,
         outputs=("zero_return_share",),
         columns=("ret", "volume"),
         source="Lesmond, Ogden & Trzcinka (1999), Review of Financial Studies 12(5)",
@@ -184,6 +217,7 @@ MEASURES = (
     Measure(
         name="zero_return_share_traded",
         function=zero_return_share_traded,
+        plan=zero_return_share_traded_plan,
         outputs=("zero_return_share_traded",),
         columns=("ret", "volume"),
         source="Lesmond, Ogden & Trzcinka (1999), Review of Financial Studies 12(5); positive-volume variant",
@@ -195,6 +229,7 @@ MEASURES = (
     Measure(
         name="turnover",
         function=turnover,
+        plan=turnover_plan,
         outputs=("turnover",),
         columns=("volume", "shares_out"),
         source="common practice (month's volume / shares outstanding)",
@@ -206,6 +241,7 @@ MEASURES = (
     Measure(
         name="ps_gamma",
         function=pastor_stambaugh_gamma,
+        plan=pastor_stambaugh_plan,
         outputs=("ps_gamma",),
         columns=("ret", "mkt_ret", "dollar_volume"),
         source="Pastor & Stambaugh (2003), Journal of Political Economy 111(3)",

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import numpy as np
 import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import SORTED_MARK
 
 WEIGHTINGS = ("equal", "value")
 
@@ -26,7 +28,8 @@ def add_market_return(daily: pl.LazyFrame, weighting: str = "equal") -> pl.LazyF
     project; common practice for a market-wide benchmark return).
 
     A table that already has ``mkt_ret`` is returned unchanged. Units: simple
-    daily return, like ``ret``. Row order is kept.
+    daily return, like ``ret``. Row order is kept. The day's sums are added
+    in security order, so the result does not depend on the row order.
     """
     if weighting not in WEIGHTINGS:
         raise ConfigError(f"add_market_return: `weighting` must be one of {WEIGHTINGS}, got {weighting!r}")
@@ -35,29 +38,41 @@ def add_market_return(daily: pl.LazyFrame, weighting: str = "equal") -> pl.LazyF
         return daily
     require_columns(daily, ["security", "date", "ret"], table="daily")
     ret = pl.col("ret")
+    in_order = SORTED_MARK in names  # sorted by security and date already (the measures stage's table)
+    ordered = daily if in_order else daily.sort("security", "date")
     if weighting == "equal":
         weight = pl.lit(1.0)
     else:
         require_columns(daily, ["close", "shares_out"], table="daily")
-        previous_value = (pl.col("close") * pl.col("shares_out")).shift(1).over("security", order_by="date")
+        same_security = pl.col("security").shift(1) == pl.col("security")
+        previous_value = pl.when(same_security).then((pl.col("close") * pl.col("shares_out")).shift(1))
         implied_value = pl.col("close") / (1.0 + ret) * pl.col("shares_out")
         weight = pl.coalesce(previous_value, implied_value)
     usable = ret.is_not_null() & (weight > 0)
-    # Running sums in security order within each date: the same float result
-    # whatever the row order of the input.
-    def total(expr: pl.Expr) -> pl.Expr:
-        return expr.fill_null(0.0).sort_by("security").cum_sum().last()
-
-    market = (
-        daily.select("security", "date", pl.when(usable).then(weight).alias("_w"), pl.when(usable).then(ret).alias("_r"))
-        .group_by("date")
-        .agg(
-            (total(pl.col("_w") * pl.col("_r")) / total(pl.col("_w"))).alias("mkt_ret"),
-            pl.col("_w").count().alias("_n"),
-        )
-        .select("date", pl.when(pl.col("_n") > 0).then(pl.col("mkt_ret")).otherwise(None).alias("mkt_ret"))
-    )
-    return daily.join(market, on="date", how="left", maintain_order="left")
+    parts = ordered.select(
+        pl.col("date").cast(pl.Int32).alias("day"),
+        pl.when(usable).then(weight).otherwise(0.0).alias("w"),
+        pl.when(usable).then(weight * ret).otherwise(0.0).alias("wr"),
+        usable.alias("usable"),
+    ).collect(engine="in-memory")
+    if parts.height == 0:
+        return daily.with_columns(pl.lit(None, dtype=pl.Float64).alias("mkt_ret"))
+    day = parts["day"].to_numpy()
+    first = int(day.min())
+    index = day - first
+    # Sums per day added in row order, i.e. in security order within each
+    # date: the same digits whatever order the input rows came in.
+    total = np.bincount(index, weights=parts["wr"].to_numpy())
+    weights = np.bincount(index, weights=parts["w"].to_numpy())
+    counts = np.bincount(index, weights=parts["usable"].to_numpy().astype(np.float64))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        by_day = np.where(counts > 0, total / weights, np.nan)
+    if in_order:  # rows are in the order of ``parts``: read each row's day off the array
+        return daily.with_columns(pl.Series("mkt_ret", by_day[index], nan_to_null=True))
+    market = pl.DataFrame(
+        {"date": np.arange(first, first + len(by_day), dtype=np.int32), "mkt_ret": by_day}, nan_to_null=True
+    ).with_columns(pl.col("date").cast(pl.Date))
+    return daily.join(market.lazy(), on="date", how="left", maintain_order="left")
 
 
 __all__ = ["WEIGHTINGS", "add_market_return"]

@@ -8,9 +8,9 @@ shift of the whole column plus a mask. It gives the same values as
 ``expr.shift(k).over(["security", "month"], order_by="date")`` without a
 window group-by, which on a large panel is many times slower.
 
-The caller must sort the frame by (``security``, ``date``) first
-(``in_security_date_order``); keys are unique by the daily contract, so the
-order within a security is the date order.
+The mask comes from two flag columns that ``in_security_date_order`` adds
+once, when it sorts the table: ``FIRST_OF_MONTH`` (the row is its
+security-month's first) and ``LAST_OF_MONTH``. Every helper below needs them.
 """
 
 from __future__ import annotations
@@ -18,47 +18,63 @@ from __future__ import annotations
 import polars as pl
 
 KEY = ("security", "month")
-SORTED_MARK = "_in_security_date_order"  # a column the measures stage adds once it has sorted the daily table
+SORTED_MARK = "_in_security_date_order"  # True on a table sorted by security and date, with the flags below
+FIRST_OF_MONTH = "_first_of_month"
+LAST_OF_MONTH = "_last_of_month"
+
+
+def month_flags(sorted_frame: pl.LazyFrame) -> pl.LazyFrame:
+    """Add ``FIRST_OF_MONTH``, ``LAST_OF_MONTH`` and ``SORTED_MARK`` to a frame sorted by security and date."""
+    new = pl.any_horizontal([pl.col(k).shift(1) != pl.col(k) for k in KEY]).fill_null(True)
+    return sorted_frame.with_columns(new.alias(FIRST_OF_MONTH)).with_columns(
+        pl.col(FIRST_OF_MONTH).shift(-1).fill_null(True).alias(LAST_OF_MONTH),
+        pl.lit(True).alias(SORTED_MARK),
+    )
 
 
 def in_security_date_order(daily: pl.LazyFrame) -> pl.LazyFrame:
-    """The daily table sorted by (``security``, ``date``), so that no result depends on the row order.
+    """The daily table sorted by (``security``, ``date``) with the month flags, so no result depends on row order.
 
-    The measures stage sorts the table once and marks it with the column
-    ``SORTED_MARK``; a marked table is returned as it is, which spares every
-    measure a sort of the whole panel (the largest cost of a measure on a
-    large panel).
+    A table already marked with ``SORTED_MARK`` (the measures stage sorts and
+    flags the daily table once) is returned as it is, which spares every
+    measure a sort of the whole panel.
     """
     if SORTED_MARK in daily.collect_schema().names():
         return daily
-    return daily.sort("security", "date")
-
-
-def same_month_neighbour(offset: int) -> pl.Expr:
-    """True where the row ``offset`` rows before (``offset > 0``) or after is of the same security-month."""
-    return pl.all_horizontal([pl.col(k).shift(offset) == pl.col(k) for k in KEY]).fill_null(False)
+    return month_flags(daily.sort("security", "date"))
 
 
 def previous_in_month(expr: pl.Expr) -> pl.Expr:
     """``expr`` on the security's previous trading day of the same month; null on its first day."""
-    return pl.when(same_month_neighbour(1)).then(expr.shift(1))
+    return pl.when(~pl.col(FIRST_OF_MONTH)).then(expr.shift(1))
 
 
 def next_in_month(expr: pl.Expr) -> pl.Expr:
     """``expr`` on the security's next trading day of the same month; null on its last day."""
-    return pl.when(same_month_neighbour(-1)).then(expr.shift(-1))
+    return pl.when(~pl.col(LAST_OF_MONTH)).then(expr.shift(-1))
 
 
 def previous_valid_in_month(expr: pl.Expr) -> pl.Expr:
-    """The last non-null value of ``expr`` on an earlier day of the same security-month; null if none.
+    """The last non-null value of a float ``expr`` on an earlier day of the same security-month; null if none.
 
     The neighbour of the series with its nulls dropped, as if the surviving
-    days were consecutive.
+    days were consecutive. A forward fill that a month's first row stops: a
+    null there becomes NaN, a value the fill carries instead of the previous
+    month's, and NaN is read back as null (so a NaN in ``expr`` also counts
+    as missing).
     """
-    row = pl.int_range(pl.len())
-    last_valid = pl.when(expr.is_not_null()).then(row).forward_fill().shift(1)
-    month_start = pl.when(~same_month_neighbour(1)).then(row).forward_fill()
-    return pl.when(last_valid >= month_start).then(expr.forward_fill().shift(1))
+    first = pl.col(FIRST_OF_MONTH)
+    stopped = pl.when(first & expr.is_null()).then(float("nan")).otherwise(expr)
+    return pl.when(~first).then(stopped.forward_fill().shift(1)).fill_nan(None)
 
 
-__all__ = ["SORTED_MARK", "in_security_date_order", "next_in_month", "previous_in_month", "previous_valid_in_month", "same_month_neighbour"]
+__all__ = [
+    "FIRST_OF_MONTH",
+    "LAST_OF_MONTH",
+    "SORTED_MARK",
+    "in_security_date_order",
+    "month_flags",
+    "next_in_month",
+    "previous_in_month",
+    "previous_valid_in_month",
+]

@@ -5,12 +5,18 @@ pl.LazyFrame``. It receives the daily table (see ``liqpanel.contracts.DAILY``,
 plus ``mkt_ret`` and ``shares_out`` where available) and returns one row per
 (``security``, ``month``) holding its output columns, ``n_obs`` (the number of
 valid days or day-pairs it used) and optionally ``reason`` (a string saying
-why the value is missing, null otherwise). The measures stage applies the
-minimum-days rule, renames the diagnostics to ``<name>_n`` and
-``<name>_reason`` and joins every selected measure on the key.
+why the value is missing, null otherwise).
 
-Adding a measure: one new module with the function, one ``register`` call at
-the bottom of ``liqpanel/measures/__init__.py``, one test file.
+A measure that is a formula of sums over the month's days (all of them but
+the Gibbs sampler) also gives its ``plan`` (``plan(**options) ->
+liqpanel.measures.plan.Plan``) and its function is ``run_plan`` of that
+plan. The measures stage runs the plans of every selected measure together
+in a single pass over the daily table, and the functions of the others one
+by one; it applies the minimum-days rule and names the diagnostics
+``<name>_n`` and ``<name>_reason``.
+
+Adding a measure: one new module with the plan and the function, one
+``Measure`` entry in ``liqpanel/measures/library.py``, one test file.
 """
 
 from __future__ import annotations
@@ -34,6 +40,7 @@ class Measure:
     min_days: int = 15
     options: dict[str, Any] = field(default_factory=dict)
     description: str = ""
+    plan: Callable[..., Any] | None = None
 
 
 REGISTRY: dict[str, Measure] = {}

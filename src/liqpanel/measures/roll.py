@@ -4,30 +4,90 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.measures.neighbours import in_security_date_order, previous_valid_in_month
+from liqpanel.measures.neighbours import previous_valid_in_month
+from liqpanel.measures.plan import Plan, log_of, month_shifted, run_plan
 
 KEY = ["security", "month"]
 CONVENTIONS = ("missing", "zero", "signed")
 SERIES = ("log_price", "return")
 
 
-def monthly_autocovariances(daily: pl.LazyFrame, x: pl.Expr) -> pl.LazyFrame:
-    """gamma0, gamma1 and the count ``n_obs`` of a series within each security-month.
+def log_return() -> pl.Expr:
+    """The day's log price change ln(1 + ret) (a column ``prepare`` adds)."""
+    return log_of("ret")
+
+
+def autocovariance_parts(x: pl.Expr, label: str) -> tuple[tuple[dict[str, pl.Expr], ...], dict[str, pl.Expr]]:
+    """Per-day columns and quantities whose monthly sums give gamma0 and gamma1 of ``x`` (``autocovariances``).
+
+    ``label`` names the series in the intermediate columns (``_roll_x_<label>``).
+    """
+    xs_name, lag_name = f"_roll_x_{label}", f"_roll_lag_{label}"
+    xs, lag = pl.col(xs_name), pl.col(lag_name)
+    steps = (
+        {xs_name: month_shifted(x)},  # variances and covariances do not change; no digits are lost
+        {lag_name: previous_valid_in_month(xs)},
+    )
+    pair = xs.is_not_null() & lag.is_not_null()
+    sums = {
+        "n": xs.is_not_null(),
+        "sum": xs,
+        "sum_sq": xs * xs,
+        "pairs": pair,
+        "sum_now": pl.when(pair).then(xs),
+        "sum_lag": pl.when(pair).then(lag),
+        "sum_cross": xs * lag,
+    }
+    return steps, sums
+
+
+def autocovariances() -> tuple[pl.Expr, pl.Expr]:
+    """gamma0 and gamma1 from the monthly sums of ``autocovariance_sums``.
 
     gamma_k = (1/n) * sum_{t>k} (x_t - xbar)(x_{t-k} - xbar), the full-sample
     mean and divisor n (the convention of ``statsmodels.tsa.stattools.acovf``,
     adopted by this project). Nulls are skipped; the surviving observations are
-    treated as consecutive. The month's mean and each day's lagged deviation
-    are columns of the daily frame, so the group-by needs only sums.
+    treated as consecutive. Expanded into sums: with m the mean and the sums
+    over pairs (x_t, x_{t-1}),
+    n gamma1 = sum x_t x_{t-1} - m sum x_t - m sum x_{t-1} + pairs m^2.
     """
-    daily = in_security_date_order(daily).with_columns(x.alias("_x"))
-    d = pl.col("_x") - pl.col("_x").mean().over(KEY)
-    frame = daily.with_columns(d.alias("_d")).with_columns(previous_valid_in_month(pl.col("_d")).alias("_d_lag"))
-    n = pl.col("_x").count()
-    return frame.group_by(KEY).agg(
-        ((pl.col("_d") * pl.col("_d")).sum() / n).alias("gamma0"),
-        ((pl.col("_d") * pl.col("_d_lag")).sum() / n).alias("gamma1"),
-        n.cast(pl.Int64).alias("n_obs"),
+    n = pl.col("n")
+    m = pl.col("sum") / n
+    gamma0 = pl.col("sum_sq") / n - m * m
+    gamma1 = (pl.col("sum_cross") - m * (pl.col("sum_now") + pl.col("sum_lag")) + pl.col("pairs") * m * m) / n
+    return gamma0, gamma1
+
+
+def roll_spread_plan(*, series: str = "log_price", convention: str = "missing", **_) -> Plan:
+    """The plan of ``roll_spread`` (see there)."""
+    if series not in SERIES:
+        raise ValueError(f"roll_spread: series must be one of {SERIES}, got {series!r}")
+    if convention not in CONVENTIONS:
+        raise ValueError(f"roll_spread: convention must be one of {CONVENTIONS}, got {convention!r}")
+    x = log_return() if series == "log_price" else pl.col("ret")
+    gamma0, gamma1 = autocovariances()
+    undefined = gamma1 >= 0
+    too_few = pl.col("n") < 2  # an autocovariance needs two returns
+    if convention == "missing":
+        when_undefined = pl.lit(None, dtype=pl.Float64)
+    elif convention == "zero":
+        when_undefined = pl.lit(0.0)
+    else:
+        when_undefined = -2.0 * gamma1.sqrt()
+    steps, sums = autocovariance_parts(x, series)
+    return Plan(
+        steps=steps,
+        sums=sums,
+        monthly=(
+            pl.when(too_few).then(None)
+            .when(undefined).then(when_undefined)
+            .otherwise(2.0 * (-gamma1).sqrt()).alias("roll_spread"),
+            pl.when(too_few).then(None).otherwise(gamma0 + 2.0 * gamma1).alias("roll_efficient_var"),
+            pl.col("n").cast(pl.Int64).alias("n_obs"),
+            pl.when(too_few).then(pl.lit("too_few_returns"))
+            .when(undefined).then(pl.lit("non_negative_autocovariance"))
+            .otherwise(None).cast(pl.String).alias("reason"),
+        ),
     )
 
 
@@ -52,28 +112,4 @@ def roll_spread(daily: pl.LazyFrame, *, series: str = "log_price", convention: s
     ``n_obs`` (returns used), ``reason`` ("non_negative_autocovariance", or
     "too_few_returns" below two returns).
     """
-    if series not in SERIES:
-        raise ValueError(f"roll_spread: series must be one of {SERIES}, got {series!r}")
-    if convention not in CONVENTIONS:
-        raise ValueError(f"roll_spread: convention must be one of {CONVENTIONS}, got {convention!r}")
-    x = (pl.col("ret") + 1.0).log() if series == "log_price" else pl.col("ret")
-    monthly = monthly_autocovariances(daily, x)
-    undefined = pl.col("gamma1") >= 0
-    too_few = pl.col("n_obs") < 2  # an autocovariance needs two returns
-    if convention == "missing":
-        when_undefined = pl.lit(None, dtype=pl.Float64)
-    elif convention == "zero":
-        when_undefined = pl.lit(0.0)
-    else:
-        when_undefined = -2.0 * pl.col("gamma1").sqrt()
-    return monthly.select(
-        *KEY,
-        pl.when(too_few).then(None)
-        .when(undefined).then(when_undefined)
-        .otherwise(2.0 * (-pl.col("gamma1")).sqrt()).alias("roll_spread"),
-        pl.when(too_few).then(None).otherwise(pl.col("gamma0") + 2.0 * pl.col("gamma1")).alias("roll_efficient_var"),
-        "n_obs",
-        pl.when(too_few).then(pl.lit("too_few_returns"))
-        .when(undefined).then(pl.lit("non_negative_autocovariance"))
-        .otherwise(None).cast(pl.String).alias("reason"),
-    ).sort(KEY)
+    return run_plan(daily, roll_spread_plan(series=series, convention=convention))

@@ -37,7 +37,9 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
-from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
+from liqpanel.measures.neighbours import previous_in_month
+from liqpanel.measures.plan import Plan, log_of, missing_reason, run_plan
+from liqpanel.measures.roll import autocovariance_parts, log_return
 
 KEY = ["security", "month"]
 LN2 = math.log(2.0)
@@ -45,32 +47,86 @@ PARKINSON_CONSTANT = 4.0 * LN2
 
 
 def _log(col: str) -> pl.Expr:
-    return pl.col(col).log()
+    return log_of(col)
 
 
-def _finish(daily: pl.LazyFrame, variance: pl.Expr, n_obs: pl.Expr, output: str, *, min_obs: int,
-            annualise: bool, trading_days: int) -> pl.LazyFrame:
+def _volatility_plan(sums: dict[str, pl.Expr], variance: pl.Expr, output: str, *, min_obs: int,
+                     annualise: bool = False, trading_days: int = 252,
+                     steps: tuple[dict[str, pl.Expr], ...] = ()) -> Plan:
+    """A volatility from monthly sums: sqrt(max(variance, 0) x scale) where ``n`` >= ``min_obs``."""
     if trading_days <= 0:
         raise ConfigError(f"measure '{output}': option `trading_days` must be positive, got {trading_days}")
     scale = float(trading_days) if annualise else 1.0
-    return (
-        daily.group_by(KEY, maintain_order=True)
-        .agg(variance.alias("_variance"), n_obs.cast(pl.Int64).alias("n_obs"))
-        .with_columns(
-            pl.when(pl.col("n_obs") >= min_obs)
-            .then((pl.col("_variance") * scale).clip(lower_bound=0.0).sqrt())
-            .otherwise(None)
-            .cast(pl.Float64)
-            .alias(output),
-            pl.when(pl.col("n_obs") >= min_obs)
-            .then(None)
-            .otherwise(pl.lit("too_few_observations" if min_obs > 1 else "no_valid_days"))
-            .cast(pl.String)
-            .alias("reason"),
-        )
-        .select(*KEY, output, "n_obs", "reason")
-        .sort(KEY)
+    enough = pl.col("n") >= min_obs
+    return Plan(
+        steps=steps,
+        sums=sums,
+        monthly=(
+            pl.when(enough).then((variance * scale).clip(lower_bound=0.0).sqrt()).otherwise(None)
+            .cast(pl.Float64).alias(output),
+            pl.col("n").cast(pl.Int64).alias("n_obs"),
+            missing_reason(~enough, "too_few_observations" if min_obs > 1 else "no_valid_days"),
+        ),
     )
+
+
+def _mean_piece_plan(piece: pl.Expr, output: str, **options) -> Plan:
+    """A variance that is the month's mean of a per-day piece."""
+    return _volatility_plan({"sum": piece, "n": piece.is_not_null()}, pl.col("sum") / pl.col("n"), output,
+                            min_obs=1, **options)
+
+
+def _sample_variance(n: pl.Expr, total: pl.Expr, squares: pl.Expr) -> pl.Expr:
+    """Sample variance (divisor n - 1) from a count, a sum and a sum of squares."""
+    return (squares - total * total / n) / (n - 1.0)
+
+
+def close_to_close_plan(*, annualise: bool = False, trading_days: int = 252) -> Plan:
+    """The plan of ``close_to_close_volatility``; its sums are those of the Roll estimator."""
+    steps, sums = autocovariance_parts(log_return(), "log_price")
+    sums = {k: v for k, v in sums.items() if k in ("n", "sum", "sum_sq")}
+    variance = _sample_variance(pl.col("n"), pl.col("sum"), pl.col("sum_sq"))
+    return _volatility_plan(sums, variance, "vol_close", min_obs=2, annualise=annualise, trading_days=trading_days,
+                            steps=steps[:1])
+
+
+def parkinson_plan(**options) -> Plan:
+    """The plan of ``parkinson_volatility``."""
+    return _mean_piece_plan((_log("high") - _log("low")) ** 2 / PARKINSON_CONSTANT, "vol_parkinson", **options)
+
+
+def garman_klass_plan(**options) -> Plan:
+    """The plan of ``garman_klass_volatility``."""
+    piece = 0.5 * (_log("high") - _log("low")) ** 2 - (2.0 * LN2 - 1.0) * (_log("close") - _log("open")) ** 2
+    return _mean_piece_plan(piece, "vol_garman_klass", **options)
+
+
+def rogers_satchell_plan(**options) -> Plan:
+    """The plan of ``rogers_satchell_volatility``."""
+    plan = _mean_piece_plan(pl.col("_rs_piece"), "vol_rogers_satchell", **options)
+    return Plan(steps=({"_rs_piece": _rogers_satchell_piece()},), sums=plan.sums, monthly=plan.monthly)
+
+
+def yang_zhang_plan(**options) -> Plan:
+    """The plan of ``yang_zhang_volatility``."""
+    paired = pl.col("_yz_paired")
+    steps = (
+        {"_rs_piece": _rogers_satchell_piece(), "_yz_previous_close": previous_in_month(_log("close"))},
+        {"_yz_paired": pl.col("_yz_previous_close").is_not_null() & pl.col("_rs_piece").is_not_null()},
+        {"_yz_overnight": pl.when(paired).then(_log("open") - pl.col("_yz_previous_close")),
+         "_yz_open_close": pl.when(paired).then(_log("close") - _log("open"))},
+    )
+    overnight, open_close = pl.col("_yz_overnight"), pl.col("_yz_open_close")
+    sums = {"n": paired, "overnight": overnight, "overnight_sq": overnight * overnight,
+            "open_close": open_close, "open_close_sq": open_close * open_close, "rs": pl.when(paired).then(pl.col("_rs_piece"))}
+    n = pl.col("n")
+    k = 0.34 / (1.34 + (n + 1.0) / (n - 1.0))
+    variance = (
+        _sample_variance(n, pl.col("overnight"), pl.col("overnight_sq"))
+        + k * _sample_variance(n, pl.col("open_close"), pl.col("open_close_sq"))
+        + (1.0 - k) * pl.col("rs") / n
+    )
+    return _volatility_plan(sums, variance, "vol_yang_zhang", min_obs=2, steps=steps, **options)
 
 
 def close_to_close_volatility(daily: pl.LazyFrame, *, annualise: bool = False, trading_days: int = 252) -> pl.LazyFrame:
@@ -86,10 +142,7 @@ def close_to_close_volatility(daily: pl.LazyFrame, *, annualise: bool = False, t
     Output ``vol_close``; ``n_obs`` counts the returns used (at least 2).
     """
     require_columns(daily, ["security", "month", "date", "ret"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    x = (pl.col("ret") + 1.0).log()
-    return _finish(daily, x.var(ddof=1), x.count(), "vol_close", min_obs=2,
-                   annualise=annualise, trading_days=trading_days)
+    return run_plan(daily, close_to_close_plan(annualise=annualise, trading_days=trading_days))
 
 
 def parkinson_volatility(daily: pl.LazyFrame, *, annualise: bool = False, trading_days: int = 252) -> pl.LazyFrame:
@@ -105,10 +158,7 @@ def parkinson_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tradin
     Output ``vol_parkinson`` (daily, trading hours); ``n_obs`` days used.
     """
     require_columns(daily, ["security", "month", "date", "high", "low"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    piece = (_log("high") - _log("low")) ** 2 / PARKINSON_CONSTANT
-    return _finish(daily, piece.mean(), piece.count(), "vol_parkinson", min_obs=1,
-                   annualise=annualise, trading_days=trading_days)
+    return run_plan(daily, parkinson_plan(annualise=annualise, trading_days=trading_days))
 
 
 def garman_klass_volatility(daily: pl.LazyFrame, *, annualise: bool = False, trading_days: int = 252) -> pl.LazyFrame:
@@ -125,10 +175,7 @@ def garman_klass_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tra
     Output ``vol_garman_klass`` (daily, trading hours); ``n_obs`` days used.
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    piece = 0.5 * (_log("high") - _log("low")) ** 2 - (2.0 * LN2 - 1.0) * (_log("close") - _log("open")) ** 2
-    return _finish(daily, piece.mean(), piece.count(), "vol_garman_klass", min_obs=1,
-                   annualise=annualise, trading_days=trading_days)
+    return run_plan(daily, garman_klass_plan(annualise=annualise, trading_days=trading_days))
 
 
 def _rogers_satchell_piece() -> pl.Expr:
@@ -148,10 +195,7 @@ def rogers_satchell_volatility(daily: pl.LazyFrame, *, annualise: bool = False, 
     Output ``vol_rogers_satchell`` (daily, trading hours); ``n_obs`` days used.
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    piece = _rogers_satchell_piece()
-    return _finish(daily, piece.mean(), piece.count(), "vol_rogers_satchell", min_obs=1,
-                   annualise=annualise, trading_days=trading_days)
+    return run_plan(daily, rogers_satchell_plan(annualise=annualise, trading_days=trading_days))
 
 
 def yang_zhang_volatility(daily: pl.LazyFrame, *, annualise: bool = False, trading_days: int = 252) -> pl.LazyFrame:
@@ -175,27 +219,16 @@ def yang_zhang_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tradi
     Output ``vol_yang_zhang`` (daily, whole day); ``n_obs`` days used (at least 2).
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    daily = in_security_date_order(daily)  # the result must not depend on the row order
-    overnight = _log("open") - previous_in_month(_log("close"))
-    paired = overnight.is_not_null() & _rogers_satchell_piece().is_not_null()
-    frame = daily.with_columns(
-        pl.when(paired).then(overnight).alias("_overnight"),
-        pl.when(paired).then(_log("close") - _log("open")).alias("_open_close"),
-        pl.when(paired).then(_rogers_satchell_piece()).alias("_rs"),
-    )
-    n = pl.col("_overnight").count().cast(pl.Float64)
-    k = 0.34 / (1.34 + (n + 1.0) / (n - 1.0))
-    variance = (
-        pl.col("_overnight").var(ddof=1)
-        + k * pl.col("_open_close").var(ddof=1)
-        + (1.0 - k) * pl.col("_rs").mean()
-    )
-    return _finish(frame, variance, pl.col("_overnight").count(), "vol_yang_zhang", min_obs=2,
-                   annualise=annualise, trading_days=trading_days)
+    return run_plan(daily, yang_zhang_plan(annualise=annualise, trading_days=trading_days))
 
 
 __all__ = [
     "PARKINSON_CONSTANT",
+    "close_to_close_plan",
+    "garman_klass_plan",
+    "parkinson_plan",
+    "rogers_satchell_plan",
+    "yang_zhang_plan",
     "close_to_close_volatility",
     "garman_klass_volatility",
     "parkinson_volatility",
