@@ -6,8 +6,6 @@ import polars as pl
 
 from liqpanel.measures.plan import Plan, missing_reason, run_plan
 
-KEY = ["security", "month"]
-
 
 def amihud_illiquidity(daily: pl.LazyFrame, *, scale: float = 1e6, **_) -> pl.LazyFrame:
     """Amihud (2002) illiquidity: ILLIQ = mean_t |r_t| / DV_t.

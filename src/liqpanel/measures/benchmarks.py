@@ -19,8 +19,6 @@ import polars as pl
 from liqpanel.measures.plan import Plan, missing_reason, run_plan
 from liqpanel.measures.registry import Measure, register
 
-KEY = ["security", "month"]
-
 
 def mean_of_days_plan(column: str, *, weighted: bool = True, extra_sums: tuple[str, ...] = ()) -> Plan:
     """The monthly mean of a daily column (and of its size-weighted twin) over the days it exists.

@@ -8,8 +8,6 @@ from liqpanel.contracts import require_columns
 from liqpanel.measures.neighbours import previous_in_month
 from liqpanel.measures.plan import Plan, log_of, run_plan
 
-KEY = ["security", "month"]
-
 
 def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
     """Ardia, Guidotti & Kroencke (2024) efficient estimator of the spread ("EDGE").

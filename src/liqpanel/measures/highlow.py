@@ -21,7 +21,6 @@ from liqpanel.errors import ConfigError
 from liqpanel.measures.neighbours import next_in_month
 from liqpanel.measures.plan import Plan, log_of, missing_reason, run_plan
 
-KEY = ["security", "month"]
 NEGATIVE_CHOICES = ("zero", "keep")
 _K = 3.0 - 2.0 * math.sqrt(2.0)  # the constant 3 - 2 sqrt(2) of Corwin & Schultz (2012)
 

@@ -9,7 +9,6 @@ from liqpanel.errors import ConfigError
 from liqpanel.measures.neighbours import next_in_month
 from liqpanel.measures.plan import Plan, missing_reason, month_shifted, run_plan
 
-KEY = ["security", "month"]
 CALENDARS = ("market", "security")
 
 

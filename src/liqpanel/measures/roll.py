@@ -7,7 +7,6 @@ import polars as pl
 from liqpanel.measures.neighbours import previous_valid_in_month
 from liqpanel.measures.plan import Plan, log_of, month_shifted, run_plan
 
-KEY = ["security", "month"]
 CONVENTIONS = ("missing", "zero", "signed")
 SERIES = ("log_price", "return")
 

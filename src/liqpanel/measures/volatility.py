@@ -41,7 +41,6 @@ from liqpanel.measures.neighbours import previous_in_month
 from liqpanel.measures.plan import Plan, log_of, missing_reason, run_plan
 from liqpanel.measures.roll import autocovariance_parts, log_return
 
-KEY = ["security", "month"]
 LN2 = math.log(2.0)
 PARKINSON_CONSTANT = 4.0 * LN2
 
