@@ -63,10 +63,10 @@ def log_of(column: str) -> pl.Expr:
 def _logs(frame: pl.DataFrame) -> list[pl.Series]:
     """The logs of the price columns and of 1 + ret present in ``frame``, nulls kept.
 
-    numpy's vectorised log, two columns at a time (it releases the
-    interpreter lock): several times faster than an engine's scalar log,
-    and every measure shares the result. A log that is not a number (a
-    negative price) is null, like a missing price.
+    numpy's vectorised log, as many columns at a time as polars has threads
+    (numpy releases the interpreter lock): several times faster than an
+    engine's scalar log, and every measure shares the result. A log that is
+    not a number (a negative price) is null, like a missing price.
     """
     present = [c for c in LOGS if c in frame.columns and frame.schema[c].is_numeric()]
 
@@ -76,7 +76,7 @@ def _logs(frame: pl.DataFrame) -> list[pl.Series]:
             logged = np.log(1.0 + values) if column == "ret" else np.log(values)
         return pl.Series(LOGS[column], logged, nan_to_null=True)
 
-    with ThreadPoolExecutor(max_workers=2) as pool:
+    with ThreadPoolExecutor(max_workers=pl.thread_pool_size()) as pool:
         return list(pool.map(one, present))
 
 
@@ -242,7 +242,8 @@ def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFra
     # fills cross security-months there; the month flags mask them). Each
     # security-month is a run of contiguous rows, so a monthly sum is a
     # segment sum (numpy's reduceat, added in row order: the same digits on
-    # every run) and the month's keys are read off its first row.
+    # every run, one column per thread of the polars pool) and the month's
+    # keys are read off its first row.
     quantities = [
         *[expr.cast(pl.Float64).fill_null(0.0).alias(f"_sums{i}") for i, expr in enumerate(sums)],
         *[expr.alias(f"_lasts{i}") for i, expr in enumerate(lasts)],
@@ -279,7 +280,7 @@ def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFra
             monthly = pl.concat([monthly, picked], how="horizontal")
         return monthly
 
-    with ThreadPoolExecutor(max_workers=2) as pool:
+    with ThreadPoolExecutor(max_workers=pl.thread_pool_size()) as pool:
         monthly = pl.concat([one_pass(rows, pool) for rows in _blocks(prepared)])
     if "market_days" in wants_context:
         monthly = monthly.with_columns(_market_days(monthly, prepared))
