@@ -29,9 +29,9 @@ def _needs_market_return(names: list[str]) -> bool:
     return any("mkt_ret" in REGISTRY[n].columns for n in names)
 
 
-def _finish(frame: pl.DataFrame, measure: Measure, min_days: int) -> pl.DataFrame:
+def _finish(frame: pl.LazyFrame, measure: Measure, min_days: int) -> pl.LazyFrame:
     """A measure's monthly frame with the minimum-days rule applied and its diagnostics renamed."""
-    if "reason" not in frame.columns:
+    if "reason" not in frame.collect_schema().names():
         frame = frame.with_columns(pl.lit(None, dtype=pl.String).alias("reason"))
     too_few = pl.col("n_obs") < min_days
     return frame.select(
@@ -89,9 +89,10 @@ def compute_monthly(
     fused = [m for m in measures if m.plan is not None and PREVIOUS_DAY not in m.columns]
     plans = {m.name: m.plan(**{k: v for k, v in options[m.name].items() if k != "min_days"}) for m in fused}
     months, planned = evaluate(prepared, plans)
-    columns: dict[str, pl.DataFrame] = {
-        m.name: _finish(planned[m.name], m, options[m.name]["min_days"]) for m in fused
-    }
+    finished = pl.collect_all(
+        [_finish(planned[m.name].lazy(), m, options[m.name]["min_days"]) for m in fused], engine="in-memory"
+    )
+    columns: dict[str, pl.DataFrame] = dict(zip([m.name for m in fused], finished))
     result = months
     alone = [m for m in measures if m.name not in columns]
     if alone:  # measures without a plan run one by one on the same sorted table
@@ -104,7 +105,10 @@ def compute_monthly(
             frame = m.function(with_previous if PREVIOUS_DAY in m.columns else sorted_daily,
                                **{k: v for k, v in options[m.name].items() if k != "min_days"})
             frame = frame.collect(engine="in-memory") if isinstance(frame, pl.LazyFrame) else frame
-            finished = pl.concat([frame.select(KEY), _finish(frame, m, options[m.name]["min_days"])], how="horizontal")
+            finished = pl.concat(
+                [frame.select(KEY), _finish(frame.lazy(), m, options[m.name]["min_days"]).collect(engine="in-memory")],
+                how="horizontal",
+            )
             columns[m.name] = months.select(KEY).join(finished, on=KEY, how="left", maintain_order="left").drop(KEY)
     out = pl.concat([result, *[columns[n] for n in names]], how="horizontal")
     return check_unique_key(out, KEY, table="monthly measures")

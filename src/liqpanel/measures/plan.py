@@ -284,15 +284,15 @@ def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFra
         monthly = pl.concat([one_pass(rows, pool) for rows in _blocks(prepared)])
     if "market_days" in wants_context:
         monthly = monthly.with_columns(_market_days(monthly, prepared))
-    base = monthly.select(*KEY, "n_days")
-    results: dict[str, pl.DataFrame] = {}
+    queries = []
     for measure, plan in plans.items():
         local = {**sum_names[measure], **last_names[measure]}
-        inputs = monthly.select(
+        inputs = monthly.lazy().select(
             "n_days", *plan.context, *[pl.col(column).alias(name) for name, column in local.items()]
         )
-        results[measure] = inputs.lazy().select(*plan.monthly).collect(engine="in-memory")  # shared subexpressions once
-    return base, results
+        queries.append(inputs.select(*plan.monthly))
+    results = dict(zip(plans, pl.collect_all(queries, engine="in-memory")))  # the monthly formulas side by side
+    return monthly.select(*KEY, "n_days"), results
 
 
 def run_plan(daily: pl.LazyFrame | pl.DataFrame, plan: Plan) -> pl.LazyFrame:
