@@ -86,14 +86,11 @@ def compute_monthly(
     if add_market:  # on the sorted table: the day's sums run in security order without another sort
         prepared = add_market_return(prepared.lazy()).collect(engine="in-memory")
     options = {m.name: resolve_options(m, selection[m.name]) for m in measures}
+    min_days = {name: opts.pop("min_days") for name, opts in options.items()}  # the rest go to the measure
     fused = [m for m in measures if m.plan is not None and PREVIOUS_DAY not in m.columns]
-    plans = {m.name: m.plan(**{k: v for k, v in options[m.name].items() if k != "min_days"}) for m in fused}
-    months, planned = evaluate(prepared, plans)
-    finished = pl.collect_all(
-        [_finish(planned[m.name].lazy(), m, options[m.name]["min_days"]) for m in fused], engine="in-memory"
-    )
+    months, planned = evaluate(prepared, {m.name: m.plan(**options[m.name]) for m in fused})
+    finished = pl.collect_all([_finish(planned[m.name].lazy(), m, min_days[m.name]) for m in fused], engine="in-memory")
     columns: dict[str, pl.DataFrame] = dict(zip([m.name for m in fused], finished))
-    result = months
     alone = [m for m in measures if m.name not in columns]
     if alone:  # measures without a plan run one by one on the same sorted table
         sorted_daily = prepared.drop(MONTH_ID).lazy()
@@ -102,15 +99,14 @@ def compute_monthly(
             own = sorted_daily.drop(SORTED_MARK, FIRST_OF_MONTH, LAST_OF_MONTH)
             with_previous = month_flags(with_previous_day(own, previous))
         for m in alone:
-            frame = m.function(with_previous if PREVIOUS_DAY in m.columns else sorted_daily,
-                               **{k: v for k, v in options[m.name].items() if k != "min_days"})
+            frame = m.function(with_previous if PREVIOUS_DAY in m.columns else sorted_daily, **options[m.name])
             frame = frame.collect(engine="in-memory") if isinstance(frame, pl.LazyFrame) else frame
             finished = pl.concat(
-                [frame.select(KEY), _finish(frame.lazy(), m, options[m.name]["min_days"]).collect(engine="in-memory")],
+                [frame.select(KEY), _finish(frame.lazy(), m, min_days[m.name]).collect(engine="in-memory")],
                 how="horizontal",
             )
             columns[m.name] = months.select(KEY).join(finished, on=KEY, how="left", maintain_order="left").drop(KEY)
-    out = pl.concat([result, *[columns[n] for n in names]], how="horizontal")
+    out = pl.concat([months, *[columns[n] for n in names]], how="horizontal")
     return check_unique_key(out, KEY, table="monthly measures")
 
 

@@ -19,7 +19,7 @@ import polars as pl
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
 from liqpanel.measures.neighbours import next_in_month
-from liqpanel.measures.plan import Plan, log_of, missing_reason, run_plan
+from liqpanel.measures.plan import Plan, log_of, missing_reason, prepare, run_plan, with_steps
 
 NEGATIVE_CHOICES = ("zero", "keep")
 _K = 3.0 - 2.0 * math.sqrt(2.0)  # the constant 3 - 2 sqrt(2) of Corwin & Schultz (2012)
@@ -62,12 +62,7 @@ def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
     See ``corwin_schultz_spread`` for the formula.
     """
     require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    from liqpanel.measures.plan import prepare
-
-    table = prepare(daily).lazy()
-    for step in _cs_steps():
-        table = table.with_columns(**step)
-    return table.with_columns(pl.col("_cs_two_day").alias("cs_two_day"))
+    return with_steps(prepare(daily).lazy(), _cs_steps()).with_columns(pl.col("_cs_two_day").alias("cs_two_day"))
 
 
 def corwin_schultz_plan(*, negative: str = "zero") -> Plan:
@@ -130,14 +125,6 @@ def _ar_piece() -> pl.Expr:
     eta = (log_of("high") + log_of("low")) / 2.0
     close = log_of("close")
     return 4.0 * (close - eta) * (close - next_in_month(eta))
-
-
-def abdi_ranaldo_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
-    """The daily table with ``ar_piece``, the two-day Abdi-Ranaldo piece (null on a month's last day)."""
-    require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    from liqpanel.measures.plan import prepare
-
-    return prepare(daily).lazy().with_columns(_ar_piece().alias("ar_piece"))
 
 
 def _ar_plan(estimate: pl.Expr, name: str) -> Plan:
@@ -214,7 +201,6 @@ __all__ = [
     "abdi_ranaldo_monthly_plan",
     "abdi_ranaldo_monthly_spread",
     "abdi_ranaldo_two_day_plan",
-    "abdi_ranaldo_pieces",
     "abdi_ranaldo_two_day_spread",
     "corwin_schultz_pieces",
     "corwin_schultz_plan",

@@ -50,6 +50,16 @@ MIN_DAYS = 15  # common practice for monthly estimates from daily data
 VOLATILITY_OPTIONS = {"annualise": False, "trading_days": 252}
 OHLC = ("open", "high", "low", "close")
 
+
+
+def _volatility(name, function, plan, columns, source, description) -> Measure:
+    """A volatility measure: one output named like the measure, the shared options and minimum."""
+    return Measure(
+        name=name, function=function, plan=plan, outputs=(name,), columns=columns, source=source,
+        family="volatility", min_days=MIN_DAYS, options=dict(VOLATILITY_OPTIONS), description=description,
+    )
+
+
 MEASURES = (
     Measure(
         name="roll_spread",
@@ -142,66 +152,21 @@ MEASURES = (
         options={"signed": False},
         description="efficient open-high-low-close spread estimator (EDGE)",
     ),
-    Measure(
-        name="vol_close",
-        function=close_to_close_volatility,
-        plan=close_to_close_plan,
-        outputs=("vol_close",),
-        columns=("ret",),
-        source="common practice (sample standard deviation of daily log returns)",
-        family="volatility",
-        min_days=MIN_DAYS,
-        options=dict(VOLATILITY_OPTIONS),
-        description="close-to-close volatility of daily log returns",
-    ),
-    Measure(
-        name="vol_parkinson",
-        function=parkinson_volatility,
-        plan=parkinson_plan,
-        outputs=("vol_parkinson",),
-        columns=("high", "low"),
-        source="Parkinson (1980), Journal of Business 53(1)",
-        family="volatility",
-        min_days=MIN_DAYS,
-        options=dict(VOLATILITY_OPTIONS),
-        description="high-low range volatility, mean (h - l)^2 / (4 ln 2)",
-    ),
-    Measure(
-        name="vol_garman_klass",
-        function=garman_klass_volatility,
-        plan=garman_klass_plan,
-        outputs=("vol_garman_klass",),
-        columns=OHLC,
-        source="Garman & Klass (1980), Journal of Business 53(1)",
-        family="volatility",
-        min_days=MIN_DAYS,
-        options=dict(VOLATILITY_OPTIONS),
-        description="open-high-low-close volatility, trading hours",
-    ),
-    Measure(
-        name="vol_rogers_satchell",
-        function=rogers_satchell_volatility,
-        plan=rogers_satchell_plan,
-        outputs=("vol_rogers_satchell",),
-        columns=OHLC,
-        source="Rogers & Satchell (1991), Annals of Applied Probability 1(4)",
-        family="volatility",
-        min_days=MIN_DAYS,
-        options=dict(VOLATILITY_OPTIONS),
-        description="drift-independent range volatility, trading hours",
-    ),
-    Measure(
-        name="vol_yang_zhang",
-        function=yang_zhang_volatility,
-        plan=yang_zhang_plan,
-        outputs=("vol_yang_zhang",),
-        columns=OHLC,
-        source="Yang & Zhang (2000), Journal of Business 73(3)",
-        family="volatility",
-        min_days=MIN_DAYS,
-        options=dict(VOLATILITY_OPTIONS),
-        description="drift-independent volatility with the overnight move, whole day",
-    ),
+    _volatility("vol_close", close_to_close_volatility, close_to_close_plan, ("ret",),
+                "common practice (sample standard deviation of daily log returns)",
+                "close-to-close volatility of daily log returns"),
+    _volatility("vol_parkinson", parkinson_volatility, parkinson_plan, ("high", "low"),
+                "Parkinson (1980), Journal of Business 53(1)",
+                "high-low range volatility, mean (h - l)^2 / (4 ln 2)"),
+    _volatility("vol_garman_klass", garman_klass_volatility, garman_klass_plan, OHLC,
+                "Garman & Klass (1980), Journal of Business 53(1)",
+                "open-high-low-close volatility, trading hours"),
+    _volatility("vol_rogers_satchell", rogers_satchell_volatility, rogers_satchell_plan, OHLC,
+                "Rogers & Satchell (1991), Annals of Applied Probability 1(4)",
+                "drift-independent range volatility, trading hours"),
+    _volatility("vol_yang_zhang", yang_zhang_volatility, yang_zhang_plan, OHLC,
+                "Yang & Zhang (2000), Journal of Business 73(3)",
+                "drift-independent volatility with the overnight move, whole day"),
     Measure(
         name="zero_return_share",
         function=zero_return_share,

@@ -53,7 +53,6 @@ def add_market_return(daily: pl.LazyFrame, weighting: str = "equal") -> pl.LazyF
         pl.col("date").cast(pl.Int32).alias("day"),
         pl.when(usable).then(weight).otherwise(0.0).alias("w"),
         pl.when(usable).then(weight * ret).otherwise(0.0).alias("wr"),
-        usable.alias("usable"),
     ).collect(engine="in-memory")
     if parts.height == 0:
         return daily.with_columns(pl.lit(None, dtype=pl.Float64).alias("mkt_ret"))
@@ -63,10 +62,9 @@ def add_market_return(daily: pl.LazyFrame, weighting: str = "equal") -> pl.LazyF
     # Sums per day added in row order, i.e. in security order within each
     # date: the same digits whatever order the input rows came in.
     total = np.bincount(index, weights=parts["wr"].to_numpy())
-    weights = np.bincount(index, weights=parts["w"].to_numpy())
-    counts = np.bincount(index, weights=parts["usable"].to_numpy().astype(np.float64))
+    weights = np.bincount(index, weights=parts["w"].to_numpy())  # positive exactly where a row is usable
     with np.errstate(divide="ignore", invalid="ignore"):
-        by_day = np.where(counts > 0, total / weights, np.nan)
+        by_day = np.where(weights > 0, total / weights, np.nan)
     if in_order:  # rows are in the order of ``parts``: read each row's day off the array
         return daily.with_columns(pl.Series("mkt_ret", by_day[index], nan_to_null=True))
     market = pl.DataFrame(

@@ -181,6 +181,13 @@ def _blocks(prepared: pl.DataFrame, rows: int | None = None) -> list[pl.DataFram
     return [prepared.slice(a, b - a) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
 
 
+def with_steps(table: pl.LazyFrame, steps: list[dict[str, pl.Expr]] | tuple[dict[str, pl.Expr], ...]) -> pl.LazyFrame:
+    """``table`` with the intermediate columns of ``steps`` added, one ``with_columns`` per step, in order."""
+    for step in steps:
+        table = table.with_columns(**step)
+    return table
+
+
 def _market_days(base: pl.DataFrame, prepared: pl.DataFrame) -> pl.Series:
     """Market trading days of each security-month within the security's listed span.
 
@@ -251,10 +258,7 @@ def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFra
     levels = _steps(plans)
 
     def one_pass(rows: pl.DataFrame, pool: ThreadPoolExecutor) -> pl.DataFrame:
-        table = rows.lazy()
-        for level in levels:
-            table = table.with_columns(**level)
-        values = table.select(MONTH_ID, FIRST_OF_MONTH, LAST_OF_MONTH, *quantities).collect(engine="in-memory")
+        values = with_steps(rows.lazy(), levels).select(MONTH_ID, FIRST_OF_MONTH, LAST_OF_MONTH, *quantities).collect(engine="in-memory")
         starts = values.select(pl.arg_where(pl.col(FIRST_OF_MONTH))).to_series().to_numpy()
         if len(starts) == 0:  # no rows: reduceat needs at least one segment
             totals = [np.zeros(0) for _ in sums]
@@ -307,4 +311,4 @@ def missing_reason(condition: pl.Expr, reason: str) -> pl.Expr:
 
 
 __all__ = ["CONTEXTS", "KEY", "LAST_OF_MONTH", "LOGS", "MONTH_ID", "Plan", "evaluate", "log_of", "missing_reason",
-           "month_shifted", "prepare", "run_plan"]
+           "month_shifted", "prepare", "run_plan", "with_steps"]

@@ -45,10 +45,6 @@ LN2 = math.log(2.0)
 PARKINSON_CONSTANT = 4.0 * LN2
 
 
-def _log(col: str) -> pl.Expr:
-    return log_of(col)
-
-
 def _volatility_plan(sums: dict[str, pl.Expr], variance: pl.Expr, output: str, *, min_obs: int,
                      annualise: bool = False, trading_days: int = 252,
                      steps: tuple[dict[str, pl.Expr], ...] = ()) -> Plan:
@@ -70,7 +66,7 @@ def _volatility_plan(sums: dict[str, pl.Expr], variance: pl.Expr, output: str, *
 
 
 def _mean_piece_plan(piece: pl.Expr, output: str, **options) -> Plan:
-    """A variance that is the month's mean of a per-day piece."""
+    """A variance that is the month's mean of a per-day piece (``options`` as for ``_volatility_plan``)."""
     return _volatility_plan({"sum": piece, "n": piece.is_not_null()}, pl.col("sum") / pl.col("n"), output,
                             min_obs=1, **options)
 
@@ -91,29 +87,29 @@ def close_to_close_plan(*, annualise: bool = False, trading_days: int = 252) -> 
 
 def parkinson_plan(**options) -> Plan:
     """The plan of ``parkinson_volatility``."""
-    return _mean_piece_plan((_log("high") - _log("low")) ** 2 / PARKINSON_CONSTANT, "vol_parkinson", **options)
+    return _mean_piece_plan((log_of("high") - log_of("low")) ** 2 / PARKINSON_CONSTANT, "vol_parkinson", **options)
 
 
 def garman_klass_plan(**options) -> Plan:
     """The plan of ``garman_klass_volatility``."""
-    piece = 0.5 * (_log("high") - _log("low")) ** 2 - (2.0 * LN2 - 1.0) * (_log("close") - _log("open")) ** 2
+    piece = 0.5 * (log_of("high") - log_of("low")) ** 2 - (2.0 * LN2 - 1.0) * (log_of("close") - log_of("open")) ** 2
     return _mean_piece_plan(piece, "vol_garman_klass", **options)
 
 
 def rogers_satchell_plan(**options) -> Plan:
     """The plan of ``rogers_satchell_volatility``."""
-    plan = _mean_piece_plan(pl.col("_rs_piece"), "vol_rogers_satchell", **options)
-    return Plan(steps=({"_rs_piece": _rogers_satchell_piece()},), sums=plan.sums, monthly=plan.monthly)
+    return _mean_piece_plan(pl.col("_rs_piece"), "vol_rogers_satchell", steps=({"_rs_piece": _rogers_satchell_piece()},),
+                            **options)
 
 
 def yang_zhang_plan(**options) -> Plan:
     """The plan of ``yang_zhang_volatility``."""
     paired = pl.col("_yz_paired")
     steps = (
-        {"_rs_piece": _rogers_satchell_piece(), "_yz_previous_close": previous_in_month(_log("close"))},
+        {"_rs_piece": _rogers_satchell_piece(), "_yz_previous_close": previous_in_month(log_of("close"))},
         {"_yz_paired": pl.col("_yz_previous_close").is_not_null() & pl.col("_rs_piece").is_not_null()},
-        {"_yz_overnight": pl.when(paired).then(_log("open") - pl.col("_yz_previous_close")),
-         "_yz_open_close": pl.when(paired).then(_log("close") - _log("open"))},
+        {"_yz_overnight": pl.when(paired).then(log_of("open") - pl.col("_yz_previous_close")),
+         "_yz_open_close": pl.when(paired).then(log_of("close") - log_of("open"))},
     )
     overnight, open_close = pl.col("_yz_overnight"), pl.col("_yz_open_close")
     sums = {"n": paired, "overnight": overnight, "overnight_sq": overnight * overnight,
@@ -178,7 +174,7 @@ def garman_klass_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tra
 
 
 def _rogers_satchell_piece() -> pl.Expr:
-    h, l, o, c = _log("high"), _log("low"), _log("open"), _log("close")
+    h, l, o, c = log_of("high"), log_of("low"), log_of("open"), log_of("close")
     return (h - c) * (h - o) + (l - c) * (l - o)
 
 
