@@ -57,6 +57,13 @@ MISSING_SECURITY = "(missing)"
 SPLIT_RATIOS = (1.5, 2.0, 3.0, 4.0, 5.0, 10.0, 1 / 2, 1 / 3, 1 / 4, 1 / 5, 1 / 10)
 
 
+ADJUSTED_TWICE = (
+    "the daily file has its own return column and `inputs.adjustments` is set, so liqpanel cannot tell whether "
+    "those returns are already adjusted; remove the return column from `columns.daily` (returns are then computed "
+    "from the closes and adjusted) or remove `inputs.adjustments`"
+)
+
+
 @dataclass
 class DailyRead:
     daily: pl.DataFrame
@@ -177,13 +184,7 @@ def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: b
     (``liqpanel.bars.add_returns``).
     """
     if adjustments is not None and adjustments.height and has_returns:
-        raise ingest.error(
-            layout,
-            "the daily file has its own return column and `inputs.adjustments` is set, so liqpanel cannot tell "
-            "whether those returns are already adjusted; remove the return column from `columns.daily` (returns "
-            "are then computed from the closes and adjusted) or remove `inputs.adjustments`",
-            column="ret",
-        )
+        raise ingest.error(layout, ADJUSTED_TWICE, column="ret")
     lf = daily.lazy()
     if not has_returns:
         lf = add_returns(lf, adjustments=adjustments)

@@ -357,16 +357,18 @@ def read_checked(layout: Layout, spec: Spec) -> pl.DataFrame:
 
 
 def sample_check(kind: str, path: str, columns: dict[str, str] | None = None, fmt: dict | None = None,
-                 rows: int = 1000) -> list[str]:
+                 rows: int = 1000, *, numbers: tuple[str, ...] = ()) -> list[str]:
     """Cheap check of an input's first ``rows`` rows per file: it opens, its mapping and
-    date columns are there, and its dates parse. Returns the problems as messages (empty when fine).
+    key columns are there, it has data rows, and its dates (and the ``numbers`` named, our
+    names) parse. Returns the problems as messages, empty when there are none.
 
     ``kind`` is one of ``SCALAR_INPUTS`` or ``characteristics``; for the
-    latter ``fmt`` may carry ``date_column`` besides the format keys.
+    latter ``fmt`` may carry ``date_column`` besides the format keys. Trade
+    and quote files are only opened (their rows are checked by the clean stage).
     """
     fmt = dict(fmt or {})
     date_column = fmt.pop("date_column", "date")
-    layout = layout_from(kind, path, columns or {}, fmt)
+    layout = layout_from(kind, path, columns, fmt)
     dated = {
         "daily": Spec("daily file", dates=("date",)),
         "adjustments": Spec("adjustments file", dates=("date",)),
@@ -378,10 +380,14 @@ def sample_check(kind: str, path: str, columns: dict[str, str] | None = None, fm
     problems = []
     try:
         if kind in dated:
-            frame, files = read_frame(layout, dated[kind], n_rows=rows)
+            spec = dated[kind]
+            spec = Spec(spec.name, text=spec.text, dates=spec.dates, months=spec.months, numeric=numbers, flags_ok=True)
+            frame, files = read_frame(layout, spec, n_rows=rows)
             problem = first_bad(frame, layout, files, dates=(date_column, "date", "month"))
             if problem is not None:
                 problems.append(str(problem))
+            elif not frame.height:
+                problems.append(str(InputError(f"the {spec.name} has a header but no data rows", path=files[0])))
         else:
             for file in list_files(path):
                 schema_of(scan_file(file, layout, rows), file)

@@ -51,15 +51,29 @@ def check_inputs(config: dict) -> None:
                                  path=inputs[key])
     if inputs.get("adjustments"):
         _adjustments(config)
+    formats = config.get("formats") or {}
+    numbers = {
+        "daily": () if config.get("daily", {}).get("unparseable") == "drop" else ("open", "high", "low", "close", "volume"),
+        "returns": ("ret",),
+    }
     problems = [
         problem
         for kind in ("daily", "returns", "factors", "truth")
         if inputs.get(kind)
-        for problem in ingest.sample_check(kind, inputs[kind], columns.get(kind), (config.get("formats") or {}).get(kind))
+        for problem in ingest.sample_check(kind, inputs[kind], columns.get(kind), formats.get(kind),
+                                           numbers=numbers.get(kind, ()))
     ]
     for entry in inputs.get("characteristics", []):
         fmt = {**(entry.get("format") or {}), "date_column": entry.get("date_column", "date")}
-        problems += ingest.sample_check("characteristics", entry["path"], entry.get("columns"), fmt)
+        problems += ingest.sample_check("characteristics", entry["path"], entry.get("columns"), fmt,
+                                        numbers=tuple(entry["variables"]))
+    if inputs.get("daily") and inputs.get("adjustments") and not problems:
+        from liqpanel import dailyfile
+
+        layout = ingest.layout_of(config, "daily")
+        file = ingest.list_files(layout.path)[0]
+        if "ret" in ingest.schema_of(ingest.scan_file(file, layout, 1), file):
+            problems.append(str(ingest.error(layout, dailyfile.ADJUSTED_TWICE, file=file, column="ret")))
     if problems:
         raise InputError("\n  ".join(problems) if len(problems) == 1 else
                          f"{len(problems)} problems with the inputs:\n  " + "\n  ".join(problems))
