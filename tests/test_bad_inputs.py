@@ -494,3 +494,31 @@ def test_nan_trade_price_is_a_missing_field_in_the_audit(tmp_path, kind):
     audit = pl.read_parquet(tmp_path / "a.parquet").filter(pl.col("table") == "trades")
     assert audit["rows_read"].sum() == 8 and audit["drop_missing_field"].sum() == 1 and audit["rows_kept"].sum() == 7
     assert pl.read_parquet(tmp_path / "c.parquet")["price"].is_nan().sum() == 0
+
+
+def test_truncated_gzip_trade_file_names_the_file(tmp_path, capsys):
+    text = "SYM,STAMP,PX,QTY\n" + "".join(f"QOLM,2021-03-01 10:{i // 60:02d}:{i % 60:02d},10.0{i % 9},100\n"
+                                          for i in range(2000))
+    full = gzip.compress(text.encode())
+    (tmp_path / "t.csv.gz").write_bytes(full[: len(full) * 2 // 3])
+    _stops(capsys, _trade_config(tmp_path, tmp_path / "t.csv.gz"), "t.csv.gz", "cannot read")
+
+
+def test_time_format_and_separator_of_a_trade_file(tmp_path):
+    from liqpanel.readers import TRADES_SPEC, read_table
+
+    (tmp_path / "t.csv").write_text("SYM|DAY|CLOCK|PX|QTY\nQOLM|03/01/2021|10h30m05|10.5|100\n")
+    mapping = {"SYM": "security", "DAY": "date", "CLOCK": "time", "PX": "price", "QTY": "size"}
+    fmt = {"date_format": "%m/%d/%Y", "time_format": "%Hh%Mm%S", "separator": "|"}
+    frame = read_table(str(tmp_path / "t.csv"), mapping, TRADES_SPEC, "UTC", fmt=fmt).frame.collect()
+    # 03/01/2021 read month first is 1 March 2021; 10h30m05 is 10:30:05 (strftime, common practice)
+    assert str(frame["ts"][0]) == "2021-03-01 10:30:05+00:00" and frame["_bad"][0] is None
+
+
+def test_sample_check_lists_problems_without_raising(tmp_path):
+    (tmp_path / "d.csv").write_text("Sym,TradeDate\nQOLM,07/08/2021\n")
+    problems = ingest.sample_check("daily", str(tmp_path / "d.csv"), {"Sym": "security", "TradeDate": "date"})
+    assert len(problems) == 1 and "'TradeDate' (date)" in problems[0] and "'07/08/2021'" in problems[0]
+    fmt = {"date_format": "%d/%m/%Y"}
+    assert ingest.sample_check("daily", str(tmp_path / "d.csv"), {"Sym": "security", "TradeDate": "date"}, fmt) == []
+    assert "no such file" in ingest.sample_check("returns", str(tmp_path / "none.csv"))[0]

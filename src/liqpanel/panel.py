@@ -17,7 +17,7 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.contracts import check_unique_key, month_of, require_columns
+from liqpanel.contracts import check_unique_key, month_of
 from liqpanel.errors import InputError
 from liqpanel import ingest
 

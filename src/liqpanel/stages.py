@@ -18,7 +18,7 @@ from liqpanel import report as rep
 from liqpanel import readers
 from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
-from liqpanel.contracts import DAILY, month_of, require_columns
+from liqpanel.contracts import month_of
 from liqpanel.errors import InputError
 from liqpanel import ingest
 from liqpanel.io import previous_month, write_parquet, write_text
