@@ -522,3 +522,26 @@ def test_sample_check_lists_problems_without_raising(tmp_path):
     fmt = {"date_format": "%d/%m/%Y"}
     assert ingest.sample_check("daily", str(tmp_path / "d.csv"), {"Sym": "security", "TradeDate": "date"}, fmt) == []
     assert "no such file" in ingest.sample_check("returns", str(tmp_path / "none.csv"))[0]
+
+
+def test_a_day_before_the_sample_gives_the_first_return_its_previous_close(tmp_path):
+    rows = _days(securities=("QOLM",), start=20201228, n=30)  # four days of December 2020 first
+    _write_daily(tmp_path / "d.csv", rows)
+    read = _read(tmp_path / "d.csv")
+    assert _totals(read.audit)["drop_outside_sample"] == 4
+    first = read.daily.row(0, named=True)
+    # close-to-close return from the last December close (common practice)
+    assert str(first["date"]) == "2021-01-01"  # a Friday; the invented calendar has no holidays
+    assert first["ret"] == pytest.approx(rows[4][5] / rows[3][5] - 1, rel=1e-12)
+
+
+def test_unparseable_rows_dropped_by_policy_do_not_stop_the_check(tmp_path):
+    from liqpanel.stages import check_inputs
+
+    rows = _days()
+    rows[3] = (rows[3][0], "someday", *rows[3][2:])
+    _write_daily(tmp_path / "daily.csv", rows)
+    config = validate_config(yaml.safe_load(_config(tmp_path, daily={"unparseable": "drop"}).read_text()))
+    check_inputs(config)  # no error: the row is dropped and counted by the daily job
+    t = _totals(_read(tmp_path / "daily.csv", _settings(unparseable="drop")).audit)
+    assert (t["drop_unparseable"], t["rows_kept"]) == (1, 199)

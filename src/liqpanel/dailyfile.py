@@ -7,8 +7,6 @@ breaks, in this order (``liqpanel.ingest`` reads the values):
   ``daily.unparseable: drop``; by default the run stops naming the file, the
   column, the row and the value)
 - ``missing_key``: security or date missing
-- ``outside_sample``: a date before the first or after the last month of
-  ``sample:``
 - ``duplicate``: a second row for the same security and date
   (``daily.duplicates``: ``error`` stops the run, the default;
   ``keep_first`` keeps the first row in file order and drops the others;
@@ -22,6 +20,9 @@ breaks, in this order (``liqpanel.ingest`` reads the values):
   ``daily.bad_range: drop_range`` (the default) the day is kept with its
   open, high and low cleared (counted in ``repaired_range``), with
   ``drop_day`` it is dropped under this rule
+- ``outside_sample``: a valid day before the first or after the last month
+  of ``sample:`` (the last such day before the sample still gives the
+  sample's first return its previous close)
 
 Kept rows whose other numbers (ret, dollar_volume, shares_out, ...) are not
 finite keep the row with that value missing, counted in ``repaired_non_finite``.
@@ -44,8 +45,8 @@ from liqpanel.contracts import DAILY, check_unique_key, month_of
 from liqpanel.errors import InputError
 
 RULES = (
-    "unparseable", "missing_key", "outside_sample", "duplicate", "non_finite", "no_trade", "nonpositive_price",
-    "negative_volume", "bad_range",
+    "unparseable", "missing_key", "duplicate", "non_finite", "no_trade", "nonpositive_price", "negative_volume",
+    "bad_range", "outside_sample",
 )
 REPAIRS = ("repaired_range", "repaired_non_finite")
 PRICES = ("open", "high", "low", "close")
@@ -98,19 +99,22 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
         pl.when(pl.col("_bad").is_not_null()).then(pl.lit("unparseable"))
         .when(pl.col("security").is_null() | (pl.col("security") == "") | pl.col("date").is_null())
         .then(pl.lit("missing_key"))
-        .when((pl.col("date") < first) | (month_of("date") > last)).then(pl.lit("outside_sample"))
         .otherwise(pl.lit(None, dtype=pl.String))
         .alias("_rule")
     ).sort("_file", "_row")
     frame = _duplicates(frame, layout, files, settings.get("duplicates", "error"))
     content, bad_range = _content_rule(settings)
-    frame = frame.with_columns(pl.coalesce("_rule", content).alias("_rule"), bad_range.alias("_bad_range"))
+    outside = pl.when((pl.col("date") < first) | (month_of("date") > last)).then(pl.lit("outside_sample"))
+    frame = frame.with_columns(pl.coalesce("_rule", content, outside).alias("_rule"), bad_range.alias("_bad_range"))
+    # a valid day outside the sample still gives the first return inside it its previous close
+    valid = pl.col("_rule").is_null() | (pl.col("_rule") == "outside_sample")
     kept = pl.col("_rule").is_null()
-    clear = kept & pl.col("_bad_range")
+    clear = valid & pl.col("_bad_range")
     return frame.with_columns(
         *[pl.when(clear).then(None).otherwise(pl.col(c)).alias(c) for c in ("open", "high", "low")],
-        clear.alias("_repaired_range"),
+        (kept & pl.col("_bad_range")).alias("_repaired_range"),
         (kept & pl.col("_nonfinite").is_not_null()).alias("_repaired_non_finite"),
+        valid.alias("_valid"),
     )
 
 
@@ -238,7 +242,7 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     flagged = flag_rows(frame, layout, files, settings or {}, sample)
     audit = audit_of(flagged)
     check_balance(audit, layout.path)
-    kept = flagged.filter(pl.col("_rule").is_null())
+    kept = flagged.filter(pl.col("_valid"))
     names = set(frame.columns)
     kept = kept.with_columns(month_of("date").alias("month"))
     if "dollar_volume" not in names:
@@ -249,7 +253,8 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     extra = [c for c in ("shares_out", "mkt_ret") if c in names]
     kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra)
     daily = adjust(kept, adjustments, has_returns, layout)
-    daily = daily.select(
+    first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
+    daily = daily.filter(pl.col("month").is_between(first, last)).select(
         [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in extra]
     ).sort("security", "date")
     check_unique_key(daily, ("security", "date"), table="daily")

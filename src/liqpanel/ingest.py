@@ -357,14 +357,16 @@ def read_checked(layout: Layout, spec: Spec) -> pl.DataFrame:
 
 
 def sample_check(kind: str, path: str, columns: dict[str, str] | None = None, fmt: dict | None = None,
-                 rows: int = 1000, *, numbers: tuple[str, ...] = ()) -> list[str]:
+                 rows: int = 1000, *, numbers: tuple[str, ...] = (), values: bool = True) -> list[str]:
     """Cheap check of an input's first ``rows`` rows per file: it opens, its mapping and
     key columns are there, it has data rows, and its dates (and the ``numbers`` named, our
     names) parse. Returns the problems as messages, empty when there are none.
 
     ``kind`` is one of ``SCALAR_INPUTS`` or ``characteristics``; for the
     latter ``fmt`` may carry ``date_column`` besides the format keys. Trade
-    and quote files are only opened (their rows are checked by the clean stage).
+    and quote files are only opened (their rows are checked by the clean stage),
+    as is every file with ``values=False`` (rows that do not parse are dropped
+    and counted later, e.g. ``daily: unparseable: drop``).
     """
     fmt = dict(fmt or {})
     date_column = fmt.pop("date_column", "date")
@@ -379,7 +381,7 @@ def sample_check(kind: str, path: str, columns: dict[str, str] | None = None, fm
     }
     problems = []
     try:
-        if kind in dated:
+        if kind in dated and values:
             spec = dated[kind]
             spec = Spec(spec.name, text=spec.text, dates=spec.dates, months=spec.months, numeric=numbers, flags_ok=True)
             frame, files = read_frame(layout, spec, n_rows=rows)

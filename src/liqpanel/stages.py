@@ -52,16 +52,14 @@ def check_inputs(config: dict) -> None:
     if inputs.get("adjustments"):
         _adjustments(config)
     formats = config.get("formats") or {}
-    numbers = {
-        "daily": () if config.get("daily", {}).get("unparseable") == "drop" else ("open", "high", "low", "close", "volume"),
-        "returns": ("ret",),
-    }
+    numbers = {"daily": ("open", "high", "low", "close", "volume"), "returns": ("ret",)}
+    dropped = {"daily"} if config.get("daily", {}).get("unparseable") == "drop" else set()
     problems = [
         problem
         for kind in ("daily", "returns", "factors", "truth")
         if inputs.get(kind)
         for problem in ingest.sample_check(kind, inputs[kind], columns.get(kind), formats.get(kind),
-                                           numbers=numbers.get(kind, ()))
+                                           numbers=numbers.get(kind, ()), values=kind not in dropped)
     ]
     for entry in inputs.get("characteristics", []):
         fmt = {**(entry.get("format") or {}), "date_column": entry.get("date_column", "date")}
