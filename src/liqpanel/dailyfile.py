@@ -131,13 +131,20 @@ def _duplicates(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], po
             f"{dupes.filter(pl.col('_nth') == 1).height} keys are repeated in all. Fix the file, or set "
             "`daily: duplicates: keep_first` (keep the first row of each key) or `drop_all` (drop every copy); "
             "either way the drops are counted in the daily audit",
-            file=files[first["_file"]], column="date", row=rows["_row"][-1] + 1, value=str(first["date"]),
+            file=files[first["_file"]], column="date", row=rows["_row"][-1] + 1,
+            value=_as_written(files[first["_file"]], layout, rows["_row"][-1], "date"),
         )
     drop = pl.col("_copies") > 1 if policy == "drop_all" else pl.col("_nth") > 1
     return frame.with_columns(
         pl.when(pl.col("_rule").is_null() & drop.fill_null(False)).then(pl.lit("duplicate")).otherwise(pl.col("_rule"))
         .alias("_rule")
     ).drop("_nth", "_copies")
+
+
+def _as_written(file: str, layout: ingest.Layout, row: int, column: str) -> str:
+    """A value as the file writes it (for a message)."""
+    value = ingest.collect(ingest.scan_file(file, layout).slice(row, 1).select(column), file).item()
+    return str(value)
 
 
 def _copies(frame: pl.DataFrame) -> pl.DataFrame:
