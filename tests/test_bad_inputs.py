@@ -545,3 +545,19 @@ def test_unparseable_rows_dropped_by_policy_do_not_stop_the_check(tmp_path):
     check_inputs(config)  # no error: the row is dropped and counted by the daily job
     t = _totals(_read(tmp_path / "daily.csv", _settings(unparseable="drop")).audit)
     assert (t["drop_unparseable"], t["rows_kept"]) == (1, 199)
+
+
+def test_nan_trade_price_with_quotes_is_a_missing_field_not_outside_quotes(tmp_path):
+    prices = ["10.00", "10.02", "NaN", "10.01", "10.03", "10.02", "10.04", "10.03"]
+    trades = _trades_csv(tmp_path / "t.csv", prices)
+    stamps = [f"2021-03-0{d} {h}:00:00" for d in (1, 2) for h in (9, 10, 11, 12, 13)]
+    (tmp_path / "q.csv").write_text("SYM,STAMP,BID,ASK\n" + "".join(f"QOLM,{s},9.99,10.05\n" for s in stamps))
+    config = validate_config(yaml.safe_load(_trade_config(
+        tmp_path, trades, clean={"outliers": None},
+        columns={"trades": {"SYM": "security", "STAMP": "ts", "PX": "price", "QTY": "size"},
+                 "quotes": {"SYM": "security", "STAMP": "ts", "BID": "bid", "ASK": "ask"}},
+    ).read_text()))
+    config["inputs"]["quotes"] = str(tmp_path / "q.csv")
+    clean_month(config, "2021-03", str(tmp_path / "c.parquet"), str(tmp_path / "a.parquet"), str(tmp_path / "cq.parquet"))
+    audit = pl.read_parquet(tmp_path / "a.parquet").filter(pl.col("table") == "trades")
+    assert (audit["drop_missing_field"].sum(), audit["drop_outside_quotes"].sum(), audit["rows_kept"].sum()) == (1, 0, 7)

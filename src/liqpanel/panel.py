@@ -193,13 +193,13 @@ def transform_panel(panel: pl.DataFrame, transforms: dict[str, Any]) -> pl.DataF
 
 
 def coverage(panel: pl.DataFrame, variables: list[str]) -> pl.DataFrame:
-    """Securities per month and the share of each variable that is missing."""
+    """Securities per month and the share of each variable that is missing (null, NaN or infinite)."""
     present = [v for v in variables if v in panel.columns]
     return (
         panel.group_by("month")
         .agg(
             pl.len().cast(pl.Int64).alias("securities"),
-            *[(pl.col(v).is_null() | pl.col(v).is_nan()).mean().alias(f"missing_{v}") if panel.schema[v].is_float()
+            *[(pl.col(v).is_null() | ~pl.col(v).is_finite()).mean().alias(f"missing_{v}") if panel.schema[v].is_float()
               else pl.col(v).is_null().mean().alias(f"missing_{v}") for v in present],
         )
         .sort("month")
