@@ -149,12 +149,14 @@ def _as_written(file: str, layout: ingest.Layout, row: int, column: str) -> str:
 
 def _copies(frame: pl.DataFrame) -> pl.DataFrame:
     """``_nth`` (1-based position in file order) and ``_copies`` among the live rows of each key."""
-    live = frame.filter(pl.col("_rule").is_null()).select(
-        "_file", "_row",
-        (pl.int_range(pl.len()).over("security", "date") + 1).alias("_nth"),
-        pl.len().over("security", "date").alias("_copies"),
+    live = pl.col("_rule").is_null()
+    if not frame.filter(live).select(pl.struct("security", "date").is_duplicated().any()).item():
+        return frame.with_columns(pl.lit(1, dtype=pl.UInt32).alias("_nth"), pl.lit(1, dtype=pl.UInt32).alias("_copies"))
+    key = [pl.col("security"), pl.col("date"), live.alias("_live")]
+    return frame.with_columns(
+        pl.when(live).then(pl.int_range(1, pl.len() + 1).over(key)).alias("_nth"),
+        pl.when(live).then(pl.len().over(key)).alias("_copies"),
     )
-    return frame.join(live, on=["_file", "_row"], how="left", maintain_order="left")
 
 
 def audit_of(flagged: pl.DataFrame) -> pl.DataFrame:

@@ -195,26 +195,26 @@ def require(schema: pl.Schema, columns, layout: Layout, file: str, table: str) -
             )
 
 
-def number(name: str, dtype: pl.DataType, layout: Layout, file: str, *, flags_ok: bool = False
-           ) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
-    """(Float64 value with non-finite values missing, unparseable flag, non-finite flag) of a numeric column.
-
-    With ``flags_ok`` a boolean column (e.g. a breakpoint universe) stays boolean.
-    """
+def _as_float(name: str, dtype: pl.DataType, layout: Layout, file: str) -> pl.Expr:
+    """A numeric column as Float64 (text stripped and converted; what does not convert is null)."""
     raw = pl.col(name)
-    if dtype == pl.Boolean and flags_ok:
-        return raw, pl.lit(False), pl.lit(False)
     if dtype.is_numeric():
-        value = raw.cast(pl.Float64)
-        unparseable = pl.lit(False)
-    elif dtype == pl.String:
-        text = raw.str.strip_chars()
-        value = text.cast(pl.Float64, strict=False)
-        unparseable = text.is_not_null() & (text != "") & value.is_null()
-    elif dtype == pl.Null:
-        return pl.lit(None, dtype=pl.Float64), pl.lit(False), pl.lit(False)
+        return raw.cast(pl.Float64)
+    if dtype == pl.String:
+        return raw.str.strip_chars().cast(pl.Float64, strict=False)
+    if dtype == pl.Null:
+        return pl.lit(None, dtype=pl.Float64)
+    raise error(layout, f"expected numbers, found values of type {dtype}", file=file, column=name)
+
+
+def number(name: str, dtype: pl.DataType, layout: Layout, file: str) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
+    """(Float64 value with non-finite values missing, unparseable flag, non-finite flag) of a numeric column."""
+    value = _as_float(name, dtype, layout, file)
+    raw = pl.col(name)
+    if dtype == pl.String:
+        unparseable = raw.is_not_null() & (raw.str.strip_chars() != "") & value.is_null()
     else:
-        raise error(layout, f"expected numbers, found values of type {dtype}", file=file, column=name)
+        unparseable = pl.lit(False)
     nonfinite = value.is_not_null() & ~value.is_finite()
     return pl.when(nonfinite).then(None).otherwise(value), unparseable, nonfinite
 
@@ -278,16 +278,6 @@ def first_bad(frame: pl.DataFrame, layout: Layout, files: list[str], *, dates: t
                  value=first["_value"])
 
 
-def flags(checks: list[tuple[pl.Expr, str, pl.Expr]]) -> list[pl.Expr]:
-    """``_bad`` (our name of the first column flagged on the row) and ``_value`` (its raw text)."""
-    if not checks:
-        return [pl.lit(None, dtype=pl.String).alias("_bad"), pl.lit(None, dtype=pl.String).alias("_value")]
-    return [
-        pl.coalesce([pl.when(bad).then(pl.lit(column)) for bad, column, _ in checks]).alias("_bad"),
-        pl.coalesce([pl.when(bad).then(raw.cast(pl.String)) for bad, _, raw in checks]).alias("_value"),
-    ]
-
-
 @dataclass(frozen=True)
 class Spec:
     """The declared schema of a small table: text keys, dates, months and numbers."""
@@ -306,7 +296,8 @@ def read_frame(layout: Layout, spec: Spec, *, n_rows: int | None = None) -> tupl
     """Every file of ``layout`` parsed by ``spec``; helper columns ``_file``, ``_row``, ``_bad``,
     ``_value`` and ``_nonfinite`` (our name of the first column whose number was not finite).
 
-    Columns the spec does not name are dropped unless ``other_numeric``.
+    Columns the spec does not name are dropped unless ``other_numeric``. Each
+    value is converted once; the flags are read off the converted columns.
     """
     files = list_files(layout.path)
     frames = []
@@ -314,31 +305,53 @@ def read_frame(layout: Layout, spec: Spec, *, n_rows: int | None = None) -> tupl
         lf = scan_file(file, layout, n_rows)
         schema = schema_of(lf, file)
         require(schema, (*spec.text, *spec.dates, *spec.months, *spec.numeric), layout, file, spec.name)
-        checks, nonfinite, columns = [], [], []
-        for column in spec.text:
-            columns.append(pl.col(column).cast(pl.String).str.strip_chars().alias(column))
-        for column in (*spec.dates, *spec.months):
-            parsed, bad = date(column, schema[column], layout, file, months=column in spec.months)
-            columns.append(parsed.alias(column))
-            checks.append((bad, column, pl.col(column)))
         named = set(spec.text) | set(spec.dates) | set(spec.months)
         numbers = [*spec.numeric, *[c for c in spec.optional_numeric if c in schema]]
         if spec.other_numeric:
             numbers += [c for c in schema.names() if c not in named and c not in numbers]
+        parsed = {c: date(c, schema[c], layout, file, months=c in spec.months)[0] for c in (*spec.dates, *spec.months)}
+        floats = []
         for column in numbers:
-            value, bad, infinite = number(column, schema[column], layout, file, flags_ok=spec.flags_ok)
-            columns.append(value.alias(column))
-            checks.append((bad, column, pl.col(column)))
-            nonfinite.append(pl.when(infinite).then(pl.lit(column)))
+            if schema[column] == pl.Boolean and spec.flags_ok:
+                parsed[column] = pl.col(column)
+            else:
+                parsed[column] = _as_float(column, schema[column], layout, file)
+                floats.append(column)
+        present = {
+            c: pl.col(f"_raw_{c}").is_not_null() & (pl.col(f"_raw_{c}").str.strip_chars() != "")
+            if schema[c] == pl.String else pl.col(f"_raw_{c}").is_not_null()
+            for c in parsed
+        }
         frame = collect(
-            lf.with_row_index("_row").select(
-                pl.lit(index, dtype=pl.Int32).alias("_file"), pl.col("_row").cast(pl.Int64), *columns, *flags(checks),
-                (pl.coalesce(nonfinite) if nonfinite else pl.lit(None, dtype=pl.String)).alias("_nonfinite"),
-            ),
+            lf.with_row_index("_row")
+            .select(
+                pl.lit(index, dtype=pl.Int32).alias("_file"), pl.col("_row").cast(pl.Int64),
+                *[pl.col(c).cast(pl.String).str.strip_chars().alias(c) for c in spec.text],
+                *[pl.col(c).alias(f"_raw_{c}") for c in parsed],
+                *[expr.alias(c) for c, expr in parsed.items()],
+            )
+            .with_columns(
+                *[(present[c] & pl.col(c).is_null()).alias(f"_bad_{c}") for c in parsed],
+                *[(pl.col(c).is_not_null() & ~pl.col(c).is_finite()).alias(f"_inf_{c}") for c in floats],
+            )
+            .with_columns(
+                _first([(pl.col(f"_bad_{c}"), pl.lit(c)) for c in parsed]).alias("_bad"),
+                _first([(pl.col(f"_bad_{c}"), pl.col(f"_raw_{c}").cast(pl.String)) for c in parsed]).alias("_value"),
+                _first([(pl.col(f"_inf_{c}"), pl.lit(c)) for c in floats]).alias("_nonfinite"),
+                *[pl.when(pl.col(f"_inf_{c}")).then(None).otherwise(pl.col(c)).alias(c) for c in floats],
+            )
+            .select(pl.exclude("^_(raw|bad|inf)_.*$")),
             file,
         )
         frames.append(frame)
     return pl.concat(frames, how="diagonal_relaxed"), files
+
+
+def _first(cases: list[tuple[pl.Expr, pl.Expr]]) -> pl.Expr:
+    """The value of the first case whose condition holds, else null (text)."""
+    if not cases:
+        return pl.lit(None, dtype=pl.String)
+    return pl.coalesce([pl.when(condition).then(value) for condition, value in cases])
 
 
 def read_checked(layout: Layout, spec: Spec) -> pl.DataFrame:
