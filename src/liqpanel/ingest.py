@@ -296,7 +296,8 @@ def read_frame(layout: Layout, spec: Spec, *, n_rows: int | None = None) -> tupl
     """Every file of ``layout`` parsed by ``spec``; helper columns ``_file``, ``_row``, ``_bad``,
     ``_value`` and ``_nonfinite`` (our name of the first column whose number was not finite).
 
-    Columns the spec does not name are dropped unless ``other_numeric``. Each
+    Month columns hold the first day of their month. Columns the spec does
+    not name are dropped unless ``other_numeric``. Each
     value is converted once; the flags are read off the converted columns.
     """
     files = list_files(layout.path)
@@ -309,7 +310,8 @@ def read_frame(layout: Layout, spec: Spec, *, n_rows: int | None = None) -> tupl
         numbers = [*spec.numeric, *[c for c in spec.optional_numeric if c in schema]]
         if spec.other_numeric:
             numbers += [c for c in schema.names() if c not in named and c not in numbers]
-        parsed = {c: date(c, schema[c], layout, file, months=c in spec.months)[0] for c in (*spec.dates, *spec.months)}
+        parsed = {c: date(c, schema[c], layout, file)[0] for c in spec.dates}
+        parsed |= {c: date(c, schema[c], layout, file, months=True)[0].dt.truncate("1mo") for c in spec.months}
         floats = []
         for column in numbers:
             if schema[column] == pl.Boolean and spec.flags_ok:
@@ -354,18 +356,33 @@ def _first(cases: list[tuple[pl.Expr, pl.Expr]]) -> pl.Expr:
     return pl.coalesce([pl.when(condition).then(value) for condition, value in cases])
 
 
-def read_checked(layout: Layout, spec: Spec) -> pl.DataFrame:
+def check_unique(frame: pl.DataFrame, layout: Layout, files: list[str], key: tuple[str, ...]) -> None:
+    """Stop naming the first row whose key (our names) repeats an earlier row's."""
+    repeated = frame.sort("_file", "_row").filter(pl.struct(*key).is_duplicated())
+    if repeated.height:
+        first = repeated.row(0, named=True)
+        same = repeated.filter(pl.all_horizontal([pl.col(c) == first[c] for c in key]))
+        rows = ", ".join(str(r + 1) for r in same["_row"].head(3).to_list())
+        what = ", ".join(f"{c} {first[c]}" for c in key)
+        raise error(layout, f"{same.height} rows have the same {what} (data rows {rows}); each must appear once",
+                    file=files[same["_file"][-1]], column=key[-1], row=same["_row"][-1] + 1, value=str(first[key[-1]]))
+
+
+def read_checked(layout: Layout, spec: Spec, key: tuple[str, ...] = ()) -> pl.DataFrame:
     """A small table read whole: a value that does not parse stops the run naming file, column, row, value.
 
     Non-finite numbers become missing (they are counted where the table is
-    used: the panel's coverage table). A file with no data rows stops too.
+    used: the panel's coverage table). A file with no data rows stops too, as
+    does a repeated ``key`` (our names), naming the rows.
     """
     frame, files = read_frame(layout, spec)
     problem = first_bad(frame, layout, files, dates=(*spec.dates, *spec.months))
     if problem is not None:
         raise problem
     if not frame.height:
-        raise InputError(f"the {spec.name} file has a header but no data rows", path=files[0])
+        raise InputError(f"the {spec.name} has a header but no data rows", path=files[0])
+    if key:
+        check_unique(frame, layout, files, key)
     return frame.drop(HELPERS)
 
 

@@ -70,8 +70,7 @@ def read_monthly_returns(layout: "ingest.Layout | str", mapping: dict[str, str] 
     if not isinstance(layout, ingest.Layout):
         layout = ingest.Layout(kind="returns", path=str(layout), mapping=dict(mapping or {}))
     spec = ingest.Spec("monthly returns file", months=("month",), numeric=("ret",), optional_numeric=("delist_ret",))
-    frame = ingest.read_checked(layout, spec)
-    return frame.with_columns(month_of("month").alias("month")).lazy()
+    return ingest.read_checked(layout, spec, key=("security", "month")).lazy()
 
 
 def read_characteristics(entry: dict) -> pl.DataFrame:

@@ -18,7 +18,6 @@ from liqpanel import report as rep
 from liqpanel import readers
 from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
-from liqpanel.contracts import month_of
 from liqpanel.errors import InputError
 from liqpanel import ingest
 from liqpanel.io import previous_month, write_parquet, write_text
@@ -217,8 +216,9 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> 
 def read_truth(config: dict) -> pl.DataFrame:
     """The simulator's truth file (security, month, spread and other numbers) through the input contract."""
     return ingest.read_checked(
-        ingest.layout_of(config, "truth"), ingest.Spec("truth file", months=("month",), other_numeric=True)
-    ).with_columns(month_of("month").alias("month"))
+        ingest.layout_of(config, "truth"), ingest.Spec("truth file", months=("month",), other_numeric=True),
+        key=("security", "month"),
+    )
 
 
 def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> None:
@@ -228,8 +228,9 @@ def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> No
     factors = None
     if config["inputs"].get("factors"):
         factors = ingest.read_checked(
-            ingest.layout_of(config, "factors"), ingest.Spec("factor file", text=(), months=("month",), other_numeric=True)
-        ).with_columns(month_of("month").alias("month"))
+            ingest.layout_of(config, "factors"), ingest.Spec("factor file", text=(), months=("month",), other_numeric=True),
+            key=("month",),
+        )
     sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
     result = run_models(
         pl.read_parquet(panel_path), config["models"], monthly=pl.read_parquet(monthly_path), factors=factors,
