@@ -72,7 +72,8 @@ class DailyRead:
     splits: pl.DataFrame
 
 
-def _content_rule(settings: dict) -> pl.Expr:
+def _content_rule(settings: dict) -> tuple[pl.Expr, pl.Expr]:
+    """The first content rule a row breaks (null: none) and whether its range is inconsistent."""
     bad_range = (pl.col("high") < pl.col("low")) | pl.any_horizontal(
         [(pl.col(c) < pl.col("low")) | (pl.col(c) > pl.col("high")) for c in ("open", "close")]
     )
