@@ -8,6 +8,7 @@ nothing else, so every stage can be run and tested without Snakemake.
 from __future__ import annotations
 
 import json
+import sys
 from pathlib import Path
 from typing import Any
 
@@ -188,6 +189,13 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
     write_parquet(read.audit, out_audit)
     splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
     write_parquet(splits, out_splits)
+    if splits.height:
+        days = "; ".join(f"{s} {d} ({k}, return {r:.1%})" for s, d, r, _, k in splits.head(5).iter_rows())
+        more = f" and {splits.height - 5} more" if splits.height > 5 else ""
+        print(f"liqpanel: warning: {splits.height} day{'s' if splits.height > 1 else ''} of the daily file look like "
+              f"split{'s' if splits.height > 1 else ''} the prices were not "
+              f"adjusted for: {days}{more}; give them in `inputs.adjustments` (listed in the table "
+              "daily_suspected_splits)", file=sys.stderr)
 
 
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
