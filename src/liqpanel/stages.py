@@ -192,8 +192,9 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
     if splits.height:
         days = "; ".join(f"{s} {d} ({k}, return {r:.1%})" for s, d, r, _, k in splits.head(5).iter_rows())
         more = f" and {splits.height - 5} more" if splits.height > 5 else ""
-        print(f"liqpanel: warning: {splits.height} day{'s' if splits.height > 1 else ''} of the daily file look like "
-              f"split{'s' if splits.height > 1 else ''} the prices were not "
+        many = splits.height > 1
+        print(f"liqpanel: warning: {splits.height} day{'s' if many else ''} of the daily file "
+              f"{'look like splits' if many else 'looks like a split'} the prices were not "
               f"adjusted for: {days}{more}; give them in `inputs.adjustments` (listed in the table "
               "daily_suspected_splits)", file=sys.stderr)
 
