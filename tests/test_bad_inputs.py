@@ -561,3 +561,30 @@ def test_nan_trade_price_with_quotes_is_a_missing_field_not_outside_quotes(tmp_p
     clean_month(config, "2021-03", str(tmp_path / "c.parquet"), str(tmp_path / "a.parquet"), str(tmp_path / "cq.parquet"))
     audit = pl.read_parquet(tmp_path / "a.parquet").filter(pl.col("table") == "trades")
     assert (audit["drop_missing_field"].sum(), audit["drop_outside_quotes"].sum(), audit["rows_kept"].sum()) == (1, 0, 7)
+
+
+def test_factor_value_that_is_not_a_number(tmp_path, capsys):
+    (tmp_path / "f.csv").write_text("Mon,MKT\n202101,0.01\n202102,n/a?\n")
+    cfg = _config(tmp_path, inputs={"factors": str(tmp_path / "f.csv")},
+                  columns={"daily": DAILY_MAP, "factors": {"Mon": "month", "MKT": "mkt"}})
+    _stops(capsys, cfg, "f.csv", "'MKT' (mkt)", "data row 2", "'n/a?'")
+
+
+def test_truth_value_that_is_not_a_number(tmp_path, capsys):
+    (tmp_path / "t.csv").write_text("security,month,spread\nQOLM,2021-01,wide\n")
+    _stops(capsys, _config(tmp_path, inputs={"truth": str(tmp_path / "t.csv")}), "t.csv", "'spread'", "'wide'")
+
+
+def test_characteristics_variable_column_absent(tmp_path, capsys):
+    inputs = _chars(tmp_path, "security,date,book\nQOLM,20201231,0.5\n")
+    _stops(capsys, _config(tmp_path, inputs=inputs), "chars.csv", "'bm'", "`columns:`")
+
+
+def test_daily_file_without_a_security_column(tmp_path, capsys):
+    _write_daily(tmp_path / "daily.csv", [r[1:] for r in _days()], header=HEADER.split(",", 1)[1])
+    cfg = _config(tmp_path, columns={"daily": {k: v for k, v in DAILY_MAP.items() if k != "Sym"}})
+    _stops(capsys, cfg, "daily.csv", "'security'")
+
+
+def test_daily_glob_that_matches_nothing(tmp_path, capsys):
+    _stops(capsys, _config(tmp_path, inputs={"daily": str(tmp_path / "prices_*.csv")}), "prices_*.csv", "no such file")

@@ -413,7 +413,8 @@ def sample_check(kind: str, path: str, columns: dict[str, str] | None = None, fm
     try:
         if kind in dated and values:
             spec = dated[kind]
-            spec = Spec(spec.name, text=spec.text, dates=spec.dates, months=spec.months, numeric=numbers, flags_ok=True)
+            spec = Spec(spec.name, text=spec.text, dates=spec.dates, months=spec.months, numeric=numbers, flags_ok=True,
+                        other_numeric=kind in ("factors", "truth"))
             frame, files = read_frame(layout, spec, n_rows=rows)
             problem = first_bad(frame, layout, files, dates=(date_column, "date", "month"))
             if problem is not None:
