@@ -250,11 +250,15 @@ def test_characteristics_ambiguous_date(tmp_path, capsys):
     _stops(capsys, _config(tmp_path, inputs=inputs), "chars.csv", "'date'", "data row 1", "date_format")
 
 
-def test_factors_with_a_bad_month(tmp_path, capsys):
-    (tmp_path / "f.csv").write_text("Mon,MKT\n2021-01,0.01\n2021/02,0.02\n")
+@pytest.mark.parametrize("second_row, column, value", [
+    ("2021/02,0.02", "'Mon' (month)", "'2021/02'"),   # a month in no recognised form
+    ("202102,n/a?", "'MKT' (mkt)", "'n/a?'"),          # a factor return that is not a number
+])
+def test_factor_file_rows_that_do_not_parse(tmp_path, capsys, second_row, column, value):
+    (tmp_path / "f.csv").write_text(f"Mon,MKT\n2021-01,0.01\n{second_row}\n")
     cfg = _config(tmp_path, inputs={"factors": str(tmp_path / "f.csv")},
                   columns={"daily": DAILY_MAP, "factors": {"Mon": "month", "MKT": "mkt"}})
-    _stops(capsys, cfg, "f.csv", "'Mon' (month)", "data row 2", "'2021/02'")
+    _stops(capsys, cfg, "f.csv", column, "data row 2", value)
 
 
 def test_truth_with_a_bad_month(tmp_path, capsys):
@@ -561,13 +565,6 @@ def test_nan_trade_price_with_quotes_is_a_missing_field_not_outside_quotes(tmp_p
     clean_month(config, "2021-03", str(tmp_path / "c.parquet"), str(tmp_path / "a.parquet"), str(tmp_path / "cq.parquet"))
     audit = pl.read_parquet(tmp_path / "a.parquet").filter(pl.col("table") == "trades")
     assert (audit["drop_missing_field"].sum(), audit["drop_outside_quotes"].sum(), audit["rows_kept"].sum()) == (1, 0, 7)
-
-
-def test_factor_value_that_is_not_a_number(tmp_path, capsys):
-    (tmp_path / "f.csv").write_text("Mon,MKT\n202101,0.01\n202102,n/a?\n")
-    cfg = _config(tmp_path, inputs={"factors": str(tmp_path / "f.csv")},
-                  columns={"daily": DAILY_MAP, "factors": {"Mon": "month", "MKT": "mkt"}})
-    _stops(capsys, cfg, "f.csv", "'MKT' (mkt)", "data row 2", "'n/a?'")
 
 
 def test_truth_value_that_is_not_a_number(tmp_path, capsys):
