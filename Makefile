@@ -8,7 +8,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 CORES ?= 2
 
-.PHONY: demo test study bench bench-measures bench-scale cluster-test clean-work report expected verify
+.PHONY: demo test study bench bench-measures bench-scale bench-daily cluster-test clean-work report expected verify
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -35,12 +35,16 @@ $(VENV)/.installed-cluster: $(STAMP)
 cluster-test: $(VENV)/.installed-cluster
 	bash .ci/cluster-test.sh
 
-bench: bench-measures bench-scale
+bench: bench-measures bench-scale bench-daily
 
 # Measures stage against a naive pandas baseline and a one-pass floor (a few minutes);
 # smaller: make bench-measures BENCH_MEASURES_ARGS="--securities 500 --years 2"
 bench-measures: $(STAMP)
 	$(BIN)/python -m bench.measures $(BENCH_MEASURES_ARGS)
+
+# A daily file read, checked and audited once against one scan of it per month (under a minute)
+bench-daily: $(STAMP)
+	$(BIN)/python -m bench.daily_file $(BENCH_DAILY_ARGS)
 
 # Month partitions of 1x, 4x and 16x a base market beside a pandas script (about two minutes)
 bench-scale: $(STAMP)

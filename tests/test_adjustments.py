@@ -58,10 +58,10 @@ def test_adjustment_file_is_read_with_a_mapping_and_checked(tmp_path):
         ("X", date(2021, 3, 3), 2.0, 0.0), ("Y", date(2021, 3, 4), 1.0, 0.0)
     ]
     path.write_text("security,date,dividend\nX,2021-03-03,one\n")
-    with pytest.raises(InputError, match="events.csv, column 'dividend': data row 1 .*'one'"):
+    with pytest.raises(InputError, match="events.csv: column 'dividend', data row 1 .*'one'"):
         read_adjustments(str(path), {})
     path.write_text("security,date,split_ratio\nX,2021-03-03,0\n")
-    with pytest.raises(InputError, match="split_ratio must be positive"):
+    with pytest.raises(InputError, match="column 'split_ratio', data row 1.*a positive finite split_ratio"):
         read_adjustments(str(path), {})
 
 

@@ -54,3 +54,26 @@ def test_missing_and_bad_columns_are_named(tmp_path):
         read_daily_file(str(path), {})
     with pytest.raises(InputError, match="'nope'"):
         read_daily_file(str(path), {"nope": "security"})
+
+
+@pytest.mark.slow
+def test_daily_example_run_puts_the_daily_audit_in_the_run_folder(tmp_path):
+    import gzip
+
+    from liqpanel import cli
+
+    config = yaml.safe_load((REPO / "config" / "daily_example.yaml").read_text())
+    config["run"].update(results_dir=str(tmp_path / "results"), work_dir=str(tmp_path / "work"))
+    for key in ("daily", "returns"):
+        config["inputs"][key] = str(REPO / config["inputs"][key])
+    config["inputs"]["characteristics"][0]["path"] = str(REPO / config["inputs"]["characteristics"][0]["path"])
+    path = tmp_path / "daily.yaml"
+    path.write_text(yaml.safe_dump(config))
+    assert cli.main(["run", "--config", str(path), "--cores", "2", "--quiet", "rules"]) == 0
+    audit = pl.read_csv(tmp_path / "results" / "latest" / "tables" / "daily_audit.csv")
+    counts = dict(zip(audit["rows"], audit["count"]))
+    # every data line of the file (lines minus the header) is read and kept; nothing dropped
+    lines = sum(1 for _ in gzip.open(REPO / config["inputs"]["daily"], "rt")) - 1
+    assert counts["read"] == counts["kept"] == lines
+    assert sum(v for k, v in counts.items() if k.startswith("dropped")) == 0
+    assert not (tmp_path / "results" / "latest" / "tables" / "daily_suspected_splits.csv").exists()

@@ -132,7 +132,7 @@ def test_workflow_stops_on_bad_rows_naming_file_column_and_row(tmp_path, tiny_ma
     cfg["inputs"]["quotes"] = None
     cfg["columns"] = {"trades": {"sym": "security", "when": "ts", "px": "price", "qty": "size"}}
     stderr = _failed_run(tmp_path, cfg)
-    assert "trades.csv, column 'price': data row 2 (line 3 of the CSV) of the trades has 'ten'" in stderr
+    assert "trades.csv: column 'px' (price), data row 2 (line 3 of the CSV) of the trades has 'ten'" in stderr
 
 
 def test_workflow_stops_on_an_unknown_key_naming_it(tmp_path, tiny_market):

@@ -11,6 +11,7 @@
 from __future__ import annotations
 
 import argparse
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -57,12 +58,48 @@ def _check_config(args: argparse.Namespace) -> int:
     return 0
 
 
+_JOB_ERROR = re.compile(r'^(\w+) in file ".*", line \d+:$')
+_FRAME = re.compile(r'^\s+File ".*", line \d+')
+_OURS = ("InputError", "ConfigError", "LiqpanelError")
+
+
 def _snakemake(args: argparse.Namespace, extra: list[str], target: str) -> int:
+    """Run the workflow; a user's error raised inside a job ends as one line without engine frames.
+
+    Snakemake prints an exception raised in a job as its class, the rule
+    file, the message and the Python frames. For our own errors (a bad
+    input, a bad setting) the frames say nothing to a user: they are left
+    out and the message is repeated last as ``liqpanel: ...`` with exit status 2.
+    """
     cmd = [
         sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
         "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", target,
     ]
-    return subprocess.call(cmd)
+    proc = subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True, bufsize=1)
+    ours, message, reading = False, [], False
+    for line in proc.stderr:
+        head = _JOB_ERROR.match(line.rstrip("\n"))
+        if line.startswith("RuleException:"):
+            continue
+        if head:
+            ours, reading = head.group(1) in _OURS, True
+            if not ours:
+                sys.stderr.write(line)
+            continue
+        if _FRAME.match(line):
+            reading = False
+            if ours:
+                continue
+        elif reading:
+            message.append(line.rstrip("\n"))
+            if ours:
+                continue
+        sys.stderr.write(line)
+    code = proc.wait()
+    if code != 0 and ours and message:
+        print("liqpanel: " + "\n".join(message), file=sys.stderr)
+        return 2
+    return code
 
 
 def _check_tables(args: argparse.Namespace) -> int:
@@ -78,7 +115,9 @@ def _check_tables(args: argparse.Namespace) -> int:
 def _run(args: argparse.Namespace, extra: list[str]) -> int:
     from liqpanel.config import load_config
 
-    load_config(args.config)  # fail fast with a clear message
+    from liqpanel.stages import check_inputs
+
+    check_inputs(load_config(args.config))  # fail fast with a clear message, before the workflow starts
     return _snakemake(args, extra, "all")
 
 

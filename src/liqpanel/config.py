@@ -49,21 +49,37 @@ def _message(error: jsonschema.ValidationError) -> str:
     return f"{where}: {error.message}"
 
 
-def _fill_defaults(instance: Any, schema: dict) -> Any:
-    """Fill ``default`` values of object properties, recursively."""
+_NO_DEFAULT = object()
+
+
+def _resolve(schema: dict, root: dict) -> dict:
+    if "$ref" not in schema:
+        return schema
+    target = root
+    for part in schema["$ref"].removeprefix("#/").split("/"):
+        target = target[part]
+    return target
+
+
+def _fill_defaults(instance: Any, schema: dict, root: dict | None = None) -> Any:
+    """Fill ``default`` values of object properties, recursively (local ``$ref``s followed)."""
+    root = schema if root is None else root
+    if "$ref" in schema:
+        schema = {**_resolve(schema, root), **{k: v for k, v in schema.items() if k != "$ref"}}
     if isinstance(instance, dict) and schema.get("type") == "object":
         for key, sub in schema.get("properties", {}).items():
-            if key not in instance and "default" in sub:
-                instance[key] = copy.deepcopy(sub["default"])
+            default = _resolve(sub, root).get("default", _NO_DEFAULT) if "default" not in sub else sub["default"]
+            if key not in instance and default is not _NO_DEFAULT:
+                instance[key] = copy.deepcopy(default)
             if key in instance:
-                instance[key] = _fill_defaults(instance[key], sub)
+                instance[key] = _fill_defaults(instance[key], sub, root)
         extra = schema.get("additionalProperties")
         if isinstance(extra, dict):
             for key in instance:
                 if key not in schema.get("properties", {}):
-                    instance[key] = _fill_defaults(instance[key], extra)
+                    instance[key] = _fill_defaults(instance[key], extra, root)
     elif isinstance(instance, list) and isinstance(schema.get("items"), dict):
-        return [_fill_defaults(item, schema["items"]) for item in instance]
+        return [_fill_defaults(item, schema["items"], root) for item in instance]
     return instance
 
 

@@ -1,4 +1,4 @@
-"""Reading user tables into our contracts, and writing outputs safely.
+"""Listing input files and writing outputs safely (reading them: ``liqpanel.ingest``).
 
 Inputs are never modified. Outputs are written to a temporary name in the
 same folder and moved into place, so a reader never sees a partial file.
@@ -29,32 +29,6 @@ def _files(path: str) -> list[str]:
 def expand_inputs(path: str | Path) -> list[str]:
     """The files an input path names: the file itself, or a glob's sorted matches."""
     return _files(str(path))
-
-
-def scan_table(path: str | Path, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
-    """Lazily scan a Parquet or CSV file (or a glob of them) and rename columns.
-
-    ``mapping`` goes from the user's column names to ours; columns not named
-    keep their names.
-    """
-    path = str(path)
-    files = _files(path)
-    suffixes = {Path(f).suffixes[-1].lower() if Path(f).suffixes else "" for f in files}
-    if suffixes <= {".parquet", ".pq"}:
-        lf = pl.scan_parquet(files)
-    elif suffixes <= {".csv", ".gz", ".zst"}:
-        lf = pl.concat([pl.scan_csv(f, try_parse_dates=False) for f in files], how="vertical_relaxed")
-    else:
-        raise InputError(f"unsupported file type {sorted(suffixes)}; expected .parquet or .csv", path=path)
-    if mapping:
-        names = lf.collect_schema().names()
-        for theirs in mapping:
-            if theirs not in names:
-                raise InputError(
-                    f"the `columns:` mapping names '{theirs}' but the file has {names}", path=path, column=theirs
-                )
-        lf = lf.rename(mapping)
-    return lf
 
 
 def sha256_file(path: str | Path, chunk: int = 1 << 20) -> str:

@@ -17,9 +17,9 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.contracts import check_unique_key, month_of, require_columns
+from liqpanel.contracts import check_unique_key, month_of
 from liqpanel.errors import InputError
-from liqpanel.io import scan_table
+from liqpanel import ingest
 
 KEY = ["security", "month"]
 
@@ -60,16 +60,32 @@ def monthly_from_daily(daily: pl.LazyFrame) -> pl.LazyFrame:
     return daily.group_by("security", "month").agg(((pl.col("ret") + 1.0).product() - 1.0).alias("ret"))
 
 
-def read_monthly_returns(path: str, mapping: dict[str, str] | None = None) -> pl.LazyFrame:
-    lf = scan_table(path, mapping)
-    require_columns(lf, ("security", "month", "ret"), table="monthly returns", path=path)
-    delist = [pl.col("delist_ret").cast(pl.Float64)] if "delist_ret" in lf.collect_schema().names() else []
-    return lf.select(
-        pl.col("security").cast(pl.String),
-        month_of(pl.col("month").cast(pl.Date)).alias("month"),
-        pl.col("ret").cast(pl.Float64),
-        *delist,
-    )
+def read_monthly_returns(layout: "ingest.Layout | str", mapping: dict[str, str] | None = None) -> pl.LazyFrame:
+    """The monthly returns file (security, month, ret, optional delist_ret) through the input contract.
+
+    ``month`` may be any day of the month (date, YYYY-MM-DD, YYYYMMDD) or
+    YYYY-MM / YYYYMM; a return that is not finite becomes missing, and so
+    shows in the panel's coverage table as a missing ``ret_next``.
+    """
+    if not isinstance(layout, ingest.Layout):
+        layout = ingest.Layout(kind="returns", path=str(layout), mapping=dict(mapping or {}))
+    spec = ingest.Spec("monthly returns file", months=("month",), numeric=("ret",), optional_numeric=("delist_ret",))
+    return ingest.read_checked(layout, spec, key=("security", "month")).lazy()
+
+
+def read_characteristics(entry: dict) -> pl.DataFrame:
+    """One ``inputs.characteristics`` source: security, its date column and its variables as numbers.
+
+    The entry's own ``columns:`` maps the user's names to ours and its
+    ``format:`` says how dates and missing values are written
+    (``liqpanel.ingest``); an integer date is YYYYMMDD, never a day count.
+    Values that are not finite become missing (counted in the coverage table).
+    """
+    layout = ingest.characteristics_layout(entry)
+    date_column = entry.get("date_column", "date")
+    spec = ingest.Spec(f"characteristics file '{entry['name']}'", dates=(date_column,), numeric=tuple(entry["variables"]),
+                       flags_ok=True)
+    return ingest.read_checked(layout, spec)
 
 
 def asof_characteristics(
@@ -79,7 +95,7 @@ def asof_characteristics(
     public = (
         source.select(
             pl.col("security").cast(pl.String),
-            month_of(pl.col(date_column).cast(pl.Date)).dt.offset_by(f"{lag_months}mo").alias("public_month"),
+            month_of(pl.col(date_column)).dt.offset_by(f"{lag_months}mo").alias("public_month"),
             *[pl.col(v) for v in variables],
         )
         .drop_nulls("public_month")
@@ -176,13 +192,13 @@ def transform_panel(panel: pl.DataFrame, transforms: dict[str, Any]) -> pl.DataF
 
 
 def coverage(panel: pl.DataFrame, variables: list[str]) -> pl.DataFrame:
-    """Securities per month and the share of each variable that is missing."""
+    """Securities per month and the share of each variable that is missing (null, NaN or infinite)."""
     present = [v for v in variables if v in panel.columns]
     return (
         panel.group_by("month")
         .agg(
             pl.len().cast(pl.Int64).alias("securities"),
-            *[(pl.col(v).is_null() | pl.col(v).is_nan()).mean().alias(f"missing_{v}") if panel.schema[v].is_float()
+            *[(pl.col(v).is_null() | ~pl.col(v).is_finite()).mean().alias(f"missing_{v}") if panel.schema[v].is_float()
               else pl.col(v).is_null().mean().alias(f"missing_{v}") for v in present],
         )
         .sort("month")

@@ -31,14 +31,13 @@ value as text).
 
 from __future__ import annotations
 
-import glob
-import os
 from dataclasses import dataclass, field
 from typing import Callable
 from pathlib import Path
 
 import polars as pl
 
+from liqpanel import ingest
 from liqpanel.errors import InputError
 
 HELPER_COLUMNS = ("_file", "_row", "_bad", "_value")
@@ -81,57 +80,25 @@ class Scanned:
 
 def list_files(path: str | Path) -> list[str]:
     """The files a path or glob names, sorted; InputError when there are none."""
-    path = str(path)
-    files = sorted(glob.glob(path)) if any(ch in path for ch in "*?[") else [path]
-    if not files or not all(os.path.isfile(f) for f in files):
-        raise InputError("no such file (check `inputs:` in the config)", path=path)
-    return files
-
-
-def _scan_one(path: str) -> pl.LazyFrame:
-    lower = path.lower()
-    if lower.endswith(_PARQUET):
-        return pl.scan_parquet(path)
-    if lower.endswith(_CSV):
-        if os.path.getsize(path) == 0:
-            raise InputError("the file is empty; expected a header row naming the columns", path=path)
-        return pl.scan_csv(path, try_parse_dates=False, infer_schema_length=10_000)
-    raise InputError(f"unsupported file type; expected one of {', '.join(_PARQUET + _CSV)}", path=path)
-
-
-def _rename(lf: pl.LazyFrame, mapping: dict[str, str], path: str) -> pl.LazyFrame:
-    try:
-        names = lf.collect_schema().names()
-    except pl.exceptions.PolarsError as exc:
-        raise InputError(f"cannot read the file: {str(exc).splitlines()[0]}", path=path) from None
-    for theirs in mapping:
-        if theirs not in names:
-            raise InputError(
-                f"the `columns:` mapping names '{theirs}' but the file has {names}", path=path, column=theirs
-            )
-    return lf.rename(mapping) if mapping else lf
+    return ingest.list_files(path)
 
 
 def _flag(bad: pl.Expr, column: str, raw: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
     return pl.when(bad).then(pl.lit(column)), pl.when(bad).then(raw.cast(pl.String))
 
 
-def _number(name: str, dtype: pl.DataType, path: str) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
-    """(parsed Float64, bad flag, raw) for a numeric column."""
-    raw = pl.col(name)
-    if dtype.is_numeric():
-        return raw.cast(pl.Float64), pl.lit(False), raw
-    if dtype == pl.String:
-        parsed = raw.str.strip_chars().cast(pl.Float64, strict=False)
-        return parsed, raw.is_not_null() & (raw.str.strip_chars() != "") & parsed.is_null(), raw
-    raise InputError(f"expected numbers, found values of type {dtype}", path=path, column=name)
+def _number(name: str, dtype: pl.DataType, layout: ingest.Layout, path: str) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
+    """(parsed Float64, bad flag, raw) for a numeric column; NaN and +-inf become missing
+    (and so fall under the clean stage's rule ``missing_field``)."""
+    value, bad, _ = ingest.number(name, dtype, layout, path)
+    return value, bad, pl.col(name)
 
 
 def _to_utc(naive: pl.Expr, timezone: str) -> pl.Expr:
     return naive.dt.replace_time_zone(timezone, ambiguous="earliest", non_existent="null").dt.convert_time_zone("UTC")
 
 
-def _timestamp(schema: pl.Schema, timezone: str, path: str) -> tuple[pl.Expr, pl.Expr, pl.Expr, str]:
+def _timestamp(schema: pl.Schema, timezone: str, path: str, layout: ingest.Layout) -> tuple[pl.Expr, pl.Expr, pl.Expr, str]:
     """(UTC timestamp, bad flag, raw text, how it was read)."""
     naive_note = f"naive, read in the market time zone {timezone}"
     if "ts" in schema:
@@ -141,6 +108,13 @@ def _timestamp(schema: pl.Schema, timezone: str, path: str) -> tuple[pl.Expr, pl
                 return _to_utc(raw.dt.cast_time_unit("us"), timezone), pl.lit(False), raw, naive_note
             note = f"zone-aware ({dtype.time_zone}), converted to UTC"
             return raw.dt.convert_time_zone("UTC").dt.cast_time_unit("us"), pl.lit(False), raw, note
+        if dtype == pl.String and layout.time_format:
+            text = raw.str.strip_chars()
+            aware = "%z" in layout.time_format or "%#z" in layout.time_format
+            parsed = text.str.to_datetime(layout.time_format, time_unit="us", strict=False)
+            parsed = parsed.dt.convert_time_zone("UTC") if aware else _to_utc(parsed, timezone)
+            note = f"text in the format {layout.time_format!r}" + ("" if aware else f", {naive_note}")
+            return parsed, text.is_not_null() & parsed.is_null(), raw, note
         if dtype == pl.String:
             text = raw.str.strip_chars()
             aware = text.str.contains(_OFFSET)
@@ -154,8 +128,8 @@ def _timestamp(schema: pl.Schema, timezone: str, path: str) -> tuple[pl.Expr, pl
             return pl.when(mixed).then(None).otherwise(parsed), bad, raw, note
         raise InputError(f"expected timestamps (datetime or ISO text), found {dtype}", path=path, column="ts")
     if "date" in schema and "time" in schema:
-        day, day_bad = _date(schema["date"], path)
-        clock, clock_bad = _clock(schema["time"], path)
+        day, day_bad = ingest.date("date", schema["date"], layout, path)
+        clock, clock_bad = _clock(schema["time"], path, layout)
         if isinstance(schema["time"], pl.Duration):
             naive = day.cast(pl.Datetime("us")) + clock
         else:
@@ -169,29 +143,13 @@ def _timestamp(schema: pl.Schema, timezone: str, path: str) -> tuple[pl.Expr, pl
     )
 
 
-def _date(dtype: pl.DataType, path: str) -> tuple[pl.Expr, pl.Expr]:
-    raw = pl.col("date")
-    if dtype == pl.Date:
-        return raw, pl.lit(False)
-    if isinstance(dtype, pl.Datetime):
-        return raw.dt.date(), pl.lit(False)
-    if dtype.is_integer():
-        parsed = raw.cast(pl.String).str.to_date("%Y%m%d", strict=False)
-    elif dtype == pl.String:
-        text = raw.str.strip_chars()
-        parsed = pl.coalesce(text.str.to_date("%Y-%m-%d", strict=False), text.str.to_date("%Y%m%d", strict=False))
-    else:
-        raise InputError(f"expected dates (date, YYYY-MM-DD text or YYYYMMDD), found {dtype}", path=path, column="date")
-    return parsed, raw.is_not_null() & parsed.is_null()
-
-
-def _clock(dtype: pl.DataType, path: str) -> tuple[pl.Expr, pl.Expr]:
+def _clock(dtype: pl.DataType, path: str, layout: ingest.Layout) -> tuple[pl.Expr, pl.Expr]:
     raw = pl.col("time")
     if dtype == pl.Time or isinstance(dtype, pl.Duration):
         return raw, pl.lit(False)
     if dtype == pl.String:
         text = raw.str.strip_chars()
-        parsed = pl.coalesce(
+        parsed = text.str.to_time(layout.time_format, strict=False) if layout.time_format else pl.coalesce(
             text.str.to_time("%H:%M:%S%.f", strict=False),
             text.str.to_time("%H:%M:%S", strict=False),
             text.str.to_time("%H:%M", strict=False),
@@ -210,6 +168,7 @@ def read_table(
     spec: TableSpec,
     timezone: str,
     window: Callable[[pl.Schema], pl.Expr | None] | None = None,
+    fmt: dict | None = None,
 ) -> Scanned:
     """Scan every file of ``path`` into the contract of ``spec`` (``ts`` in UTC).
 
@@ -220,13 +179,15 @@ def read_table(
     condition that keeps at least the rows wanted, or None; it is applied
     before any conversion, so the Parquet reader skips the row groups it
     rules out (``liqpanel.partition.month_window``); ``_row`` still counts
-    every row of the file.
+    every row of the file. ``fmt`` is the input's entry of ``formats:``
+    (``liqpanel.ingest``): date and time formats, missing tokens, separator.
     """
     files = list_files(path)
+    layout = ingest.layout_from(spec.name, str(path), mapping, fmt)
     frames, notes = [], []
     for index, file in enumerate(files):
-        lf = _rename(_scan_one(file), dict(mapping or {}), file)
-        schema = lf.collect_schema()
+        lf = ingest.scan_file(file, layout)
+        schema = ingest.schema_of(lf, file)
         for column in ("security", *spec.numeric):
             if column not in schema:
                 raise InputError(
@@ -235,20 +196,21 @@ def read_table(
                     path=file,
                     column=column,
                 )
-        ts, ts_bad, ts_raw, note = _timestamp(schema, timezone, file)
+        ts, ts_bad, ts_raw, note = _timestamp(schema, timezone, file, layout)
         notes.append(note)
         # a value present that gives no instant (e.g. a local time skipped by a clock change) is bad too
         ts_bad = ts_bad | (ts_raw.is_not_null() & ts.is_null())
         checks = [(ts_bad, "ts" if "ts" in schema else "date/time", ts_raw)]
         numbers = {}
         for column in (*spec.numeric, *[c for c in spec.optional_numeric if c in schema]):
-            parsed, bad, raw = _number(column, schema[column], file)
+            parsed, bad, raw = _number(column, schema[column], layout, file)
             numbers[column] = parsed
             checks.append((bad, column, raw))
         flags = [_flag(bad, column, raw) for bad, column, raw in checks]
         # a fresh scan: once its schema has been asked for, Polars no longer
         # numbers rows inside the reader, and then cannot skip row groups
-        indexed = _scan_one(file).with_row_index("_row")
+        indexed = ingest.scan_file(file, ingest.Layout(kind=layout.kind, path=file, separator=layout.separator,
+                                                       missing=layout.missing)).with_row_index("_row")
         indexed = indexed.rename(mapping) if mapping else indexed
         condition = window(schema) if window is not None else None
         if condition is not None:
@@ -270,7 +232,9 @@ def read_table(
     return Scanned(frame=frame, files=files, timestamps=notes)
 
 
-def unparseable_error(flagged: pl.DataFrame, files: list[str], table: str, *, droppable: bool = True) -> InputError | None:
+def unparseable_error(
+    flagged: pl.DataFrame, files: list[str], table: str, *, droppable: bool = True, mapping: dict[str, str] | None = None
+) -> InputError | None:
     """An InputError naming the first row (by file and row) whose value did not parse, or None."""
     bad = flagged.filter(pl.col("_bad").is_not_null())
     if not bad.height:
@@ -280,6 +244,12 @@ def unparseable_error(flagged: pl.DataFrame, files: list[str], table: str, *, dr
     row = first["_row"] + 1
     where = f"data row {row} (line {row + 1} of the CSV)" if not file.lower().endswith(_PARQUET) else f"row {row}"
     column = first["_bad"]
+    theirs = {ours: user for user, ours in (mapping or {}).items()}
+    if column == "date/time":
+        label = f"{theirs.get('date', 'date')}/{theirs.get('time', 'time')}"
+    else:
+        label = theirs.get(column, column)
+    label = f"{label}' ({column})" if label != column else f"{column}'"
     expected = "a number"
     if column in ("ts", "date/time"):
         expected = "a timestamp, all with or all without a zone, that exists in the market's time zone"
@@ -287,9 +257,9 @@ def unparseable_error(flagged: pl.DataFrame, files: list[str], table: str, *, dr
     if droppable:
         fix += ", or set `clean: unparseable: drop` to drop such rows under the rule 'unparseable'"
     return InputError(
-        f"{where} of the {table} has {first['_value']!r}, expected {expected} ({bad.height} such rows); {fix}",
+        f"column '{label}, {where} of the {table} has {first['_value']!r}, expected {expected} "
+        f"({bad.height} such rows); {fix}",
         path=file,
-        column=column,
     )
 
 
@@ -302,7 +272,7 @@ def empty_table(spec: TableSpec) -> pl.LazyFrame:
     return pl.LazyFrame(schema=schema)
 
 
-def read_adjustments(path: str | Path, mapping: dict[str, str] | None) -> pl.DataFrame:
+def read_adjustments(path: str | Path, mapping: dict[str, str] | None, fmt: dict | None = None) -> pl.DataFrame:
     """The split and dividend file: ``security``, ``date`` (ex-date) and at least
     one of ``split_ratio`` (new shares per old share, 1 = none) and
     ``dividend`` (cash per old share, currency units, 0 = none).
@@ -310,49 +280,31 @@ def read_adjustments(path: str | Path, mapping: dict[str, str] | None) -> pl.Dat
     The file is small, so it is read at once and checked row by row: a value
     that does not parse stops with an error naming the file, column and row.
     """
-    frames = []
-    for file in list_files(path):
-        lf = _rename(_scan_one(file), dict(mapping or {}), file)
-        schema = lf.collect_schema()
-        for column in ("security", "date"):
-            if column not in schema:
-                raise InputError(
-                    f"the adjustments table needs a column '{column}' but the file has {sorted(schema.names())}",
-                    path=file,
-                    column=column,
-                )
-        if "split_ratio" not in schema and "dividend" not in schema:
-            raise InputError(
-                "the adjustments table needs a column 'split_ratio' or 'dividend'", path=file, column="split_ratio"
-            )
-        day, day_bad = _date(schema["date"], file)
-        columns = [pl.col("security").cast(pl.String), day.alias("date")]
-        checks = [(day_bad, "date", pl.col("date"))]
-        for column, default in (("split_ratio", 1.0), ("dividend", 0.0)):
-            if column in schema:
-                parsed, bad, raw = _number(column, schema[column], file)
-                columns.append(parsed.fill_null(default).alias(column))
-                checks.append((bad, column, raw))
-            else:
-                columns.append(pl.lit(default).alias(column))
-        flags = [_flag(bad, column, raw) for bad, column, raw in checks]
-        frame = (
-            lf.with_row_index("_row")
-            .select(
-                pl.lit(0, dtype=pl.Int32).alias("_file"), pl.col("_row").cast(pl.Int64), *columns,
-                pl.coalesce([f[0] for f in flags]).alias("_bad"), pl.coalesce([f[1] for f in flags]).alias("_value"),
-            )
-            .collect()
+    layout = ingest.layout_from("adjustments", str(path), mapping, fmt)
+    spec = ingest.Spec("adjustments file", dates=("date",), optional_numeric=("split_ratio", "dividend"))
+    frame, files = ingest.read_frame(layout, spec)
+    if "split_ratio" not in frame.columns and "dividend" not in frame.columns:
+        raise ingest.error(layout, "the adjustments table needs a column 'split_ratio' or 'dividend'; map yours under "
+                           "`columns.adjustments`", file=files[0])
+    problem = ingest.first_bad(frame, layout, files)
+    if problem is not None:
+        raise problem
+    frame = frame.with_columns(
+        *[pl.col(c).fill_null(default) if c in frame.columns else pl.lit(default).alias(c)
+          for c, default in (("split_ratio", 1.0), ("dividend", 0.0))]
+    )
+    invalid = frame.filter(
+        (pl.col("split_ratio") <= 0) | (pl.col("dividend") < 0) | pl.col("_nonfinite").is_not_null()
+        | pl.col("security").is_null() | pl.col("date").is_null()
+    )
+    if invalid.height:
+        first = invalid.row(0, named=True)
+        column = next(c for c in ("security", "date", "split_ratio", "dividend") if first[c] is None) if (
+            first["security"] is None or first["date"] is None) else (
+            first["_nonfinite"] or ("split_ratio" if first["split_ratio"] <= 0 else "dividend"))
+        raise ingest.error(
+            layout, "every row needs a security and an ex-date, a positive finite split_ratio and a non-negative "
+            f"finite dividend ({invalid.height} rows break this)", file=files[first["_file"]], column=column,
+            row=first["_row"] + 1, value=first.get(column),
         )
-        error = unparseable_error(frame, [file], "adjustments", droppable=False)
-        if error is not None:
-            raise error
-        invalid = frame.filter((pl.col("split_ratio") <= 0) | (pl.col("dividend") < 0))
-        if invalid.height:
-            raise InputError(
-                f"data row {invalid['_row'][0] + 1}: split_ratio must be positive and dividend non-negative",
-                path=file,
-                column="split_ratio" if invalid["split_ratio"][0] <= 0 else "dividend",
-            )
-        frames.append(frame.drop(HELPER_COLUMNS))
-    return pl.concat(frames).sort("security", "date")
+    return frame.select("security", "date", "split_ratio", "dividend").sort("security", "date")

@@ -8,6 +8,7 @@ nothing else, so every stage can be run and tested without Snakemake.
 from __future__ import annotations
 
 import json
+import sys
 from pathlib import Path
 from typing import Any
 
@@ -18,11 +19,13 @@ from liqpanel import report as rep
 from liqpanel import readers
 from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
-from liqpanel.contracts import DAILY, month_of, require_columns
 from liqpanel.errors import InputError
-from liqpanel.io import previous_month, scan_table, write_parquet, write_text
+from liqpanel import ingest
+from liqpanel.io import previous_month, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
-from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
+from liqpanel.panel import (
+    build_panel, coverage, monthly_from_daily, read_characteristics, read_monthly_returns, transform_panel,
+)
 from liqpanel.partition import stored_window
 from liqpanel.replication import write_replication_files
 
@@ -41,33 +44,75 @@ def check_inputs(config: dict) -> None:
     inputs, columns = config["inputs"], config.get("columns", {})
     for key, spec in (("trades", readers.TRADES_SPEC), ("quotes", readers.QUOTES_SPEC)):
         if inputs.get(key):
-            readers.read_table(inputs[key], columns.get(key, {}), spec, market["timezone"])
+            read = readers.read_table(inputs[key], columns.get(key, {}), spec, market["timezone"],
+                                      fmt=(config.get("formats") or {}).get(key))
+            if key == "trades" and not ingest.collect(read.frame.select("_row").head(1), inputs[key]).height:
+                raise InputError("the trade file has a header but no data rows; nothing can be measured",
+                                 path=inputs[key])
     if inputs.get("adjustments"):
-        readers.read_adjustments(inputs["adjustments"], columns.get("adjustments", {}))
+        _adjustments(config)
+    formats = config.get("formats") or {}
+    numbers = {"daily": ("open", "high", "low", "close", "volume"), "returns": ("ret",)}
+    dropped = {"daily"} if config.get("daily", {}).get("unparseable") == "drop" else set()
+    problems = [
+        problem
+        for kind in ("daily", "returns", "factors", "truth")
+        if inputs.get(kind)
+        for problem in ingest.sample_check(kind, inputs[kind], columns.get(kind), formats.get(kind),
+                                           numbers=numbers.get(kind, ()), values=kind not in dropped)
+    ]
+    for entry in inputs.get("characteristics", []):
+        fmt = {**(entry.get("format") or {}), "date_column": entry.get("date_column", "date")}
+        problems += ingest.sample_check("characteristics", entry["path"], entry.get("columns"), fmt,
+                                        numbers=tuple(entry["variables"]))
+    if inputs.get("daily") and inputs.get("adjustments") and not problems:
+        from liqpanel import dailyfile
+
+        layout = ingest.layout_of(config, "daily")
+        file = ingest.list_files(layout.path)[0]
+        if "ret" in ingest.schema_of(ingest.scan_file(file, layout, 1), file):
+            problems.append(str(ingest.error(layout, dailyfile.ADJUSTED_TWICE, file=file, column="ret")))
+    if problems:
+        raise InputError("\n  ".join(problems) if len(problems) == 1 else
+                         f"{len(problems)} problems with the inputs:\n  " + "\n  ".join(problems))
 
 
 def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
-    """Clean one month partition of the trades (and quotes, when the config names them)."""
+    """Clean one month partition of the trades (and quotes, when the config names them).
+
+    A file the engine cannot read to the end (a corrupt Parquet page, a
+    truncated gzip) stops the run naming that file.
+    """
+    try:
+        _clean_month(config, month, out_trades, out_audit, out_quotes)
+    except (pl.exceptions.PolarsError, OSError) as exc:
+        raise ingest.damaged([config["inputs"][k] for k in ("quotes", "trades") if config["inputs"].get(k)],
+                             config.get("formats") or {}, exc) from None
+
+
+def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
     market = load_market(config["market"])
     rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
-    columns = config.get("columns", {})
+    columns, formats = config.get("columns", {}), config.get("formats") or {}
     audits, quotes, tz = [], None, market["timezone"]
 
     def window(schema: pl.Schema) -> pl.Expr | None:  # only this month's rows leave the file
         return stored_window(schema, month, sample, tz)
 
     if config["inputs"].get("quotes"):
-        read = readers.read_table(config["inputs"]["quotes"], columns.get("quotes", {}), readers.QUOTES_SPEC, tz, window)
+        read = readers.read_table(config["inputs"]["quotes"], columns.get("quotes", {}), readers.QUOTES_SPEC, tz, window,
+                                  fmt=formats.get("quotes"))
         flagged = flag_quotes(read.frame, market, rules, month=month, sample=sample).collect()
-        _stop_on_unparseable(flagged, read, "quotes", rules)
+        _stop_on_unparseable(flagged, read, "quotes", rules, columns.get("quotes"))
         quotes = kept_rows(flagged, QUOTE_COLUMNS).collect()
         audits.append(audit_of(flagged, "quotes", month=month, timestamps=read.describe_timestamps()))
-    read = readers.read_table(config["inputs"]["trades"], columns.get("trades", {}), readers.TRADES_SPEC, tz, window)
+    read = readers.read_table(config["inputs"]["trades"], columns.get("trades", {}), readers.TRADES_SPEC, tz, window,
+                              fmt=formats.get("trades"))
     flagged = flag_trades(
         read.frame, market, rules, month=month, sample=sample, quotes=quotes.lazy() if quotes is not None else None
     )
-    _stop_on_unparseable(flagged, read, "trades", rules)
+    _stop_on_unparseable(flagged, read, "trades", rules, columns.get("trades"))
     kept = kept_rows(flagged, TRADE_COLUMNS).collect()
     audits.append(audit_of(flagged, "trades", month=month, timestamps=read.describe_timestamps()))
     audit = pl.concat(pl.collect_all(audits), how="diagonal_relaxed").sort("table", "security", "date", nulls_last=True)
@@ -80,9 +125,9 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_q
         write_parquet(quotes if quotes is not None else empty, out_quotes)
 
 
-def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict) -> None:
+def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict, mapping: dict | None = None) -> None:
     if rules.get("unparseable", "error") == "error":
-        error = readers.unparseable_error(flagged, read.files, table)
+        error = readers.unparseable_error(flagged, read.files, table, mapping=mapping)
         if error is not None:
             raise error
 
@@ -100,51 +145,58 @@ def bars_month(clean_trades_path: str, out: str, config: dict | None = None, cle
 
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
-    adjustments = None
-    if config is not None and config["inputs"].get("adjustments"):
-        mapping = config["columns"].get("adjustments", {})
-        adjustments = readers.read_adjustments(config["inputs"]["adjustments"], mapping)
+    adjustments = _adjustments(config) if config is not None else None
     write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments), out)
 
 
-def read_daily_file(path: str, mapping: dict[str, str]) -> pl.LazyFrame:
-    """A user's daily file in the daily contract (see DEVELOPERS.md).
+def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = None) -> pl.LazyFrame:
+    """A user's daily file in the daily contract (see DEVELOPERS.md), checked by ``liqpanel.dailyfile``.
 
     Needs security, date, open, high, low, close and volume; ``dollar_volume``
     defaults to close x volume, ``n_trades`` to missing, and ``ret`` to the
     close-to-close return (only when the file has no return column: a
     vendor's adjusted return is always preferred). ``shares_out`` is kept
-    when present.
+    when present. Without a config the whole file is the sample.
     """
-    lf = scan_table(path, mapping)
-    required = ["security", "date", "open", "high", "low", "close", "volume"]
-    require_columns(lf, required, table="daily", path=path)
-    schema = lf.collect_schema()
-    for column in ("open", "high", "low", "close", "volume"):
-        if not schema[column].is_numeric():
-            raise InputError(f"expected numbers, found {schema[column]}", path=path, column=column)
-    date = pl.col("date").str.to_date("%Y-%m-%d", strict=False) if schema["date"] == pl.String else pl.col("date").cast(pl.Date)
-    lf = lf.with_columns(date.alias("date"), pl.col("security").cast(pl.String))
-    bad = lf.filter(pl.col("date").is_null()).select(pl.len()).collect().item()
-    if bad:
-        raise InputError(f"{bad} rows have a date that is missing or not YYYY-MM-DD", path=path, column="date")
-    lf = lf.with_columns(month_of("date").alias("month"))
-    if "dollar_volume" not in schema:
-        lf = lf.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
-    if "n_trades" not in schema:
-        lf = lf.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
-    if "ret" not in schema:
-        lf = bars_mod.add_returns(lf)
-    keep = [*DAILY, *[c for c in ("shares_out", "mkt_ret") if c in schema]]
-    return lf.select(
-        [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in keep[len(DAILY):]]
-    ).sort("security", "date")
+    return _read_daily(config or {}, path, mapping).daily.lazy()
 
 
-def daily_from_file(config: dict, month: str, out: str) -> None:
-    """The daily entry point: one month partition of a user's own daily file."""
-    lf = read_daily_file(config["inputs"]["daily"], config["columns"].get("daily", {}))
-    write_parquet(lf.filter(_month_filter(month)), out)
+def _read_daily(config: dict, path: str | None = None, mapping: dict | None = None) -> "dailyfile.DailyRead":
+    from liqpanel import dailyfile
+
+    layout = ingest.layout_of(config, "daily") if path is None else ingest.layout_from(
+        "daily", path, mapping, (config.get("formats") or {}).get("daily"))
+    sample = (config["sample"]["start"], config["sample"]["end"]) if "sample" in config else ("0001-01", "9999-12")
+    adjustments = _adjustments(config) if config.get("inputs") else None
+    return dailyfile.read_daily(layout, config.get("daily", {}), sample, adjustments)
+
+
+def _adjustments(config: dict) -> pl.DataFrame | None:
+    if not config["inputs"].get("adjustments"):
+        return None
+    return readers.read_adjustments(
+        config["inputs"]["adjustments"], config["columns"].get("adjustments", {}),
+        (config.get("formats") or {}).get("adjustments"),
+    )
+
+
+def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit: str, out_splits: str) -> None:
+    """The daily entry point: a user's own daily file read and checked once, written as month
+    partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
+    read = _read_daily(config)
+    for month, out in zip(months, outs):
+        write_parquet(read.daily.filter(_month_filter(month)), out)
+    write_parquet(read.audit, out_audit)
+    splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
+    write_parquet(splits, out_splits)
+    if splits.height:
+        days = "; ".join(f"{s} {d} ({k}, return {r:.1%})" for s, d, r, _, k in splits.head(5).iter_rows())
+        more = f" and {splits.height - 5} more" if splits.height > 5 else ""
+        many = splits.height > 1
+        print(f"liqpanel: warning: {splits.height} day{'s' if many else ''} of the daily file "
+              f"{'look like splits' if many else 'looks like a split'} the prices were not "
+              f"adjusted for: {days}{more}; give them in `inputs.adjustments` (listed in the table "
+              "daily_suspected_splits)", file=sys.stderr)
 
 
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
@@ -162,15 +214,20 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> 
     inputs = config["inputs"]
     source = config["panel"]["return_source"]
     if source == "monthly_file" or (source == "auto" and inputs.get("returns")):
-        returns = read_monthly_returns(inputs["returns"], config["columns"].get("returns", {}))
+        returns = read_monthly_returns(ingest.layout_of(config, "returns"))
     else:
         returns = monthly_from_daily(pl.concat([pl.scan_parquet(p) for p in daily_paths]))
-    chars = [
-        {**c, "frame": scan_table(c["path"])}
-        for c in inputs.get("characteristics", [])
-    ]
+    chars = [{**c, "frame": read_characteristics(c).lazy()} for c in inputs.get("characteristics", [])]
     built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
     write_parquet(transform_panel(built, config["panel"]), out)
+
+
+def read_truth(config: dict) -> pl.DataFrame:
+    """The simulator's truth file (security, month, spread and other numbers) through the input contract."""
+    return ingest.read_checked(
+        ingest.layout_of(config, "truth"), ingest.Spec("truth file", months=("month",), other_numeric=True),
+        key=("security", "month"),
+    )
 
 
 def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> None:
@@ -179,11 +236,10 @@ def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> No
 
     factors = None
     if config["inputs"].get("factors"):
-        path = config["inputs"]["factors"]
-        factors = scan_table(path, config["columns"].get("factors", {})).collect()
-        if "month" not in factors.columns:
-            raise InputError("the factor file needs a 'month' column", path=path, column="month")
-        factors = factors.with_columns(month_of(pl.col("month").cast(pl.Date)).alias("month"))
+        factors = ingest.read_checked(
+            ingest.layout_of(config, "factors"), ingest.Spec("factor file", text=(), months=("month",), other_numeric=True),
+            key=("month",),
+        )
     sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
     result = run_models(
         pl.read_parquet(panel_path), config["models"], monthly=pl.read_parquet(monthly_path), factors=factors,
@@ -210,6 +266,7 @@ def report(
     panel_path: str,
     audit_path: str | None,
     models_dir: str,
+    daily_audit_paths: list[str] | None = None,
     started: str,
     command: str,
     study_dir: str | None = None,
@@ -224,7 +281,7 @@ def report(
     build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
     truth_path = config["inputs"].get("truth")
-    truth = pl.read_parquet(truth_path) if truth_path else None
+    truth = read_truth(config) if truth_path else None
     measures = list(config["measures"])
     outputs = [o for name in measures for o in REGISTRY[name].outputs]
     sources = rep.measure_sources(measures)
@@ -262,6 +319,8 @@ def report(
             caption="Trade and quote cleaning: rows read, kept and dropped by rule", label="tab:audit",
             notes=rep.join_notes("Each row read is kept or dropped by the first rule it breaks", rep.timestamp_notes(audit)),
         )
+    if daily_audit_paths:
+        _daily_audit_tables(out, *daily_audit_paths)
     spread_outputs = [o for name in measures if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
     if truth is not None and spread_outputs:
         out.table(
@@ -325,6 +384,27 @@ def report(
     )
     rep.publish_folder(build, run_dir)
     rep.point_latest(Path(run_dir).parent, rid)
+
+
+def _daily_audit_tables(out: "rep.RunFolder", audit_path: str, splits_path: str) -> None:
+    from liqpanel import dailyfile
+
+    out.table(
+        "daily_audit", dailyfile.audit_summary(pl.read_parquet(audit_path)),
+        caption="Daily file: rows read, kept, dropped by rule and repaired", label="tab:daily_audit",
+        notes="Each row read is kept or dropped by the first rule it breaks (liqpanel.dailyfile); repaired rows are "
+        "kept with the named values cleared. Per security-month counts: data/daily_audit.parquet",
+    )
+    write_parquet(pl.read_parquet(audit_path), out.path / "data" / "daily_audit.parquet")
+    splits = pl.read_parquet(splits_path)
+    if splits.height:
+        out.table(
+            "daily_suspected_splits", splits.with_columns(pl.col("date").cast(pl.String)),
+            caption="Daily file: days that look like a split the returns were not adjusted for",
+            label="tab:daily_splits",
+            notes="A return within 3% of a split's price ratio with a matching jump in volume; give the split in "
+            "`inputs.adjustments` (liqpanel.dailyfile.suspected_splits)",
+        )
 
 
 def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_dir: str) -> None:

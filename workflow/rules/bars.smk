@@ -27,12 +27,19 @@ if FROM_TRADES:
 
 else:
 
+    # the daily file is read, checked and audited once; every month partition comes from that one read
     rule daily_from_file:
         input:
-            CONFIG["inputs"]["daily"],
+            daily=expand_inputs("daily"),
+            adjustments=expand_inputs("adjustments"),
         output:
-            f"{WORK}/daily/month={{month}}/daily.parquet",
+            daily=expand(f"{WORK}/daily/month={{month}}/daily.parquet", month=MONTHS),
+            audit=f"{WORK}/daily_audit.parquet",
+            splits=f"{WORK}/daily_splits.parquet",
         params:
-            columns=CONFIG["columns"]["daily"],
+            columns={table: CONFIG["columns"][table] for table in ("daily", "adjustments")},
+            formats={table: CONFIG["formats"][table] for table in ("daily", "adjustments")},
+            daily=CONFIG["daily"],
+            sample=CONFIG["sample"],
         run:
-            stages.daily_from_file(CONFIG, wildcards.month, output[0])
+            stages.daily_from_file(CONFIG, MONTHS, list(output.daily), output.audit, output.splits)

@@ -1,0 +1,285 @@
+"""A user's own daily file: read once, checked row by row, audited, adjusted.
+
+Every row read ends in one place: kept, or dropped by the first rule it
+breaks, in this order (``liqpanel.ingest`` reads the values):
+
+- ``unparseable``: a date or number present that does not parse (only with
+  ``daily.unparseable: drop``; by default the run stops naming the file, the
+  column, the row and the value)
+- ``missing_key``: security or date missing
+- ``duplicate``: a second row for the same security and date
+  (``daily.duplicates``: ``error`` stops the run, the default;
+  ``keep_first`` keeps the first row in file order and drops the others;
+  ``drop_all`` drops every row of the key)
+- ``non_finite``: open, high, low, close or volume is NaN or infinite
+- ``no_trade``: the close is missing, the row says only that nothing traded
+  that day; it is treated exactly like a day the file omits (common practice)
+- ``nonpositive_price``: open, high, low or close <= 0 (common practice)
+- ``negative_volume``: volume < 0 (common practice)
+- ``bad_range``: high < low, or open or close outside [low, high]; with
+  ``daily.bad_range: drop_range`` (the default) the day is kept with its
+  open, high and low cleared (counted in ``repaired_range``), with
+  ``drop_day`` it is dropped under this rule
+- ``outside_sample``: a valid day before the first or after the last month
+  of ``sample:`` (the last such day before the sample still gives the
+  sample's first return its previous close)
+
+Kept rows whose other numbers (ret, dollar_volume, shares_out, ...) are not
+finite keep the row with that value missing, counted in ``repaired_non_finite``.
+
+The audit has one row per security and month (``month`` missing for rows
+without a date, security ``(missing)`` without one) with ``rows_read``,
+``rows_kept``, ``drop_<rule>`` per rule and the two repair counts;
+rows_read = rows_kept + the drops, checked before anything is written.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import polars as pl
+
+from liqpanel import ingest
+from liqpanel.bars import add_returns
+from liqpanel.contracts import DAILY, check_unique_key, month_of
+from liqpanel.errors import InputError
+
+RULES = (
+    "unparseable", "missing_key", "duplicate", "non_finite", "no_trade", "nonpositive_price", "negative_volume",
+    "bad_range", "outside_sample",
+)
+REPAIRS = ("repaired_range", "repaired_non_finite")
+PRICES = ("open", "high", "low", "close")
+REQUIRED = ("open", "high", "low", "close", "volume")
+OPTIONAL = ("dollar_volume", "n_trades", "ret", "shares_out", "mkt_ret")
+SPEC = ingest.Spec("daily file", dates=("date",), numeric=REQUIRED, optional_numeric=OPTIONAL)
+MISSING_SECURITY = "(missing)"
+# price ratios of common splits (new shares per old share) and reverse splits
+SPLIT_RATIOS = (1.5, 2.0, 3.0, 4.0, 5.0, 10.0, 1 / 2, 1 / 3, 1 / 4, 1 / 5, 1 / 10)
+
+
+ADJUSTED_TWICE = (
+    "the daily file has its own return column and `inputs.adjustments` is set, so liqpanel cannot tell whether "
+    "those returns are already adjusted; remove the return column from `columns.daily` (returns are then computed "
+    "from the closes and adjusted) or remove `inputs.adjustments`"
+)
+
+
+@dataclass
+class DailyRead:
+    daily: pl.DataFrame
+    audit: pl.DataFrame
+    splits: pl.DataFrame
+
+
+def _content_rule(settings: dict) -> tuple[pl.Expr, pl.Expr]:
+    """The first content rule a row breaks (null: none) and whether its range is inconsistent."""
+    bad_range = (pl.col("high") < pl.col("low")) | pl.any_horizontal(
+        [(pl.col(c) < pl.col("low")) | (pl.col(c) > pl.col("high")) for c in ("open", "close")]
+    )
+    chain = (
+        pl.when(pl.col("_nonfinite").is_in(list(REQUIRED))).then(pl.lit("non_finite"))
+        .when(pl.col("close").is_null()).then(pl.lit("no_trade"))
+        .when(pl.any_horizontal([pl.col(c) <= 0 for c in PRICES])).then(pl.lit("nonpositive_price"))
+        .when(pl.col("volume") < 0).then(pl.lit("negative_volume"))
+    )
+    if settings.get("bad_range", "drop_range") == "drop_day":
+        chain = chain.when(bad_range).then(pl.lit("bad_range"))
+    return chain.otherwise(pl.lit(None, dtype=pl.String)).alias("_rule"), bad_range.fill_null(False)
+
+
+def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], settings: dict,
+              sample: tuple[str, str]) -> pl.DataFrame:
+    """Every row read with ``_rule`` (the first rule it breaks, null when kept) and the repairs applied."""
+    if settings.get("unparseable", "error") == "error":
+        problem = ingest.first_bad(frame, layout, files, fix="; fix the file, or set `daily: unparseable: drop`")
+        if problem is not None:
+            raise problem
+    first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
+    frame = frame.with_columns(
+        pl.when(pl.col("_bad").is_not_null()).then(pl.lit("unparseable"))
+        .when(pl.col("security").is_null() | (pl.col("security") == "") | pl.col("date").is_null())
+        .then(pl.lit("missing_key"))
+        .otherwise(pl.lit(None, dtype=pl.String))
+        .alias("_rule")
+    ).sort("_file", "_row")
+    frame = _duplicates(frame, layout, files, settings.get("duplicates", "error"))
+    content, bad_range = _content_rule(settings)
+    outside = pl.when((pl.col("date") < first) | (month_of("date") > last)).then(pl.lit("outside_sample"))
+    frame = frame.with_columns(pl.coalesce("_rule", content, outside).alias("_rule"), bad_range.alias("_bad_range"))
+    # a valid day outside the sample still gives the first return inside it its previous close
+    valid = pl.col("_rule").is_null() | (pl.col("_rule") == "outside_sample")
+    kept = pl.col("_rule").is_null()
+    clear = valid & pl.col("_bad_range")
+    return frame.with_columns(
+        *[pl.when(clear).then(None).otherwise(pl.col(c)).alias(c) for c in ("open", "high", "low")],
+        (kept & pl.col("_bad_range")).alias("_repaired_range"),
+        (kept & pl.col("_nonfinite").is_not_null()).alias("_repaired_non_finite"),
+        valid.alias("_valid"),
+    )
+
+
+def _duplicates(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], policy: str) -> pl.DataFrame:
+    frame = _copies(frame)
+    dupes = frame.filter(pl.col("_copies") > 1)
+    if dupes.height and policy == "error":
+        first = dupes.sort("_file", "_row").row(0, named=True)
+        rows = dupes.filter((pl.col("security") == first["security"]) & (pl.col("date") == first["date"]))
+        where = ", ".join(f"{r + 1}" for r in rows["_row"].head(3).to_list())
+        raise ingest.error(
+            layout,
+            f"security {first['security']!r} has {rows.height} rows for {first['date']} (data rows {where}); "
+            f"{dupes.filter(pl.col('_nth') == 1).height} keys are repeated in all. Fix the file, or set "
+            "`daily: duplicates: keep_first` (keep the first row of each key) or `drop_all` (drop every copy); "
+            "either way the drops are counted in the daily audit",
+            file=files[first["_file"]], column="date", row=rows["_row"][-1] + 1,
+            value=_as_written(files[first["_file"]], layout, rows["_row"][-1], "date"),
+        )
+    drop = pl.col("_copies") > 1 if policy == "drop_all" else pl.col("_nth") > 1
+    return frame.with_columns(
+        pl.when(pl.col("_rule").is_null() & drop.fill_null(False)).then(pl.lit("duplicate")).otherwise(pl.col("_rule"))
+        .alias("_rule")
+    ).drop("_nth", "_copies")
+
+
+def _as_written(file: str, layout: ingest.Layout, row: int, column: str) -> str:
+    """A value as the file writes it (for a message)."""
+    value = ingest.collect(ingest.scan_file(file, layout).slice(row, 1).select(column), file).item()
+    return str(value)
+
+
+def _copies(frame: pl.DataFrame) -> pl.DataFrame:
+    """``_nth`` (1-based position in file order) and ``_copies`` among the live rows of each key."""
+    live = pl.col("_rule").is_null()
+    if not frame.filter(live).select(pl.struct("security", "date").is_duplicated().any()).item():
+        return frame.with_columns(pl.lit(1, dtype=pl.UInt32).alias("_nth"), pl.lit(1, dtype=pl.UInt32).alias("_copies"))
+    key = [pl.col("security"), pl.col("date"), live.alias("_live")]
+    return frame.with_columns(
+        pl.when(live).then(pl.int_range(1, pl.len() + 1).over(key)).alias("_nth"),
+        pl.when(live).then(pl.len().over(key)).alias("_copies"),
+    )
+
+
+def audit_of(flagged: pl.DataFrame) -> pl.DataFrame:
+    """Rows read, kept, dropped per rule and repaired, per security-month."""
+    return (
+        flagged.with_columns(
+            pl.col("security").fill_null(MISSING_SECURITY).replace("", MISSING_SECURITY),
+            month_of("date").alias("month"),
+        )
+        .group_by("security", "month")
+        .agg(
+            pl.len().cast(pl.Int64).alias("rows_read"),
+            pl.col("_rule").is_null().sum().cast(pl.Int64).alias("rows_kept"),
+            *[(pl.col("_rule") == rule).sum().cast(pl.Int64).alias(f"drop_{rule}") for rule in RULES],
+            pl.col("_repaired_range").sum().cast(pl.Int64).alias("repaired_range"),
+            pl.col("_repaired_non_finite").sum().cast(pl.Int64).alias("repaired_non_finite"),
+        )
+        .sort("security", "month", nulls_last=True)
+    )
+
+
+def check_balance(audit: pl.DataFrame, path: str) -> None:
+    """rows_read = rows_kept + every drop, on every row of the audit."""
+    dropped = pl.sum_horizontal([pl.col(f"drop_{r}") for r in RULES])
+    off = audit.filter(pl.col("rows_read") != pl.col("rows_kept") + dropped)
+    if off.height:
+        raise InputError(f"the daily audit does not balance for {off.height} security-months (a defect of liqpanel)",
+                         path=path)
+
+
+def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: bool, layout: ingest.Layout) -> pl.DataFrame:
+    """Returns (computed when the file has none) and split-adjusted prices and volume.
+
+    Prices before a split's ex-date are divided by the product of the later
+    split ratios of the security and volumes multiplied by it, so a price
+    series has no step at the split; the return of the ex-date is
+    (close x split + dividend) / previous close - 1, as on the trade path
+    (``liqpanel.bars.add_returns``).
+    """
+    if adjustments is not None and adjustments.height and has_returns:
+        raise ingest.error(layout, ADJUSTED_TWICE, column="ret")
+    lf = daily.lazy()
+    if not has_returns:
+        lf = add_returns(lf, adjustments=adjustments)
+    if adjustments is not None and adjustments.height:
+        later = (
+            lf.select("security", "date")
+            .join(adjustments.lazy().select("security", pl.col("date").alias("_ex"), "split_ratio"), on="security")
+            .filter(pl.col("_ex") > pl.col("date"))
+            .group_by("security", "date")
+            .agg(pl.col("split_ratio").product().alias("_factor"))
+        )
+        factor = pl.col("_factor").fill_null(1.0)
+        lf = lf.join(later, on=["security", "date"], how="left").with_columns(
+            *[(pl.col(c) / factor).alias(c) for c in PRICES], (pl.col("volume") * factor).alias("volume"),
+        ).drop("_factor")
+    return lf.sort("security", "date").collect()
+
+
+def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFrame:
+    """Days whose return is close to a split's (-1/2, -2/3, +1, ...) with a matching volume jump.
+
+    A k-for-1 split leaves 1 + ret = 1/k and multiplies volume by about k; a
+    day is listed when |(1 + ret) k - 1| <= ``tolerance`` and the volume
+    changed by at least sqrt(k) in the split's direction (a threshold of this
+    project). Each day is listed once, under the nearest ratio.
+    """
+    base = daily.sort("security", "date").with_columns(
+        (pl.col("volume") / pl.col("volume").shift(1).over("security")).alias("volume_ratio")
+    )
+    candidates = pl.concat([
+        base.filter(
+            ((1.0 + pl.col("ret")) * k - 1.0).abs() <= tolerance,
+            (pl.col("volume_ratio") >= k ** 0.5) if k > 1 else (pl.col("volume_ratio") <= k ** 0.5),
+        ).select(
+            "security", "date", "ret", "volume_ratio",
+            pl.lit(f"{k:g}:1" if k >= 1 else f"1:{1 / k:g}").alias("suspected_split"),
+            ((1.0 + pl.col("ret")) * k - 1.0).abs().alias("_gap"),
+        )
+        for k in SPLIT_RATIOS
+    ])
+    return candidates.sort("security", "date", "_gap").unique(["security", "date"], keep="first").sort(
+        "security", "date").drop("_gap")
+
+
+def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
+               adjustments: pl.DataFrame | None = None) -> DailyRead:
+    """The daily table of a user's file (contract: DEVELOPERS.md), its audit and the suspected splits."""
+    frame, files = ingest.read_frame(layout, SPEC)
+    if not frame.height:
+        raise InputError("the daily file has a header but no data rows", path=files[0])
+    flagged = flag_rows(frame, layout, files, settings or {}, sample)
+    audit = audit_of(flagged)
+    check_balance(audit, layout.path)
+    kept = flagged.filter(pl.col("_valid"))
+    names = set(frame.columns)
+    kept = kept.with_columns(month_of("date").alias("month"))
+    if "dollar_volume" not in names:
+        kept = kept.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
+    if "n_trades" not in names:
+        kept = kept.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
+    has_returns = "ret" in names
+    extra = [c for c in ("shares_out", "mkt_ret") if c in names]
+    kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra)
+    daily = adjust(kept, adjustments, has_returns, layout)
+    first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
+    daily = daily.filter(pl.col("month").is_between(first, last)).select(
+        [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in extra]
+    ).sort("security", "date")
+    check_unique_key(daily, ("security", "date"), table="daily")
+    return DailyRead(daily=daily, audit=audit, splits=suspected_splits(daily))
+
+
+def audit_summary(audit: pl.DataFrame) -> pl.DataFrame:
+    """Rows read, kept, dropped per rule and repaired over the whole file, with shares of rows read."""
+    totals = audit.select(pl.col("rows_read", "rows_kept", *[f"drop_{r}" for r in RULES], *REPAIRS).sum())
+    read = totals.item(0, "rows_read")
+    entries = [("read", read), ("kept", totals.item(0, "rows_kept"))]
+    entries += [(f"dropped: {r}", totals.item(0, f"drop_{r}")) for r in RULES]
+    entries += [(f"kept, {r.replace('repaired_', 'repaired: ')}", totals.item(0, r)) for r in REPAIRS]
+    return pl.DataFrame(
+        {"rows": [e[0] for e in entries], "count": [int(e[1]) for e in entries],
+         "share": [e[1] / read if read else None for e in entries]},
+        schema_overrides={"count": pl.Int64},
+    )
