@@ -110,18 +110,19 @@ def test_tables_sorted_with_contract_types(demo):
 
 
 def test_tickers_unique_invented_and_firm_names():
-    # Project rule: invented tickers (3-4 upper-case letters) and invented firm names
+    # Project rule: invented identifiers in a form no exchange uses (a lower-case
+    # "sim-" prefix before 3-4 upper-case letters) and invented firm names
     market = simulate_market(n_securities=400, n_months=1, trades_per_day=1.0)
     tickers = market.securities["security"].to_list()
     assert len(set(tickers)) == 400
-    assert all(re.fullmatch(r"[A-Z]{3,4}", t) for t in tickers)
+    assert all(re.fullmatch(r"sim-[A-Z]{3,4}", t) for t in tickers)
     names = market.securities["firm_name"].to_list()
     assert len(set(names)) == 400 and all(len(n.split()) == 2 for n in names)
     kinds = {"Holdings", "Works", "Group", "Industries", "Partners", "Trading", "Foods", "Mining", "Logistics",
              "Textiles"}
     assert {n.split()[1] for n in names} <= kinds
     # each ticker starts with the initial of its invented firm name
-    assert all(t[0] == n[0].upper() for t, n in zip(tickers, names))
+    assert all(t[len("sim-")] == n[0].upper() for t, n in zip(tickers, names))
 
 
 # --------------------------------------------------------------------------
@@ -423,7 +424,7 @@ def test_security_months_grid():
     lam = np.array([5.0, 20.0, 80.0])
     market = simulate_security_months(half, vol, lam, n_days=21, seed=1)
     truth = market.truth.sort("security")
-    assert truth["security"].to_list() == ["S000001", "S000002", "S000003"]
+    assert truth["security"].to_list() == ["sim-S000001", "sim-S000002", "sim-S000003"]
     assert truth["month"].unique().to_list() == [date(2021, 1, 1)]
     np.testing.assert_array_equal(truth["half_spread"], half)
     np.testing.assert_array_equal(truth["sigma_u_daily"], vol)

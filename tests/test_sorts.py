@@ -162,7 +162,7 @@ def _numpy_sort(panel: pl.DataFrame, on: str, n: int, weight: str | None, univer
     return out
 
 
-@pytest.mark.parametrize("weight,universe", [(None, None), ("market_cap", None), ("market_cap", "big_board")])
+@pytest.mark.parametrize("weight,universe", [(None, None), ("market_cap", None), ("market_cap", "in_breakpoint_set")])
 def test_sort_matches_independent_numpy_sort(weight, universe):
     rng = np.random.default_rng(17)
     n_sec, n_months = 80, 24
@@ -176,7 +176,7 @@ def test_sort_matches_independent_numpy_sort(weight, universe):
             "amihud": amihud,
             "ret_next": rng.normal(0.01, 0.08, n_sec * n_months),
             "market_cap": rng.lognormal(5, 1, n_sec * n_months),
-            "big_board": rng.random(n_sec * n_months) < 0.4,
+            "in_breakpoint_set": rng.random(n_sec * n_months) < 0.4,
         }
     ).with_columns(pl.col("amihud").fill_nan(None))
     res = sort_portfolios(panel, "amihud", n=5, weight=weight, breakpoint_universe=universe, min_securities=6)

@@ -329,9 +329,10 @@ def test_tick_sets_the_true_spread_and_the_market_profile_sets_the_session():
     # With a tick the quotes are rounded outwards, so at a zero half-spread the quoted spread is
     # one tick (common practice: the minimum quoted spread is one tick): ln(ask / bid) close to
     # tick / price. Draws at two price levels are simulated in separate price groups.
-    profile = {"timezone": "Asia/Tokyo", "sessions": [["09:00", "11:30"], ["12:30", "15:00"]], "tick_size": 0.01}
+    # an invented two-session profile (the hours copy no exchange's)
+    profile = {"timezone": "Asia/Tokyo", "sessions": [["08:50", "11:20"], ["12:20", "14:50"]], "tick_size": 0.01}
     market = study.Market.from_profile(profile, overnight_share=0.5)
-    assert market.session == ("09:00", "15:00") and market.tick == 0.01 and market.timezone == "Asia/Tokyo"
+    assert market.session == ("08:50", "14:50") and market.tick == 0.01 and market.timezone == "Asia/Tokyo"
     pool = paired(0.0, 0.02, 20.0).join(pl.DataFrame({"price": [5.0, 50.0]}), how="cross")
     conditions = study.draw_conditions(pool, 200, seed=9)
     daily, truth = study.simulate_draws(conditions, market, seed=9)
