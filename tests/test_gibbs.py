@@ -123,6 +123,36 @@ def test_posterior_mean_recovers_half_spread_on_long_windows():
     assert (out["gibbs_spread"] < out["gibbs_spread_hi"]).all()
 
 
+def test_prior_drawn_truth_is_recovered_on_average_and_covered_at_the_nominal_rate():
+    # Simulation-based calibration (Cook, Gelman & Rubin 2006, from memory): draw
+    # every month's c and sigma_u^2 from the sampler's own prior, simulate the
+    # Roll (1984) model, and run the sampler. By Bayes' theorem (the law of
+    # iterated expectations) the average posterior mean equals the prior mean
+    # exactly, E[c] = c_sd sqrt(2/pi) for the half-normal prior and
+    # E[sigma_u^2] = beta0 / (alpha0 - 1) for the inverse gamma, and a 90%
+    # posterior interval covers the drawn truth in 90% of months; only Monte
+    # Carlo error remains (4 standard errors of the 1,000 months; the
+    # q-configurations the guard excludes have prior probability 2^-20). A wrong
+    # full conditional moves these. Measured: 0.00818 against 0.00798 (standard
+    # error 0.00015), coverage 0.896, mean sigma_u^2 4.443e-4 against 4.444e-4.
+    rng = np.random.default_rng(2009)
+    months, days, c_sd, alpha0, beta0 = 1000, 21, 0.01, 10.0, 10.0 * 0.02**2
+    c = np.abs(rng.normal(0.0, c_sd, months))
+    sigma2 = beta0 / rng.standard_gamma(alpha0, months)
+    q = rng.choice([-1.0, 1.0], size=(days + 1, months))
+    dp = c * np.diff(q, axis=0) + rng.standard_normal((days, months)) * np.sqrt(sigma2)
+    prior = {"c_mean": 0.0, "c_sd": c_sd, "alpha0": alpha0, "beta0": beta0}
+    draws = sample_roll_model(dp, np.ones(dp.shape, bool), sweeps=700, burn=200, rng=np.random.default_rng(5),
+                              prior=prior)
+    posterior_mean = draws.half_spread.mean(axis=0)
+    se = posterior_mean.std(ddof=1) / math.sqrt(months)
+    assert posterior_mean.mean() == pytest.approx(c_sd * math.sqrt(2 / math.pi), abs=4 * se)
+    sigma2_mean = (draws.sigma_u**2).mean(axis=0)
+    assert sigma2_mean.mean() == pytest.approx(beta0 / (alpha0 - 1), abs=4 * sigma2_mean.std(ddof=1) / math.sqrt(months))
+    lo, hi = np.quantile(draws.half_spread, [0.05, 0.95], axis=0)
+    assert ((lo <= c) & (c <= hi)).mean() == pytest.approx(0.90, abs=4 * math.sqrt(0.9 * 0.1 / months))
+
+
 def test_short_windows_known_biases():
     # 21-day months. Half-spread large relative to volatility: close to unbiased
     # (measured 1.00 c). Half-spread small relative to volatility: the data hardly
