@@ -303,6 +303,7 @@ def test_fama_macbeth_finds_the_planted_premium(demo):
         x = np.column_stack([np.ones(group.height), group["spread_lag"].to_numpy()])
         slopes.append(np.linalg.lstsq(x, group["ret"].to_numpy(), rcond=None)[0][1])
     assert result.params["spread_lag"] == pytest.approx(np.mean(slopes), rel=1e-9)
+    # the module docstring's power study: t > 2 in 170 of 200 seeds; t = 2.26 at the demo's seed
     assert result.params["spread_lag"] > 0
     assert result.tstats["spread_lag"] > 2.0
 
