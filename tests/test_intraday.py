@@ -40,11 +40,13 @@ def _monthly(market, selection):
 
 def test_effective_spread_recovers_the_true_spread(roll_market):
     # with quotes e^(m +- c) and trades at them, 2 q (p - mid)/mid = 2 tanh(c) per
-    # trade (simulate.py docstring); stated band: within 0.1% of the true 2c
+    # trade (simulate.py docstring), within (2/3) c^3 of the true 2c; so the
+    # monthly means equal 2 tanh(c) up to floating-point rounding
     monthly = _monthly(roll_market, {"effective_spread": None, "quoted_spread": None})
-    truth = 2 * HALF
-    assert monthly["effective_spread"].to_numpy() == pytest.approx(truth, rel=1e-3)
-    assert monthly["effective_spread_size_weighted"].to_numpy() == pytest.approx(truth, rel=1e-3)
+    truth = 2 * np.tanh(HALF)
+    assert monthly["effective_spread"].to_numpy() == pytest.approx(truth, rel=1e-9)
+    assert monthly["effective_spread_size_weighted"].to_numpy() == pytest.approx(truth, rel=1e-9)
+    assert np.abs(truth - 2 * HALF).max() <= (2 / 3) * np.max(HALF) ** 3
     assert monthly["quoted_spread"].to_numpy() == pytest.approx(2 * np.tanh(HALF), rel=1e-9)
     assert monthly["effective_spread_n"].to_list() == [21, 21, 21]
 
@@ -172,7 +174,8 @@ def test_monthly_benchmarks_follow_the_minimum_days_rule():
     row = monthly.row(0, named=True)
     assert row["effective_spread"] is None and row["effective_spread_reason"].startswith("too_few_days")
     relaxed = _monthly(market, {"effective_spread": {"min_days": 5}})
-    assert relaxed["effective_spread"][0] == pytest.approx(0.004, rel=1e-3)
+    # every trade's effective spread is exactly 2 tanh(c) (simulate.py docstring)
+    assert relaxed["effective_spread"][0] == pytest.approx(2 * np.tanh(0.002), rel=1e-9)
 
 
 def test_bars_without_quotes_keep_every_benchmark_column_missing(roll_market):
