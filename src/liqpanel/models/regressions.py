@@ -124,12 +124,17 @@ class ModelSpec:
     ``plain``; driscoll_kraay ``bartlett`` (the Driscoll-Kraay covariance
     with Bartlett weights). Left at its default (``newey_west``) for an
     estimator other than fama_macbeth, it is read as that estimator's usual
-    choice (``clustered``; ``bartlett`` for driscoll_kraay). ``lags``: Newey-West / Driscoll-Kraay bandwidth in months
-    (``None``: Newey & West 1994 rule of thumb, see :func:`automatic_lags`).
-    ``cluster``: any of ``security``, ``month``. ``effects``: any of
-    ``security``, ``month`` (fixed effects per security and per month;
-    fixed_effects needs at least one; driscoll_kraay may use them too). ``constant``: add an intercept (ignored when effects are
-    given: they absorb it, and no intercept is reported).
+    choice (``clustered``; ``bartlett`` for driscoll_kraay). ``lags``:
+    Newey-West / Driscoll-Kraay bandwidth in months (``None``: Newey & West
+    1994 rule of thumb, see :func:`automatic_lags`). ``cluster``: any of
+    ``security``, ``month``. ``effects``: any of ``security``, ``month``
+    (fixed effects per security and per month; fixed_effects needs at least
+    one; driscoll_kraay may use them too). ``constant``: add an intercept
+    (ignored when effects are given: they absorb it, and no intercept is
+    reported). These are our words; they are translated to the regression
+    library's own inside :func:`fit_model`, and the library's words
+    (``entity``, ``time``, ``unadjusted``, ``kernel``) are refused with the
+    word to use instead.
     """
 
     name: str
