@@ -50,39 +50,39 @@ QUOTES = [
     ("AAA", _local(4, 11, 0), "9.90", "10.10", "A", None),
 ]
 
-# trades: security, local time, price, size, venue, cond, correction, expected rule
+# trades: security, local time, price, size, venue, condition code, correction code, expected rule
 TRADES = [
-    ("AAA", _local(4, 10, 1), "10.00", "100", "A", "A1", "0", None),
-    ("AAA", _local(4, 10, 2), "10.02", "100", "A", "A1", "0", None),
-    ("AAA", _local(4, 10, 2), "10.02", "100", "A", "A1", "0", "duplicate"),
-    ("AAA", _local(4, 10, 3), "10.00", "100", "A", "A1", "0", None),  # merged: median of 10.00, 10.02
-    ("AAA", _local(4, 10, 3), "10.02", "200", "B", "A1", "0", "merged_same_time"),
-    ("AAA", _local(4, 10, 4), "10.01", "100", "A", "A1", "0", None),
-    ("AAA", _local(4, 10, 12), "10.20", "100", "A", "A1", "0", "outlier"),  # inside T4 bounds (9.76, 10.24), far from neighbours
-    ("AAA", _local(4, 10, 13), "10.00", "100", "A", "A1", "0", None),
-    ("AAA", _local(4, 10, 14), "10.35", "100", "A", "A1", "0", "outside_quotes"),  # > ask 10.10 + spread 0.20
-    ("AAA", _local(4, 10, 15), "10.02", "100", "A", "A1", "0", None),
-    ("AAA", _local(4, 10, 31), "10.01", "100", "A", "A1", "0", None),
-    ("AAA", _local(4, 10, 32), "10.01", "100", "A", "Z9", "0", "excluded_condition"),
-    ("AAA", _local(4, 10, 33), "10.01", "100", "A", "Q7", "0", "excluded_condition"),  # unlisted code
-    ("AAA", _local(4, 10, 34), "10.01", "100", "A", "A1", "1", "correction"),
-    ("AAA", _local(4, 10, 35), "10.01", "100", "Z", "A1", "0", "excluded_venue"),
-    ("AAA", _local(4, 10, 36), "0", "100", "A", "A1", "0", "nonpositive"),
-    ("AAA", _local(4, 10, 37), "10.01", "-5", "A", "A1", "0", "nonpositive"),
-    ("AAA", _local(4, 16, 30), "10.01", "100", "A", "A1", "0", "outside_session"),
-    ("AAA", None, "10.01", "100", "A", "A1", "0", "missing_field"),
-    ("", _local(4, 10, 38), "10.01", "100", "A", "A1", "0", "missing_field"),
-    ("AAA", _local(4, 10, 39), "ten", "100", "A", "A1", "0", "unparseable"),
-    ("AAA", _local(1, 10, 0, month=3), "10.01", "100", "A", "A1", "0", "outside_sample"),
-    ("BBB", _local(5, 11, 0), "20.00", "50", "A", "A1", "0", "no_quote"),  # BBB has no quotes at all
-    ("AAA", _local(5, 11, 0), "10.00", "50", "A", "A1", "0", "no_quote"),  # AAA has no quote on the 5th
+    ("AAA", _local(4, 10, 1), "10.00", "100", "A", "n1", "ok", None),
+    ("AAA", _local(4, 10, 2), "10.02", "100", "A", "n1", "ok", None),
+    ("AAA", _local(4, 10, 2), "10.02", "100", "A", "n1", "ok", "duplicate"),
+    ("AAA", _local(4, 10, 3), "10.00", "100", "A", "n1", "ok", None),  # merged: median of 10.00, 10.02
+    ("AAA", _local(4, 10, 3), "10.02", "200", "B", "n1", "ok", "merged_same_time"),
+    ("AAA", _local(4, 10, 4), "10.01", "100", "A", "n1", "ok", None),
+    ("AAA", _local(4, 10, 12), "10.20", "100", "A", "n1", "ok", "outlier"),  # inside T4 bounds (9.76, 10.24), far from neighbours
+    ("AAA", _local(4, 10, 13), "10.00", "100", "A", "n1", "ok", None),
+    ("AAA", _local(4, 10, 14), "10.35", "100", "A", "n1", "ok", "outside_quotes"),  # > ask 10.10 + spread 0.20
+    ("AAA", _local(4, 10, 15), "10.02", "100", "A", "n1", "ok", None),
+    ("AAA", _local(4, 10, 31), "10.01", "100", "A", "n1", "ok", None),
+    ("AAA", _local(4, 10, 32), "10.01", "100", "A", "x4", "ok", "excluded_condition"),
+    ("AAA", _local(4, 10, 33), "10.01", "100", "A", "q8", "ok", "excluded_condition"),  # unlisted code
+    ("AAA", _local(4, 10, 34), "10.01", "100", "A", "n1", "rv", "correction"),
+    ("AAA", _local(4, 10, 35), "10.01", "100", "Z", "n1", "ok", "excluded_venue"),
+    ("AAA", _local(4, 10, 36), "0", "100", "A", "n1", "ok", "nonpositive"),
+    ("AAA", _local(4, 10, 37), "10.01", "-5", "A", "n1", "ok", "nonpositive"),
+    ("AAA", _local(4, 16, 30), "10.01", "100", "A", "n1", "ok", "outside_session"),
+    ("AAA", None, "10.01", "100", "A", "n1", "ok", "missing_field"),
+    ("", _local(4, 10, 38), "10.01", "100", "A", "n1", "ok", "missing_field"),
+    ("AAA", _local(4, 10, 39), "ten", "100", "A", "n1", "ok", "unparseable"),
+    ("AAA", _local(1, 10, 0, month=3), "10.01", "100", "A", "n1", "ok", "outside_sample"),
+    ("BBB", _local(5, 11, 0), "20.00", "50", "A", "n1", "ok", "no_quote"),  # BBB has no quotes at all
+    ("AAA", _local(5, 11, 0), "10.00", "50", "A", "n1", "ok", "no_quote"),  # AAA has no quote on the 5th
 ]
 
 
 def _write_inputs(folder, trades=TRADES, quotes=QUOTES):
-    trade_lines = ["sym,when,px,qty,mkt,cond,corr"]
+    trade_lines = ["instr,stamp,deal_px,deal_qty,place,flags,amend"]  # an invented vendor layout
     trade_lines += [",".join([r[0], _text(r[1]), r[2], r[3], r[4], r[5], r[6]]) for r in reversed(trades)]  # unsorted
-    quote_lines = ["sym,when,bid,ask,mkt"] + [",".join([r[0], _text(r[1]), r[2], r[3], r[4]]) for r in quotes]
+    quote_lines = ["instr,stamp,bid,ask,place"] + [",".join([r[0], _text(r[1]), r[2], r[3], r[4]]) for r in quotes]
     (folder / "trades.csv").write_text("\n".join(trade_lines) + "\n")
     (folder / "quotes.csv").write_text("\n".join(quote_lines) + "\n")
 
@@ -94,15 +94,15 @@ def _config(folder, **clean):
             "market": "demo",
             "inputs": {"trades": str(folder / "trades.csv"), "quotes": str(folder / "quotes.csv")},
             "columns": {
-                "trades": {"sym": "security", "when": "ts", "px": "price", "qty": "size", "mkt": "venue",
-                           "corr": "correction"},
-                "quotes": {"sym": "security", "when": "ts", "mkt": "venue"},
+                "trades": {"instr": "security", "stamp": "ts", "deal_px": "price", "deal_qty": "size",
+                           "place": "venue", "flags": "cond", "amend": "correction"},
+                "quotes": {"instr": "security", "stamp": "ts", "place": "venue"},
             },
             "clean": {
                 "unparseable": "drop",
                 "venues": ["A", "B"],
-                "conditions": {"codes": {"A1": "keep", "Z9": "drop"}, "unlisted": "drop"},
-                "corrections": {"codes": {"0": "keep", "1": "drop"}},
+                "conditions": {"codes": {"n1": "keep", "x4": "drop"}, "unlisted": "drop"},  # invented codes
+                "corrections": {"codes": {"ok": "keep", "rv": "drop"}},
                 "unquoted_trades": "drop",
                 "outliers": {"k": 4, "delta": 0.5, "gamma": 0.02, "threshold": 3},
                 **clean,
@@ -203,11 +203,11 @@ def test_codes_with_a_separator_drop_a_row_if_any_code_drops():
             "ts": [_local(6, 10, m) for m in range(3)],
             "price": [1.0, 1.0, 1.1],
             "size": [1.0, 1.0, 1.0],
-            "cond": ["A1", "A1;Z9", " A1 ; "],
+            "cond": ["n1", "n1;x4", " n1 ; "],
         },
         schema_overrides={"ts": pl.Datetime("us", "UTC")},
     )
-    rules = {**RULES_ON, "conditions": {"codes": {"A1": "keep", "Z9": "drop"}, "separator": ";"}}
+    rules = {**RULES_ON, "conditions": {"codes": {"n1": "keep", "x4": "drop"}, "separator": ";"}}
     kept, audit = clean_trades(frame.lazy(), MARKET, rules, month="2021-01", sample=("2021-01", "2021-01"))
     assert kept.collect()["price"].to_list() == [1.0, 1.1]
     assert audit.collect()["drop_excluded_condition"].sum() == 1

@@ -53,6 +53,21 @@ def test_unknown_measure_option_is_named():
         validate_config(cfg)
 
 
+@pytest.mark.parametrize(
+    "entry, message",
+    [
+        ({"estimator": "fixed_effects", "effects": ["entity"]}, "'effects' has 'entity'; the word here is 'security'"),
+        ({"estimator": "pooled", "covariance": "unadjusted"}, "'covariance' has 'unadjusted'; the word here is 'plain'"),
+        ({"estimator": "driscoll_kraay", "covariance": "kernel"}, "'covariance' has 'kernel'; the word here is 'bartlett'"),
+    ],
+)
+def test_regression_option_words_are_checked_when_the_config_loads(entry, message):
+    cfg = _demo()
+    cfg["models"]["regressions"].append({"name": "extra", "regressors": ["roll_spread"], **entry})
+    with pytest.raises(ConfigError, match=f"model 'extra': {message}"):
+        validate_config(cfg)
+
+
 def test_wrong_type_is_explained():
     cfg = _demo()
     cfg["sample"]["start"] = "January"

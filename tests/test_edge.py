@@ -154,7 +154,13 @@ def test_recovery_at_low_trading_intensity():
             rows.append((prices[0], prices.max(), prices.min(), prices[-1]))
         frames.append(month_table(rows, security=f"E{m:03d}"))
     out = edge_spread(pl.concat(frames).lazy()).collect()
-    assert out["edge_spread"].mean() / 0.02 == pytest.approx(1.0, abs=0.08)
+    # Band: measured mean 1.033 of the truth with a Monte Carlo standard error
+    # of 0.0048 (sd of the 300 estimates / sqrt(300)), so the 3% is a real
+    # small-sample bias at 2-9 trades a day, not noise; the band 0.08 is that
+    # bias plus 10 standard errors.
+    ratio = out["edge_spread"].to_numpy() / 0.02
+    assert ratio.std(ddof=1) / np.sqrt(ratio.size) < 0.006
+    assert ratio.mean() == pytest.approx(1.0, abs=0.08)
 
 
 @pytest.mark.parametrize(
@@ -177,5 +183,19 @@ def test_recovery_on_market_simulator(spread, low, high):
     out = edge_spread(daily).collect()
     ratio = out["edge_spread"].mean() / market.truth["spread"].mean()
     assert low < ratio < high
-    signed = edge_spread(daily, signed=True).collect()["edge_spread"].mean() / market.truth["spread"].mean()
-    assert signed <= ratio
+    # The signed variant keeps the sign of the squared estimate: its absolute
+    # value is the default estimate, row by row.
+    signed = edge_spread(daily, signed=True).collect()["edge_spread"].to_numpy()
+    np.testing.assert_allclose(np.abs(signed), out["edge_spread"].to_numpy(), rtol=1e-12)
+    if spread <= 0.02:
+        # Ardia, Guidotti & Kroencke (2024) build EDGE as an unbiased estimator of
+        # the squared spread S^2 under their model (efficient random walk, trades
+        # at the bid or the ask with equal probability; from memory), so the mean
+        # of the signed squares sign(S^2)|S^2| over 200 security-months equals the
+        # mean true S^2 within Monte Carlo error (4 standard errors of the draws).
+        # Measured: 0.965 +- 0.143 and 1.013 +- 0.022 of the truth. At 5% the
+        # discreteness of 20 trades a day biases the range (measured 1.046 +- 0.010),
+        # so that case is held to the band above only.
+        squares = signed * np.abs(signed)
+        truth_sq = (market.truth["spread"].to_numpy() ** 2).mean()
+        assert squares.mean() == pytest.approx(truth_sq, abs=4 * squares.std(ddof=1) / np.sqrt(squares.size))

@@ -18,7 +18,7 @@ from liqpanel.measures import compute_monthly
 from liqpanel.simulate import simulate_security_months
 
 DEMO = load_market("demo")
-KESTREL = load_market("kestrel")  # sessions 09:00-11:45 and 13:15-15:30, Asia/Kolkata
+KESTREL = load_market("kestrel")  # sessions 08:40-11:25 and 12:55-15:10, Asia/Kolkata
 HALF = np.array([0.001, 0.004, 0.015])
 
 
@@ -40,11 +40,13 @@ def _monthly(market, selection):
 
 def test_effective_spread_recovers_the_true_spread(roll_market):
     # with quotes e^(m +- c) and trades at them, 2 q (p - mid)/mid = 2 tanh(c) per
-    # trade (simulate.py docstring); stated band: within 0.1% of the true 2c
+    # trade (simulate.py docstring), within (2/3) c^3 of the true 2c; so the
+    # monthly means equal 2 tanh(c) up to floating-point rounding
     monthly = _monthly(roll_market, {"effective_spread": None, "quoted_spread": None})
-    truth = 2 * HALF
-    assert monthly["effective_spread"].to_numpy() == pytest.approx(truth, rel=1e-3)
-    assert monthly["effective_spread_size_weighted"].to_numpy() == pytest.approx(truth, rel=1e-3)
+    truth = 2 * np.tanh(HALF)
+    assert monthly["effective_spread"].to_numpy() == pytest.approx(truth, rel=1e-9)
+    assert monthly["effective_spread_size_weighted"].to_numpy() == pytest.approx(truth, rel=1e-9)
+    assert np.abs(truth - 2 * HALF).max() <= (2 / 3) * np.max(HALF) ** 3
     assert monthly["quoted_spread"].to_numpy() == pytest.approx(2 * np.tanh(HALF), rel=1e-9)
     assert monthly["effective_spread_n"].to_list() == [21, 21, 21]
 
@@ -111,9 +113,9 @@ def test_horizon_past_the_close_uses_the_sessions_last_midpoint_or_is_excluded()
 
 
 def test_horizon_never_reaches_across_a_midday_break():
-    # Kestrel's morning session closes 11:45 (minute 705), the afternoon opens 13:15 (795);
-    # a trade at 11:40 with a two-hour horizon takes the last morning midpoint
-    row = _near_close(KESTREL, [690, 700, 800], 700, 120, "session_close", price=10.3)
+    # Kestrel's morning session closes 11:25 (minute 685), the afternoon opens 12:55 (775);
+    # a trade at 11:20 with a two-hour horizon takes the last morning midpoint
+    row = _near_close(KESTREL, [670, 680, 780], 680, 120, "session_close", price=10.3)
     assert row["mid"] == pytest.approx(10.2) and row["mid_later"] == pytest.approx(10.2)
     assert row["price_impact"] == pytest.approx(0.0)
 
@@ -145,8 +147,8 @@ def test_realized_variance_matches_pandas_previous_tick_sampling():
 def test_realized_variance_sums_sessions_without_the_midday_break():
     # one price per session edge: a jump across the break must not count
     tz = ZoneInfo("Asia/Kolkata")
-    times = [datetime(2021, 3, 2, 9, 0, tzinfo=tz), datetime(2021, 3, 2, 11, 45, tzinfo=tz),
-             datetime(2021, 3, 2, 13, 15, tzinfo=tz), datetime(2021, 3, 2, 15, 30, tzinfo=tz)]
+    times = [datetime(2021, 3, 2, 8, 40, tzinfo=tz), datetime(2021, 3, 2, 11, 25, tzinfo=tz),
+             datetime(2021, 3, 2, 12, 55, tzinfo=tz), datetime(2021, 3, 2, 15, 10, tzinfo=tz)]
     prices = [10.0, 11.0, 20.0, 22.0]
     frame = pl.DataFrame({"security": ["X"] * 4, "ts": [t.astimezone(timezone.utc) for t in times], "price": prices})
     row = realized_variance(frame.lazy(), KESTREL, interval_minutes=15).collect().row(0, named=True)
@@ -172,7 +174,8 @@ def test_monthly_benchmarks_follow_the_minimum_days_rule():
     row = monthly.row(0, named=True)
     assert row["effective_spread"] is None and row["effective_spread_reason"].startswith("too_few_days")
     relaxed = _monthly(market, {"effective_spread": {"min_days": 5}})
-    assert relaxed["effective_spread"][0] == pytest.approx(0.004, rel=1e-3)
+    # every trade's effective spread is exactly 2 tanh(c) (simulate.py docstring)
+    assert relaxed["effective_spread"][0] == pytest.approx(2 * np.tanh(0.002), rel=1e-9)
 
 
 def test_bars_without_quotes_keep_every_benchmark_column_missing(roll_market):

@@ -27,32 +27,32 @@ def _local(ts, tz):
 
 
 def test_midday_break_and_half_day_drop_exactly_the_trades_outside_the_sessions():
-    market = load_market("kestrel")  # 09:00-11:45 and 13:15-15:30 Asia/Kolkata; 2021-11-04 closes 11:00
-    sim = simulate_security_months(np.array([0.002, 0.004]), 0.02, 60.0, n_days=5, seed=4, tz="Asia/Kolkata",
-                                   session=("09:00", "15:30"), start="2021-11")
+    market = load_market("kestrel")  # 08:40-11:25 and 12:55-15:10 Asia/Kolkata; 2021-11-16 closes 10:40
+    sim = simulate_security_months(np.array([0.002, 0.004]), 0.02, 60.0, n_days=12, seed=4, tz="Asia/Kolkata",
+                                   session=("08:40", "15:10"), start="2021-11")
     kept, audit = clean_trades(sim.trades.lazy(), market, RULES, month="2021-11", sample=("2021-11", "2021-11"))
     kept, audit = kept.collect(), audit.collect()
     local = _local(sim.trades["ts"].to_list(), "Asia/Kolkata")
 
     def inside(t):
         clock = t.time()
-        close = time(11, 0) if t.date() == date(2021, 11, 4) else time(15, 30)
-        morning = time(9, 0) <= clock <= min(time(11, 45), close)
-        afternoon = time(13, 15) <= clock <= close
+        close = time(10, 40) if t.date() == date(2021, 11, 16) else time(15, 10)
+        morning = time(8, 40) <= clock <= min(time(11, 25), close)
+        afternoon = time(12, 55) <= clock <= close
         return morning or afternoon
 
     expected_kept = sum(inside(t) for t in local)
     assert 0 < expected_kept < len(local)
     assert kept.height == expected_kept
     assert audit["drop_outside_session"].sum() == len(local) - expected_kept
-    half_day = kept.filter(pl.col("date") == date(2021, 11, 4))
-    assert max(_local(half_day["ts"].to_list(), "Asia/Kolkata")).time() <= time(11, 0)
+    half_day = kept.filter(pl.col("date") == date(2021, 11, 16))
+    assert max(_local(half_day["ts"].to_list(), "Asia/Kolkata")).time() <= time(10, 40)
 
 
 def test_session_crossing_utc_midnight_keeps_local_days_and_months():
-    market = load_market("tidewater")  # 10:00-16:45 Pacific/Auckland (UTC+13 in summer)
+    market = load_market("tidewater")  # 10:20-16:50 Pacific/Auckland (UTC+13 in summer)
     sim = simulate_security_months(np.array([0.003]), 0.02, 30.0, n_days=25, seed=6, tz="Pacific/Auckland",
-                                   session=("10:00", "16:45"), start="2021-01")
+                                   session=("10:20", "16:50"), start="2021-01")
     utc_days = {t.date() for t in sim.trades["ts"].to_list()}
     local_days = {t.date() for t in _local(sim.trades["ts"].to_list(), "Pacific/Auckland")}
     assert utc_days != local_days  # the session straddles UTC midnight

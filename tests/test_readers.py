@@ -18,11 +18,11 @@ from liqpanel.errors import InputError
 from liqpanel.readers import TRADES_SPEC, read_table, unparseable_error
 
 NEW_YORK = ZoneInfo("America/New_York")
-MAPPING = {"SYM": "security", "STAMP": "ts", "PX": "price", "QTY": "size"}
+MAPPING = {"INSTR": "security", "STAMP": "ts", "DEAL_PX": "price", "DEAL_QTY": "size"}
 ROWS = [("AAA", "2021-03-01 10:00:00", "10.5", "100"), ("BBB", "2021-03-01 10:00:01.250", "20.25", "5")]
 
 
-def _csv(path, rows=ROWS, header="SYM,STAMP,PX,QTY"):
+def _csv(path, rows=ROWS, header="INSTR,STAMP,DEAL_PX,DEAL_QTY"):
     text = "\n".join([header] + [",".join(r) for r in rows]) + "\n"
     if str(path).endswith(".gz"):
         with gzip.open(path, "wt") as fh:
@@ -53,7 +53,7 @@ def test_glob_of_csv_gzip_and_parquet_reads_every_file(tmp_path):
     _csv(tmp_path / "part2.csv.gz", ROWS[1:])
     _, frame = _read(tmp_path / "part*")
     assert frame["security"].to_list() == ["AAA", "BBB"] and frame["_file"].to_list() == [0, 1]
-    pl.DataFrame({"SYM": ["CCC"], "STAMP": [datetime(2021, 3, 1, 11, 0)], "PX": [Decimal("1.25")], "QTY": [7]}).write_parquet(
+    pl.DataFrame({"INSTR": ["CCC"], "STAMP": [datetime(2021, 3, 1, 11, 0)], "DEAL_PX": [Decimal("1.25")], "DEAL_QTY": [7]}).write_parquet(
         tmp_path / "p1.parquet"
     )
     _, parquet = _read(tmp_path / "p*.parquet")
@@ -62,7 +62,7 @@ def test_glob_of_csv_gzip_and_parquet_reads_every_file(tmp_path):
 
 
 def test_zone_aware_and_offset_timestamps_are_converted(tmp_path):
-    aware = pl.DataFrame({"SYM": ["A"], "STAMP": [datetime(2021, 3, 1, 23, 30)], "PX": [1.0], "QTY": [1.0]})
+    aware = pl.DataFrame({"INSTR": ["A"], "STAMP": [datetime(2021, 3, 1, 23, 30)], "DEAL_PX": [1.0], "DEAL_QTY": [1.0]})
     aware = aware.with_columns(pl.col("STAMP").dt.replace_time_zone("Asia/Tokyo"))
     aware.write_parquet(tmp_path / "a.parquet")
     scanned, frame = _read(tmp_path / "a.parquet")
@@ -74,10 +74,10 @@ def test_zone_aware_and_offset_timestamps_are_converted(tmp_path):
 
 
 def test_files_in_different_zones_are_each_read_correctly(tmp_path):
-    pl.DataFrame({"SYM": ["A"], "STAMP": [datetime(2021, 3, 1, 10, 0)], "PX": [1.0], "QTY": [1.0]}).write_parquet(
+    pl.DataFrame({"INSTR": ["A"], "STAMP": [datetime(2021, 3, 1, 10, 0)], "DEAL_PX": [1.0], "DEAL_QTY": [1.0]}).write_parquet(
         tmp_path / "x1.parquet"
     )
-    pl.DataFrame({"SYM": ["A"], "STAMP": [datetime(2021, 3, 1, 15, 0)], "PX": [1.0], "QTY": [1.0]}).with_columns(
+    pl.DataFrame({"INSTR": ["A"], "STAMP": [datetime(2021, 3, 1, 15, 0)], "DEAL_PX": [1.0], "DEAL_QTY": [1.0]}).with_columns(
         pl.col("STAMP").dt.replace_time_zone("UTC")
     ).write_parquet(tmp_path / "x2.parquet")
     scanned, frame = _read(tmp_path / "x*.parquet")
@@ -87,8 +87,8 @@ def test_files_in_different_zones_are_each_read_correctly(tmp_path):
 
 def test_date_and_time_columns(tmp_path):
     rows = [("A", "20210301", "09:30:00.5", "1", "1"), ("A", "2021-03-02", "16:00", "1", "1")]
-    path = _csv(tmp_path / "d.csv", rows, header="SYM,DAY,CLOCK,PX,QTY")
-    mapping = {"SYM": "security", "DAY": "date", "CLOCK": "time", "PX": "price", "QTY": "size"}
+    path = _csv(tmp_path / "d.csv", rows, header="INSTR,DAY,CLOCK,DEAL_PX,DEAL_QTY")
+    mapping = {"INSTR": "security", "DAY": "date", "CLOCK": "time", "DEAL_PX": "price", "DEAL_QTY": "size"}
     _, frame = _read(path, mapping)
     assert frame["ts"].to_list() == [_utc(2021, 3, 1, 9, 30, 0, 500000), _utc(2021, 3, 2, 16, 0)]
 
@@ -120,10 +120,10 @@ def test_unparseable_timestamp_and_price_name_file_column_and_row(tmp_path):
 @pytest.mark.parametrize(
     "header,mapping,needle",
     [
-        ("SYM,STAMP,PX,QTY", {**MAPPING, "VENUE": "venue"}, "column 'VENUE'"),  # mapped column absent
-        ("SYM,STAMP,PX,VOL", MAPPING, "column 'QTY'"),
-        ("SYM,STAMP,QTY", {"SYM": "security", "STAMP": "ts", "QTY": "size"}, "column 'price'"),
-        ("SYM,PX,QTY", {"SYM": "security", "PX": "price", "QTY": "size"}, "'ts' or two columns 'date' and 'time'"),
+        ("INSTR,STAMP,DEAL_PX,DEAL_QTY", {**MAPPING, "VENUE": "venue"}, "column 'VENUE'"),  # mapped column absent
+        ("INSTR,STAMP,DEAL_PX,VOL", MAPPING, "column 'DEAL_QTY'"),
+        ("INSTR,STAMP,DEAL_QTY", {"INSTR": "security", "STAMP": "ts", "DEAL_QTY": "size"}, "column 'price'"),
+        ("INSTR,DEAL_PX,DEAL_QTY", {"INSTR": "security", "DEAL_PX": "price", "DEAL_QTY": "size"}, "'ts' or two columns 'date' and 'time'"),
     ],
 )
 def test_schema_problems_are_reported_at_once(tmp_path, header, mapping, needle):
@@ -134,8 +134,8 @@ def test_schema_problems_are_reported_at_once(tmp_path, header, mapping, needle)
 
 
 def test_wrong_kind_of_column_and_empty_file(tmp_path):
-    pl.DataFrame({"SYM": ["A"], "STAMP": [datetime(2021, 3, 1)], "PX": [True], "QTY": [1]}).write_parquet(tmp_path / "b.parquet")
-    with pytest.raises(InputError, match=r"column 'PX' \(price\): expected numbers"):
+    pl.DataFrame({"INSTR": ["A"], "STAMP": [datetime(2021, 3, 1)], "DEAL_PX": [True], "DEAL_QTY": [1]}).write_parquet(tmp_path / "b.parquet")
+    with pytest.raises(InputError, match=r"column 'DEAL_PX' \(price\): expected numbers"):
         read_table(str(tmp_path / "b.parquet"), MAPPING, TRADES_SPEC, "UTC")
     (tmp_path / "e.csv").write_text("")
     with pytest.raises(InputError, match="e.csv: the file is empty"):

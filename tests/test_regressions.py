@@ -83,7 +83,7 @@ def portfolio_panel() -> pl.DataFrame:
 def _simulated_panel(n_sec: int = 150, n_months: int = 48, seed: int = 7, loading: float = 0.8) -> pl.DataFrame:
     """Panel with known slopes: y = 0.02 + 0.5 x1 - 0.3 x2 + a_i + g_t + e.
 
-    x1 = loading * a_i + noise: with loading > 0 the entity effects a_i are
+    x1 = loading * a_i + noise: with loading > 0 the security effects a_i are
     correlated with x1 (pooled OLS and cross-sectional regressions are biased,
     the within estimator is not); month effects g_t are common shocks.
     """
@@ -173,7 +173,7 @@ def test_fama_macbeth_automatic_lags_follow_newey_west_1994_rule(portfolio_panel
 def test_fama_macbeth_recovers_known_slopes():
     panel = _simulated_panel(seed=11, loading=0.0)
     res = fit_model(panel, ModelSpec("fm", regressors=("amihud", "log_size"), lags=3))
-    # Simulation truth: slopes 0.5 and -0.3; entity effects uncorrelated with the
+    # Simulation truth: slopes 0.5 and -0.3; security effects uncorrelated with the
     # regressors, month effects fall into each month's intercept.
     assert abs(res.params["amihud"] - 0.5) < 4 * res.std_errors["amihud"]
     assert abs(res.params["log_size"] + 0.3) < 4 * res.std_errors["log_size"]
@@ -186,7 +186,7 @@ def test_fama_macbeth_recovers_known_slopes():
 
 def test_grunfeld_within_estimates_match_baltagi(grunfeld):
     spec = ModelSpec("fe", dependent="ret_next", regressors=("value", "capital"), estimator="fixed_effects",
-                     effects=("entity",), covariance="unadjusted")
+                     effects=("security",), covariance="plain")
     res = fit_model(grunfeld, spec)
     # Baltagi, Econometric Analysis of Panel Data, Grunfeld table, within
     # estimator (from memory): value 0.1101 (se 0.0119), capital 0.3101 (se 0.0174).
@@ -202,12 +202,12 @@ def test_grunfeld_within_estimates_match_baltagi(grunfeld):
 
 def test_grunfeld_two_way_and_pooled_match_baltagi(grunfeld):
     two_way = fit_model(grunfeld, ModelSpec("fe2", regressors=("value", "capital"), estimator="fixed_effects",
-                                            effects=("entity", "time"), covariance="unadjusted"))
+                                            effects=("security", "month"), covariance="plain"))
     # Baltagi, two-way within estimator on Grunfeld (from memory): 0.1177, 0.3579.
     assert two_way.params["value"] == pytest.approx(0.1177, abs=5e-5)
     assert two_way.params["capital"] == pytest.approx(0.3579, abs=5e-5)
     pooled = fit_model(grunfeld, ModelSpec("ols", regressors=("value", "capital"), estimator="pooled",
-                                           covariance="unadjusted"))
+                                           covariance="plain"))
     # Baltagi, pooled OLS on Grunfeld (from memory): -42.714, 0.1156, 0.2307.
     assert pooled.params["intercept"] == pytest.approx(-42.714, abs=5e-4)
     assert pooled.params["value"] == pytest.approx(0.1156, abs=5e-5)
@@ -254,9 +254,9 @@ def test_robust_standard_errors_match_statsmodels_hc1(grunfeld):
 def test_fixed_effects_recover_known_slopes_where_pooled_is_biased():
     panel = _simulated_panel(seed=5)
     fe = fit_model(panel, ModelSpec("fe", regressors=("amihud", "log_size"), estimator="fixed_effects",
-                                    effects=("entity", "time")))
+                                    effects=("security", "month")))
     pooled = fit_model(panel, ModelSpec("p", regressors=("amihud", "log_size"), estimator="pooled"))
-    # Truth 0.5 / -0.3; entity effects correlated with amihud bias pooled OLS
+    # Truth 0.5 / -0.3; security effects correlated with amihud bias pooled OLS
     # upward by cov(x1, a)/var(x1) = 0.8 / 1.64 ~ 0.49 (simulation design).
     assert fe.params["amihud"] == pytest.approx(0.5, abs=0.03)
     assert fe.params["log_size"] == pytest.approx(-0.3, abs=0.03)
@@ -300,12 +300,44 @@ def test_driscoll_kraay_matches_numpy_and_statsmodels_groupsum(grunfeld, lags):
     np.testing.assert_allclose(list(res.std_errors.values()), ref.bse * np.sqrt(200 / 197), rtol=1e-9)
 
 
+@pytest.mark.parametrize("lags", [0, 3])
+def test_driscoll_kraay_with_security_effects_matches_the_within_formula(grunfeld, lags):
+    # Driscoll & Kraay (1998) on the within-transformed Grunfeld panel (each
+    # variable demeaned by firm), with the small-sample factor N/(N-k-G): the
+    # G = 10 absorbed firm means count as estimated parameters, as linearmodels'
+    # PanelOLS does with debiased=True (documented in fit_model). N = 200,
+    # k = 2 slopes, so the factor is 200/188, not the 200/198 of N/(N-k).
+    res = fit_model(grunfeld, ModelSpec("dk_fe", regressors=("value", "capital"), estimator="driscoll_kraay",
+                                        effects=("security",), lags=lags))
+    frame = grunfeld.sort("month", "security")
+    within = frame.with_columns(pl.col(c) - pl.col(c).mean().over("security") for c in ("ret_next", "value", "capital"))
+    y = within.get_column("ret_next").to_numpy()
+    x = within.select("value", "capital").to_numpy()
+    b = np.linalg.solve(x.T @ x, x.T @ y)
+    # Grunfeld within slopes 0.1101 and 0.3101 (Baltagi, Econometric Analysis of Panel Data, Grunfeld table; from memory)
+    assert b == pytest.approx([0.1101, 0.3101], abs=5e-5)
+    scores = x * (y - x @ b)[:, None]
+    h = np.zeros((_codes(frame, "month").max() + 1, 2))
+    np.add.at(h, _codes(frame, "month"), scores)
+    s = h.T @ h
+    for j in range(1, lags + 1):
+        g = h[j:].T @ h[:-j]
+        s += (1 - j / (lags + 1)) * (g + g.T)
+    bread = np.linalg.inv(x.T @ x)
+    expected = np.sqrt(np.diag(bread @ s @ bread) * 200 / (200 - 2 - 10))
+    assert [res.params["value"], res.params["capital"]] == pytest.approx(b, rel=1e-10)
+    np.testing.assert_allclose([res.std_errors["value"], res.std_errors["capital"]], expected, rtol=1e-9)
+    # and not the factor without the firm effects: the two differ by sqrt(198/188) = 1.026
+    assert res.std_errors["value"] / (expected[0] * np.sqrt(188 / 198)) == pytest.approx(np.sqrt(198 / 188), rel=1e-9)
+
+
 def test_driscoll_kraay_recovers_slopes_and_exceeds_white_under_common_shocks():
     panel = _simulated_panel(n_sec=100, n_months=60, seed=9)
     dk = fit_model(panel, ModelSpec("dk", regressors=("amihud", "log_size"), estimator="driscoll_kraay",
-                                    effects=("entity",), lags=3))
-    assert dk.params["amihud"] == pytest.approx(0.5, abs=0.04)
-    assert dk.params["log_size"] == pytest.approx(-0.3, abs=0.04)
+                                    effects=("security",), lags=3))
+    # within 4 of the estimator's own (Driscoll-Kraay) standard errors of the truth
+    assert dk.params["amihud"] == pytest.approx(0.5, abs=4 * dk.std_errors["amihud"])
+    assert dk.params["log_size"] == pytest.approx(-0.3, abs=4 * dk.std_errors["log_size"])
     # Month shocks g_t (sd 0.5) in the error are common to all securities of a
     # month: White ignores that correlation, DK does not (measured ratio ~3).
     dk_pooled = fit_model(panel, ModelSpec("dk", regressors=("amihud",), estimator="driscoll_kraay", lags=3))
@@ -348,7 +380,7 @@ def test_model_spec_from_config_and_its_errors():
                                   "cluster": ["security", "month"]})
     assert spec.covariance == "clustered" and spec.cluster == ("security", "month")
     assert ModelSpec.from_config({"name": "d", "regressors": ["amihud"], "estimator": "driscoll_kraay"}).covariance \
-        == "kernel"
+        == "bartlett"
     assert ModelSpec.from_config({"name": "f", "regressors": "amihud", "lags": None}).lags is None
     cases = [
         ({"name": "m2", "regressors": ["a"], "regresors": ["b"]}, r"model 'm2': unknown key\(s\) \['regresors'\]"),
@@ -361,7 +393,16 @@ def test_model_spec_from_config_and_its_errors():
          r"model 'm7': 'cluster' has \['industry'\]"),
         ({"name": "m8", "regressors": ["a"], "estimator": "fixed_effects"}, r"model 'm8'.*needs 'effects'"),
         ({"name": "m9", "regressors": []}, r"model 'm9': 'regressors' is empty"),
-        ({"name": "m10", "regressors": ["a"], "effects": ["entity"]}, r"model 'm10': 'effects'"),
+        ({"name": "m10", "regressors": ["a"], "effects": ["security"]}, r"model 'm10': 'effects'"),
+        # the regression library's option words are refused, naming ours
+        ({"name": "m11", "regressors": ["a"], "estimator": "fixed_effects", "effects": ["entity"]},
+         r"model 'm11': 'effects' has 'entity'; the word here is 'security'"),
+        ({"name": "m12", "regressors": ["a"], "estimator": "fixed_effects", "effects": ["time"]},
+         r"'effects' has 'time'; the word here is 'month'"),
+        ({"name": "m13", "regressors": ["a"], "estimator": "pooled", "covariance": "unadjusted"},
+         r"'covariance' has 'unadjusted'; the word here is 'plain'"),
+        ({"name": "m14", "regressors": ["a"], "estimator": "driscoll_kraay", "covariance": "kernel"},
+         r"'covariance' has 'kernel'; the word here is 'bartlett'"),
         ({"regressors": ["a"]}, r"no 'name'"),
     ]
     for entry, message in cases:
@@ -399,7 +440,7 @@ def test_regression_table_layout_and_stars():
 
 def test_regression_table_from_fitted_models_is_deterministic(grunfeld):
     specs = [ModelSpec("pooled", regressors=("value", "capital"), estimator="pooled"),
-             ModelSpec("within", regressors=("value", "capital"), estimator="fixed_effects", effects=("entity",))]
+             ModelSpec("within", regressors=("value", "capital"), estimator="fixed_effects", effects=("security",))]
     first = regression_table([fit_model(grunfeld, s) for s in specs])
     second = regression_table([fit_model(grunfeld, s) for s in specs])
     assert first.equals(second)

@@ -58,16 +58,32 @@ def test_conventions_for_non_negative_autocovariance():
 
 def test_recovers_a_known_spread_on_roll_model_prices():
     # Roll (1984): p_t = m_t + c q_t gives gamma1 = -c^2, so 2 sqrt(-gamma1) = 2c.
-    # 2,000 security-months of 250 days each: the mean estimate is within 5% of 2c.
+    # 400 series of 250 days each (n = 249 price changes).
     rng = np.random.default_rng(7)
     n_sec, n_days, c, sigma = 400, 250, 0.01, 0.01
     m = np.cumsum(rng.normal(0, sigma, size=(n_sec, n_days)), axis=1)
     q = rng.choice([-1.0, 1.0], size=(n_sec, n_days))
     daily = _daily_from_log_prices(m + c * q)
     out = roll_spread(daily.lazy(), series="log_price", convention="zero").collect()
-    assert out["roll_spread"].mean() == pytest.approx(2 * c, rel=0.05)
+    # Bands derived from the model: gamma0 = sigma^2 + 2c^2, gamma1 = -c^2, and
+    # Bartlett's formula for sample autocovariances (from memory) gives
+    # Var(g1) = (gamma0^2 + 3 gamma1^2) / n, Var(g0 + 2 g1) = 2 (gamma0^2 + 2 gamma1^2) / n
+    # + 4 Var(g1) + 4 Cov(g0, g1) with Cov(g0, g1) = 4 gamma0 gamma1 / n (the
+    # last two cancel here). By the delta method sd(2 sqrt(-g1)) = sd(g1) / c
+    # = 0.0022 per series (measured 0.0019) and sd(g0 + 2 g1) = 3.0e-5
+    # (measured 2.9e-5); each mean over 400 series is held to 4 standard errors,
+    # the spread's band widened by its second-order (Jensen) bias
+    # sd(g1)^2 / (4 c^3) = 1.2e-4. Measured: 0.019928 and 9.966e-5.
+    n, gamma0, gamma1 = n_days - 1, sigma**2 + 2 * c**2, -(c**2)
+    var_g1 = (gamma0**2 + 3 * gamma1**2) / n
+    se_spread = math.sqrt(var_g1) / c / math.sqrt(n_sec)
+    jensen = var_g1 / (4 * c**3)
+    assert out["roll_spread"].mean() == pytest.approx(2 * c, abs=4 * se_spread + jensen)
     # implied efficient variance sigma_u^2 = gamma0 + 2 gamma1 (Roll 1984)
-    assert out["roll_efficient_var"].mean() == pytest.approx(sigma**2, rel=0.05)
+    var_g0 = 2 * (gamma0**2 + 2 * gamma1**2) / n
+    cov_g0_g1 = 4 * gamma0 * gamma1 / n
+    se_var = math.sqrt((var_g0 + 4 * var_g1 + 4 * cov_g0_g1) / n_sec)
+    assert out["roll_efficient_var"].mean() == pytest.approx(sigma**2, abs=4 * se_var)
 
 
 def test_returns_chain_across_month_partitions():

@@ -93,9 +93,23 @@ def test_noisy_proxy_recovers_known_error_size():
     # (se of the bias = 0.004 / sqrt(9600) ~ 4e-5).
     assert out["rmse"] == pytest.approx(0.004, rel=0.03)
     assert abs(out["mean_bias"]) < 2e-4
-    # Averaging over 400 securities removes the noise from the market-wide series.
-    assert out["ts_corr_market"] > 0.98
-    assert 0.3 < out["mean_cs_pearson"] < 0.95
+    # Derived correlations (this test's own simulation): in month m the
+    # benchmark is level_m x LogNormal(0, 0.5), cross-sectional sd
+    # sd_m = level_m sqrt((e^0.25 - 1) e^0.25) = 0.604 level_m; adding
+    # independent N(0, 0.004^2) noise gives Pearson rho_m = sd_m / sqrt(sd_m^2 + 0.004^2)
+    # (the attenuation of a correlation by measurement error, common practice);
+    # the mean over the 24 months is 0.8252 (measured 0.8252 at this seed; over
+    # seeds 1-5 the measured values lie within 0.007 of it, so the band 0.02 is
+    # about three times the seed-to-seed spread).
+    level = 0.01 + 0.004 * np.sin(np.arange(24) / 3.0)
+    sd_m = level * np.sqrt((np.exp(0.25) - 1) * np.exp(0.25))
+    assert out["mean_cs_pearson"] == pytest.approx(np.mean(sd_m / np.sqrt(sd_m**2 + 0.004**2)), abs=0.02)
+    # The market-wide series: the monthly means share the benchmark exactly,
+    # and the noise of a mean over 400 securities has sd 0.004 / 20 = 0.0002,
+    # so rho = sd(means) / sqrt(sd(means)^2 + 0.0002^2) = 0.9980 with the
+    # means' sd taken as e^0.125 x sd(level) (measured 0.9970; seeds 1-5 within 0.0006).
+    sd_means = np.std(level * np.exp(0.125), ddof=1)
+    assert out["ts_corr_market"] == pytest.approx(sd_means / np.sqrt(sd_means**2 + 0.0002**2), abs=0.003)
 
 
 def test_thin_months_are_left_out_of_cross_sectional_correlations():

@@ -104,9 +104,12 @@ def validate_config(config: dict, *, source: str = "config") -> dict:
             resolve_options(get_measure(name), options)
         except ConfigError as exc:
             raise ConfigError(f"{source}: {exc}") from None
+    from liqpanel.models import ModelSpec
     from liqpanel.study import check_settings
 
     try:
+        for entry in (filled.get("models") or {}).get("regressions") or []:
+            ModelSpec.from_config(entry)  # estimator, covariance and effects words, before any stage runs
         check_settings(filled.get("study"))
     except ConfigError as exc:
         raise ConfigError(f"{source}: {exc}") from None

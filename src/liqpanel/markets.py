@@ -5,12 +5,12 @@ A profile is a small YAML file in ``config/markets/`` (or any path):
     name: ...                 # free text
     timezone: Asia/Kolkata    # an IANA time-zone name
     sessions:                 # one or more [open, close] local times, in order
-      - ["09:00", "11:45"]
-      - ["13:15", "15:30"]    # a midday break between the two
+      - ["08:40", "11:25"]
+      - ["12:55", "15:10"]    # a midday break between the two
     half_days:                # optional: local date -> early close
-      "2021-11-04": "11:00"
+      "2021-11-16": "10:40"
     tick_size: 0.01           # optional price grid, currency units
-    currency: ABC             # optional currency code
+    currency: ZZK             # optional currency code (ISO 4217 private use: ZZA-ZZZ)
 
 Session bounds are inclusive (common practice: the opening and the closing
 trade belong to the day). A session must close after it opens on the same

@@ -376,7 +376,7 @@ def _covariance_words(spec: Any) -> str:
         return "standard errors clustered by " + " and ".join(spec.cluster)
     if cov == "robust":
         return "heteroskedasticity-robust (White 1980) standard errors"
-    if cov == "kernel":
+    if cov == "bartlett":
         return f"Driscoll-Kraay (1998) standard errors, {_lags_words(spec.lags)}"
     return "conventional OLS standard errors"
 

@@ -130,6 +130,10 @@ UTC = pl.Datetime("us", "UTC")
 TABLES = ("trades", "quotes", "securities", "characteristics", "returns", "truth")
 _MICROS_PER_MINUTE = 60_000_000
 _LETTERS = "ABCDEFGHIJKLMNOPQRSTUVWXYZ"
+# Every simulated security's identifier starts with this lower-case prefix, a
+# form no exchange gives its symbols, so an invented code can never be read as
+# a real listing even when its letters happen to match one.
+SECURITY_PREFIX = "sim-"
 
 # Invented syllables for firm names; the two-syllable stems were read through
 # once by hand to keep well-known company names out.
@@ -571,13 +575,20 @@ def _trades_frame(rng, security, sec, ts, price, size, sign, open_us, day, sessi
 # invented names
 
 
-def _tickers(firm_names: np.ndarray) -> np.ndarray:
-    """Distinct tickers of 3 or 4 upper-case letters abbreviating the invented names.
+def security_code(letters: str) -> str:
+    """The identifier of a simulated security: ``SECURITY_PREFIX`` + its letters."""
+    return SECURITY_PREFIX + letters
 
-    The ticker is the stem's first letter followed by its next consonants (at
-    most four letters in all, padded with the initial of the kind of business
-    when the stem has fewer than three); a ticker already taken gets its last
-    letter replaced by the kind's initial, then by A, B, C, ... until free.
+
+def _tickers(firm_names: np.ndarray) -> np.ndarray:
+    """Distinct identifiers abbreviating the invented names, e.g. ``sim-BRLN``.
+
+    The letters are the stem's first letter followed by its next consonants
+    (3 or 4 upper-case letters in all, padded with the initial of the kind of
+    business when the stem has fewer than three); letters already taken get
+    their last one replaced by the kind's initial, then by A, B, C, ... until
+    free. Every identifier carries ``SECURITY_PREFIX`` (see
+    :func:`security_code`); the prefix does not change the sort order.
     """
     taken: set[str] = set()
     out = []
@@ -596,7 +607,7 @@ def _tickers(firm_names: np.ndarray) -> np.ndarray:
             ticker = next(a + b + c + d for a in skeleton[:1] for b in _LETTERS for c in _LETTERS for d in _LETTERS
                           if a + b + c + d not in taken)
         taken.add(ticker)
-        out.append(ticker)
+        out.append(security_code(ticker))
     return np.array(out)
 
 
@@ -743,7 +754,7 @@ def simulate_security_months(
 ) -> Market:
     """Independent security-months of the Roll model on a grid of parameters.
 
-    Element k of the (broadcast) arrays is one security, ``S000001`` for
+    Element k of the (broadcast) arrays is one security, ``sim-S000001`` for
     k = 0, ..., traded for ``n_days`` business days from the first day of
     ``start`` (21 days = January 2021 exactly) with half-spread
     ``half_spread[k]`` (proportion), daily efficient volatility
@@ -779,7 +790,7 @@ def simulate_security_months(
     cal = _calendar(days)
     k, n_months = len(half), len(cal.months)
     width = max(6, len(str(k)))
-    ids = np.array([f"S{j + 1:0{width}d}" for j in range(k)])
+    ids = np.array([security_code(f"S{j + 1:0{width}d}") for j in range(k)])
     pop = _Population(
         security=ids,
         firm_name=np.array([f"Simulated security {j + 1:0{width}d}" for j in range(k)]),

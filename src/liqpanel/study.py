@@ -72,7 +72,7 @@ from liqpanel.bars import daily_bars
 from liqpanel.contracts import DAILY, require_columns
 from liqpanel.errors import ConfigError
 from liqpanel.measures import REGISTRY, compute_monthly, get_measure
-from liqpanel.simulate import simulate_security_months
+from liqpanel.simulate import SECURITY_PREFIX, simulate_security_months
 
 KEY = ["security", "month"]
 KINDS = ("spread", "volatility")
@@ -337,7 +337,7 @@ def draw_conditions(pool: pl.DataFrame, draws: int, seed: int) -> pl.DataFrame:
     """``draws`` security-months resampled with replacement from the calibrated ``pool``.
 
     Keeps the joint distribution of the pool's columns; ``draw`` numbers the
-    draws from 0, ``security`` becomes the draw's own identifier (D000001,
+    draws from 0, ``security`` becomes the draw's own identifier (sim-D000001,
     ...) and ``origin_security``, ``origin_month`` say where it came from.
     Needs ``spread``, ``daily_vol``, ``trades_per_day``, ``n_days``.
     """
@@ -358,7 +358,7 @@ def draw_conditions(pool: pl.DataFrame, draws: int, seed: int) -> pl.DataFrame:
     width = max(6, len(str(draws)))
     return drawn.with_columns(
         pl.Series("draw", np.arange(draws, dtype=np.int64)),
-        pl.format("D{}", pl.int_range(1, draws + 1).cast(pl.String).str.zfill(width)).alias("security"),
+        pl.format(SECURITY_PREFIX + "D{}", pl.int_range(1, draws + 1).cast(pl.String).str.zfill(width)).alias("security"),
     )
 
 

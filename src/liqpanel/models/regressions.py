@@ -10,8 +10,8 @@ set side by side by :func:`regression_table`. Estimation goes through
   or the plain standard error of the mean (``covariance="plain"``);
 * ``pooled`` -- pooled OLS with standard errors clustered by security, by
   month or both (Petersen 2009; Cameron, Gelbach & Miller 2011),
-  heteroskedasticity-robust (White 1980) or unadjusted;
-* ``fixed_effects`` -- the within estimator with entity and/or time effects;
+  heteroskedasticity-robust (White 1980) or plain (``s^2 (X'X)^-1``);
+* ``fixed_effects`` -- the within estimator with security and/or month effects;
 * ``driscoll_kraay`` -- OLS (with effects if asked) and the Driscoll & Kraay
   (1998) covariance, robust to cross-sectional and serial correlation.
 
@@ -37,18 +37,25 @@ from liqpanel.errors import ConfigError, InputError
 ESTIMATORS = ("fama_macbeth", "pooled", "fixed_effects", "driscoll_kraay")
 COVARIANCES = {
     "fama_macbeth": ("newey_west", "plain"),
-    "pooled": ("clustered", "robust", "unadjusted"),
-    "fixed_effects": ("clustered", "robust", "unadjusted"),
-    "driscoll_kraay": ("kernel",),
+    "pooled": ("clustered", "robust", "plain"),
+    "fixed_effects": ("clustered", "robust", "plain"),
+    "driscoll_kraay": ("bartlett",),
 }
 DEFAULT_COVARIANCE = {
     "fama_macbeth": "newey_west",
     "pooled": "clustered",
     "fixed_effects": "clustered",
-    "driscoll_kraay": "kernel",
+    "driscoll_kraay": "bartlett",
 }
 CLUSTER_DIMENSIONS = ("security", "month")
-EFFECTS = ("entity", "time")
+EFFECTS = ("security", "month")
+# Our words of the trade -> the option words of the regression library; the
+# library's own words are refused with the word to use instead.
+_LIBRARY_COVARIANCE = {"clustered": "clustered", "robust": "robust", "plain": "unadjusted", "bartlett": "kernel"}
+_OLD_WORDS = {
+    "covariance": {"unadjusted": "plain", "kernel": "bartlett", "homoskedastic": "plain"},
+    "effects": {"entity": "security", "time": "month"},
+}
 INTERCEPT = "intercept"
 KEY = ("security", "month")
 
@@ -99,6 +106,14 @@ def newey_west_mean(values, lags: int | None = 6) -> dict[str, float]:
     return {"mean": mean, "std_error": se, "tstat": tstat, "n": n, "lags": lag}
 
 
+def _refuse_library_words(where: str, key: str, values: tuple[str, ...]) -> None:
+    """A clear error for the regression library's option words, naming ours."""
+    for value in values:
+        ours = _OLD_WORDS[key].get(value) if isinstance(value, str) else None
+        if ours is not None:
+            raise ConfigError(f"{where}: '{key}' has {value!r}; the word here is {ours!r}")
+
+
 @dataclass(frozen=True)
 class ModelSpec:
     """One regression of the models stage.
@@ -106,15 +121,20 @@ class ModelSpec:
     ``estimator``: ``fama_macbeth`` | ``pooled`` | ``fixed_effects`` |
     ``driscoll_kraay``. ``covariance`` by estimator: fama_macbeth ``newey_west``
     or ``plain``; pooled and fixed_effects ``clustered``, ``robust`` or
-    ``unadjusted``; driscoll_kraay ``kernel``. Left at its default
-    (``newey_west``) for an estimator other than fama_macbeth, it is read as
-    that estimator's usual choice (``clustered``; ``kernel`` for
-    driscoll_kraay). ``lags``: Newey-West / Driscoll-Kraay bandwidth in months
-    (``None``: Newey & West 1994 rule of thumb, see :func:`automatic_lags`).
-    ``cluster``: any of ``security``, ``month``. ``effects``: any of
-    ``entity``, ``time`` (fixed_effects needs at least one; driscoll_kraay may
-    use them too). ``constant``: add an intercept (ignored when effects are
-    given: they absorb it, and no intercept is reported).
+    ``plain``; driscoll_kraay ``bartlett`` (the Driscoll-Kraay covariance
+    with Bartlett weights). Left at its default (``newey_west``) for an
+    estimator other than fama_macbeth, it is read as that estimator's usual
+    choice (``clustered``; ``bartlett`` for driscoll_kraay). ``lags``:
+    Newey-West / Driscoll-Kraay bandwidth in months (``None``: Newey & West
+    1994 rule of thumb, see :func:`automatic_lags`). ``cluster``: any of
+    ``security``, ``month``. ``effects``: any of ``security``, ``month``
+    (fixed effects per security and per month; fixed_effects needs at least
+    one; driscoll_kraay may use them too). ``constant``: add an intercept
+    (ignored when effects are given: they absorb it, and no intercept is
+    reported). These are our words; they are translated to the regression
+    library's own inside :func:`fit_model`, and the library's words
+    (``entity``, ``time``, ``unadjusted``, ``kernel``) are refused with the
+    word to use instead.
     """
 
     name: str
@@ -142,6 +162,8 @@ class ModelSpec:
             object.__setattr__(self, attr, tuple(value))
         if self.estimator not in ESTIMATORS:
             raise ConfigError(f"{where}: 'estimator' is {self.estimator!r}; expected one of {list(ESTIMATORS)}")
+        _refuse_library_words(where, "covariance", (self.covariance,))
+        _refuse_library_words(where, "effects", self.effects)
         if self.covariance == "newey_west" and self.estimator != "fama_macbeth":
             object.__setattr__(self, "covariance", DEFAULT_COVARIANCE[self.estimator])
         allowed = COVARIANCES[self.estimator]
@@ -175,7 +197,7 @@ class ModelSpec:
         if len(set(self.effects)) != len(self.effects):
             raise ConfigError(f"{where}: 'effects' repeats an effect: {list(self.effects)}")
         if self.estimator == "fixed_effects" and not self.effects:
-            raise ConfigError(f"{where}: the fixed_effects estimator needs 'effects' (entity and/or time)")
+            raise ConfigError(f"{where}: the fixed_effects estimator needs 'effects' (security and/or month)")
         if self.effects and self.estimator in ("fama_macbeth", "pooled"):
             raise ConfigError(
                 f"{where}: 'effects' is {list(self.effects)} but the {self.estimator} estimator takes none; "
@@ -265,7 +287,7 @@ class ModelResult:
         cov = self.covariance
         if cov == "clustered":
             cov += " by " + " and ".join(self.cluster)
-        if self.lags is not None and cov in ("newey_west", "kernel"):
+        if self.lags is not None and cov in ("newey_west", "bartlett"):
             cov += f", {self.lags} lags"
         lines = [
             f"Model {self.name}: {self.estimator}, dependent {self.dependent}",
@@ -365,8 +387,8 @@ def fit_model(panel: pl.DataFrame, spec: ModelSpec) -> ModelResult:
       covariance (Petersen 2009; two-way as in Cameron, Gelbach & Miller
       2011: ``V_security + V_month - V_security∩month``), each one-way piece
       with the factor ``G/(G-1) * (N-1)/(N-k)``; ``robust`` is White (1980)
-      with ``N/(N-k)``; ``unadjusted`` is ``s^2 (X'X)^-1``.
-    * Fixed effects: within transformation for entity and/or time effects,
+      with ``N/(N-k)``; ``plain`` is ``s^2 (X'X)^-1``.
+    * Fixed effects: within transformation for security and/or month effects,
       then as pooled; absorbed effects are counted in the degrees of freedom
       unless a single effect is nested in the clusters (linearmodels
       ``auto_df``).
@@ -374,7 +396,13 @@ def fit_model(panel: pl.DataFrame, spec: ModelSpec) -> ModelResult:
       ``V = (X'X)^-1 [sum_j w_j (G_j + G_j')] (X'X)^-1 * N/(N-k)`` with
       ``h_t = sum_i x_it e_it``, ``G_j = sum_t h_t h_{t-j}'``, Bartlett
       weights ``w_j = 1 - j/(L+1)`` (``w_0`` counted once). Robust to
-      cross-sectional and serial correlation; needs many months.
+      cross-sectional and serial correlation; needs many months. With
+      effects, ``X``, ``y`` are the within-transformed data; with security
+      effects the factor is ``N/(N-k-G)``, ``G`` the number of securities
+      (the absorbed means count as estimated parameters), as linearmodels'
+      ``PanelOLS`` applies with ``debiased=True``; ``tests/test_regressions.py``
+      checks it against the formula on the Grunfeld panel. Month effects
+      follow the library's own degrees-of-freedom count.
 
     ``lags=None`` uses the rule of thumb ``floor(4 (T/100)^(2/9))``
     (Newey & West 1994).
@@ -419,8 +447,8 @@ def fit_model(panel: pl.DataFrame, spec: ModelSpec) -> ModelResult:
             n_securities = frame.get_column("security").n_unique()
             r2 = float(res.avg_rsquared)
         else:
-            entity = "entity" in spec.effects
-            time = "time" in spec.effects
+            entity = "security" in spec.effects
+            time = "month" in spec.effects
             if spec.effects:
                 model = PanelOLS(y, x, entity_effects=entity, time_effects=time)
             else:
@@ -433,11 +461,11 @@ def fit_model(panel: pl.DataFrame, spec: ModelSpec) -> ModelResult:
                     cluster_time="month" in spec.cluster,
                     group_debias=True,
                 )
-            elif spec.covariance == "kernel":
+            elif spec.covariance == "bartlett":
                 lags_used = _check_lags(spec, months)
                 fit_kwargs.update(cov_type="kernel", kernel="bartlett", bandwidth=float(lags_used))
             else:
-                fit_kwargs.update(cov_type=spec.covariance)
+                fit_kwargs.update(cov_type=_LIBRARY_COVARIANCE[spec.covariance])
             res = model.fit(**fit_kwargs)
             n_months = months
             r2 = float(res.rsquared)
