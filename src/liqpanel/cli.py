@@ -11,8 +11,11 @@
 from __future__ import annotations
 
 import argparse
+import os
+import signal
 import subprocess
 import sys
+import threading
 from pathlib import Path
 
 from liqpanel.errors import LiqpanelError
@@ -49,20 +52,81 @@ def _measures(args: argparse.Namespace) -> int:
     return 0
 
 
-def _check_config(args: argparse.Namespace) -> int:
-    from liqpanel.config import load_config
+def _preflight(path: str) -> dict:
+    """Check the config and its inputs; print every problem and stop (exit 2) when there is one."""
+    from liqpanel.config import read_config
+    from liqpanel.preflight import errors, preflight, report_lines
 
-    load_config(args.config)
+    raw = read_config(path)
+    problems = preflight(raw, source=str(path))
+    for line in report_lines(problems):
+        print(line, file=sys.stderr)
+    if errors(problems):
+        raise SystemExit(2)
+    return raw
+
+
+def _check_config(args: argparse.Namespace) -> int:
+    _preflight(args.config)
     print(f"{args.config}: valid")
     return 0
 
 
-def _snakemake(args: argparse.Namespace, extra: list[str], target: str) -> int:
+STOPPED = "liqpanel: stopped; run the same command again to resume"
+
+
+def _snakemake(args: argparse.Namespace, extra: list[str], target: str, checked: dict) -> int:
+    from liqpanel.runtime import CHECKED_ENV, config_digest
+
     cmd = [
         sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
         "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", target,
     ]
-    return subprocess.call(cmd)
+    env = {**os.environ, CHECKED_ENV: config_digest(checked)}  # the workflow need not check the same config again
+    # Snakemake runs in a session of its own so that Ctrl-C reaches this process alone: it is passed on once,
+    # and what Snakemake prints while it stops (its jobs' tracebacks included) is not shown
+    child = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE, start_new_session=True)
+    muted = threading.Event()
+    relay = threading.Thread(target=_relay, args=(child.stderr, muted), daemon=True)
+    relay.start()
+    try:
+        code = _wait(child)
+    except KeyboardInterrupt:
+        muted.set()
+        child.send_signal(signal.SIGINT)
+        while child.poll() is None:
+            try:
+                child.wait()
+            except KeyboardInterrupt:
+                continue  # a second Ctrl-C: Snakemake is already stopping
+        relay.join(timeout=5)
+        raise
+    relay.join()
+    return code
+
+
+def _wait(child: subprocess.Popen) -> int:
+    """Wait for ``child`` in short steps: Ctrl-C may reach another of our threads (the table engine's),
+    and only a waiting that wakes up lets the main thread see it."""
+    while True:
+        try:
+            return child.wait(timeout=0.2)
+        except subprocess.TimeoutExpired:
+            continue
+
+
+def _relay(stream, muted: threading.Event) -> None:
+    """Copy Snakemake's messages to our standard error as they come, until muted."""
+    signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})  # Ctrl-C interrupts the main thread's wait
+    out = sys.stderr.buffer if hasattr(sys.stderr, "buffer") else None
+    for chunk in iter(lambda: stream.read1(65536), b""):
+        if muted.is_set():
+            continue
+        if out is not None:
+            out.write(chunk)
+            out.flush()
+        else:
+            sys.stderr.write(chunk.decode(errors="replace"))
 
 
 def _check_tables(args: argparse.Namespace) -> int:
@@ -76,18 +140,17 @@ def _check_tables(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace, extra: list[str]) -> int:
-    from liqpanel.config import load_config
-
-    load_config(args.config)  # fail fast with a clear message
-    return _snakemake(args, extra, "all")
+    raw = _preflight(args.config)  # every problem at once, before any work
+    return _snakemake(args, extra, "all", raw)
 
 
 def _study(args: argparse.Namespace, extra: list[str]) -> int:
     from liqpanel.config import load_config
     from liqpanel.report import run_id
 
+    raw = _preflight(args.config)
     config = load_config(args.config)
-    code = _snakemake(args, extra, "study_results")
+    code = _snakemake(args, extra, "study_results", raw)
     if code == 0:
         folder = Path(config["run"]["results_dir"]) / f"study-{run_id(config)}"
         print(f"study results: {folder}")
@@ -157,6 +220,11 @@ def main(argv: list[str] | None = None) -> int:
     except LiqpanelError as exc:
         print(f"liqpanel: {exc}", file=sys.stderr)
         return 2
+    except SystemExit as exc:
+        return exc.code if isinstance(exc.code, int) else 2
+    except KeyboardInterrupt:
+        print(STOPPED, file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":

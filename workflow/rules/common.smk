@@ -1,4 +1,4 @@
-# Validate the config, fix the run-id and the month partitions.
+# Check the config and its inputs (every problem at once), fix the run-id and the month partitions.
 import shlex
 import sys
 
@@ -14,6 +14,15 @@ try:
     # of what makes the tables identical on every machine (liqpanel.runtime)
     runtime.pin_engine_threads(config)
     INTERRUPTED = runtime.clear_stale_lock()
+
+    if not runtime.already_checked(config):  # `liqpanel run` has checked it already
+        from liqpanel.preflight import errors, preflight, report_lines
+
+        PROBLEMS = preflight(config, source="config")
+        for line in report_lines(PROBLEMS):
+            sys.stderr.write(line + "\n")
+        if errors(PROBLEMS):
+            sys.exit(2)
 
     from liqpanel import stages
     from liqpanel.config import validate_config
@@ -61,16 +70,22 @@ def previous_partition(path):
     return previous
 
 
+HELD = []  # marker files keeping the user's own folders in place (liqpanel.runtime.hold_folders)
+
+
 onstart:
     runtime.claim_lock()
+    HELD.extend(runtime.hold_folders(RESULTS, WORK))
     runtime.stamp_work_folder(WORK, CONFIG["run"]["engine_threads"])
 
 
 onsuccess:
+    runtime.release_folders(HELD)
     runtime.release_lock()
 
 
 onerror:
+    runtime.release_folders(HELD)
     runtime.release_lock()
 
 

@@ -1,0 +1,660 @@
+"""Checks a run's config and inputs before any work starts, listing every problem.
+
+``preflight(config)`` runs on the config as written (before defaults are
+filled) and returns a list of :class:`Problem`: every schema error, every
+input file that is missing or does not open, every mapped column the file
+lacks, every column a table needs and will not have, dates that do not parse
+on a sample of rows, a market profile that does not exist, measures whose
+daily columns the inputs cannot provide, model and sort variables the panel
+will not hold, measure options of the wrong type, results and work folders
+that cannot be written. A sample window the data does not cover gives a
+warning (``Problem.level == "warning"``), not an error.
+
+It is cheap: files are opened for their header only (the Parquet schema, the
+first line of a CSV); dates are parsed on the first rows; the date range
+comes from Parquet statistics or a scan of the date column alone. Nothing is
+created or deleted: a folder is tested by writing and removing a temporary
+file in it (or, when it does not exist yet, in its nearest existing parent).
+
+Checks of one input file are the functions in :data:`FILE_CHECKS`, each
+``check(source: InputSource) -> list[Problem]``; :func:`check_date_sample`
+is the one that parses dates on a sample.
+"""
+
+from __future__ import annotations
+
+import copy
+import gzip
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+import jsonschema
+
+from liqpanel.errors import LiqpanelError
+
+SAMPLE_ROWS = 1000  # rows whose dates are parsed by the date-sample check
+
+# our columns each input table needs (a timestamp is checked on its own: ts, or date and time)
+REQUIRED: dict[str, tuple[str, ...]] = {
+    "trades": ("security", "price", "size"),
+    "quotes": ("security", "bid", "ask"),
+    "daily": ("security", "date", "open", "high", "low", "close", "volume"),
+    "returns": ("security", "month", "ret"),
+    "factors": ("month",),
+    "adjustments": ("security", "date"),
+    "truth": ("security", "month"),
+}
+# the column of each input that holds its dates
+DATE_COLUMN = {"trades": "date", "quotes": "date", "daily": "date", "returns": "month", "factors": "month",
+               "adjustments": "date", "truth": "month"}
+# the daily columns the workflow adds whatever the source
+DERIVED_DAILY = {"month", "dollar_volume", "n_trades", "ret", "mkt_ret", "from_previous_month"}
+PANEL_KEYS = {"security", "month", "n_days", "ret_next"}
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong: where (a file or a config key), what, and the column concerned."""
+
+    where: str
+    message: str
+    column: str | None = None
+    level: str = "error"
+
+    def __str__(self) -> str:
+        prefix = "warning: " if self.level == "warning" else ""
+        return f"{prefix}{self.where}: {self.message}"
+
+
+@dataclass
+class InputSource:
+    """One input as the config names it: its key, files, mapping and formats."""
+
+    key: str  # trades, quotes, daily, ... or characteristics[<name>]
+    table: str  # which table contract: trades, quotes, daily, returns, factors, adjustments, truth, characteristics
+    path: str
+    mapping: dict[str, str] = field(default_factory=dict)
+    formats: dict[str, Any] = field(default_factory=dict)
+    config_key: str = ""  # where the mapping lives, e.g. columns.daily
+    date_column: str | None = None
+    required: tuple[str, ...] = ()
+    files: list[str] = field(default_factory=list)
+    headers: dict[str, list[str]] = field(default_factory=dict)  # file -> the user's column names
+
+    def ours(self, theirs: str) -> str:
+        return self.mapping.get(theirs, theirs)
+
+    def theirs(self, ours: str) -> str:
+        """The user's name of our column ``ours`` (itself when not mapped)."""
+        for user, our in self.mapping.items():
+            if our == ours:
+                return user
+        return ours
+
+    def named(self, ours: str) -> str:
+        """The user's column name with ours in parentheses when they differ."""
+        user = self.theirs(ours)
+        return f"'{user}'" if user == ours else f"'{user}' ({ours})"
+
+
+# ---------------------------------------------------------------- files
+
+
+def _is_parquet(path: str) -> bool:
+    return path.lower().endswith((".parquet", ".pq"))
+
+
+def _is_csv(path: str) -> bool:
+    return path.lower().endswith((".csv", ".csv.gz", ".csv.zst", ".txt", ".txt.gz"))
+
+
+def _first_line(path: str) -> str:
+    lower = path.lower()
+    if lower.endswith(".gz"):
+        with gzip.open(path, "rt", encoding="utf-8", errors="replace", newline="") as fh:
+            return fh.readline()
+    if lower.endswith(".zst"):
+        import polars as pl
+
+        frame = pl.read_csv(path, n_rows=0, has_header=False, infer_schema_length=0)
+        return ",".join(str(v) for v in frame.columns)
+    with open(path, encoding="utf-8", errors="replace", newline="") as fh:
+        return fh.readline()
+
+
+def read_header(path: str, separator: str = ",") -> list[str]:
+    """The column names of a Parquet or CSV file, reading only its schema or first line.
+
+    Raises LiqpanelError (with the reason) when the file does not open.
+    """
+    if _is_parquet(path):
+        import pyarrow.parquet as pq
+
+        try:
+            return list(pq.read_schema(path).names)
+        except Exception as exc:  # pyarrow raises several kinds for a damaged file
+            raise LiqpanelError(f"does not open as Parquet: {str(exc).splitlines()[0]}") from None
+    if _is_csv(path):
+        if os.path.getsize(path) == 0:
+            raise LiqpanelError("the file is empty; expected a header row naming the columns")
+        try:
+            line = _first_line(path)
+        except (OSError, EOFError, UnicodeError) as exc:
+            raise LiqpanelError(f"does not open as CSV: {exc}") from None
+        line = line.rstrip("\r\n")
+        if not line.strip():
+            raise LiqpanelError("the first line is empty; expected a header row naming the columns")
+        return [name.strip().strip('"') for name in line.split(separator)]
+    raise LiqpanelError("unsupported file type; expected .parquet, .pq, .csv, .csv.gz, .csv.zst, .txt or .txt.gz")
+
+
+def _files(path: str) -> list[str]:
+    import glob
+
+    files = sorted(glob.glob(path)) if any(ch in path for ch in "*?[") else [path]
+    return [f for f in files if os.path.isfile(f)]
+
+
+def check_files(source: InputSource) -> list[Problem]:
+    """Every file exists and opens; remembers each file's header."""
+    source.files = _files(source.path)
+    if not source.files:
+        what = "no file matches the pattern" if any(ch in source.path for ch in "*?[") else "no such file"
+        return [Problem(source.path, f"{what} (inputs.{source.key} in the config)")]
+    problems = []
+    for file in source.files:
+        try:
+            source.headers[file] = read_header(file, source.formats.get("separator") or ",")
+        except LiqpanelError as exc:
+            problems.append(Problem(file, str(exc)))
+    return problems
+
+
+def check_mapped_columns(source: InputSource) -> list[Problem]:
+    """Every user column named in the mapping is in the file."""
+    problems = []
+    for file, names in source.headers.items():
+        for theirs, ours in source.mapping.items():
+            if theirs not in names:
+                problems.append(Problem(
+                    file, f"{source.config_key} maps column '{theirs}' (to our '{ours}') but the file has no such "
+                    f"column; its columns are {names}", column=theirs,
+                ))
+    return problems
+
+
+def check_required_columns(source: InputSource) -> list[Problem]:
+    """Every column the table needs will exist after the mapping."""
+    problems = []
+    for file, names in source.headers.items():
+        have = {source.ours(n) for n in names}
+        needed = list(source.required)
+        if source.table in ("trades", "quotes") and "ts" not in have:
+            needed += ["date", "time"]
+        if source.table == "adjustments" and not have & {"split_ratio", "dividend"}:
+            needed.append("split_ratio' or 'dividend")
+        for column in needed:
+            if column not in have:
+                problems.append(Problem(
+                    file, f"the {source.table} table needs a column '{column}' but the file has {names}; "
+                    f"map yours to it under {source.config_key}", column=column,
+                ))
+    return problems
+
+
+def _date_expr(dtype, fmt: str | None, table: str):
+    """(parsed date, what was expected) for a date column of type ``dtype``."""
+    import polars as pl
+
+    raw = pl.col("_date")
+    if dtype == pl.Date:
+        return raw, "a date"
+    if isinstance(dtype, pl.Datetime):
+        return raw.dt.date(), "a date"
+    text = raw.cast(pl.String).str.strip_chars()
+    if fmt:
+        return text.str.to_date(fmt, strict=False), f"a date as {fmt}"
+    if table in ("trades", "quotes", "adjustments"):  # liqpanel.readers accepts both
+        return pl.coalesce(text.str.to_date("%Y-%m-%d", strict=False), text.str.to_date("%Y%m%d", strict=False)), \
+            "a date as YYYY-MM-DD or YYYYMMDD"
+    if dtype.is_integer():
+        return text.str.to_date("%Y%m%d", strict=False), "a date as YYYYMMDD"
+    return text.str.slice(0, 10).str.to_date("%Y-%m-%d", strict=False), "a date as YYYY-MM-DD"
+
+
+def _sample(file: str, column: str, separator: str, rows: int):
+    import polars as pl
+
+    if _is_parquet(file):
+        return pl.scan_parquet(file).select(pl.col(column).alias("_date")).head(rows).collect()
+    return pl.read_csv(file, columns=[column], n_rows=rows, separator=separator, infer_schema_length=rows,
+                       try_parse_dates=False).rename({column: "_date"})
+
+
+def check_date_sample(source: InputSource) -> list[Problem]:
+    """The date column parses on the first rows of every file (dates as today's readers accept them)."""
+    import polars as pl
+
+    ours = source.date_column
+    if ours is None:
+        return []
+    problems = []
+    for file, names in source.headers.items():
+        have = {source.ours(n): n for n in names}
+        if ours not in have:
+            continue  # named by check_required_columns (or the file's timestamp is one 'ts' column)
+        theirs = have[ours]
+        try:
+            frame = _sample(file, theirs, source.formats.get("separator") or ",", SAMPLE_ROWS)
+        except (pl.exceptions.PolarsError, OSError) as exc:
+            problems.append(Problem(file, f"cannot read column '{theirs}': {str(exc).splitlines()[0]}", column=theirs))
+            continue
+        parsed, expected = _date_expr(frame.schema["_date"], source.formats.get("date_format"), source.table)
+        checked = frame.with_row_index("_row").with_columns(parsed.alias("_parsed"))
+        bad = checked.filter(pl.col("_date").is_not_null() & pl.col("_parsed").is_null())
+        if bad.height:
+            row, value = bad["_row"][0] + 1, bad["_date"][0]
+            where = f"data row {row} (line {row + 1})" if not _is_parquet(file) else f"row {row}"
+            problems.append(Problem(
+                file, f"{where}: column {source.named(ours)} has {str(value)!r}, expected {expected} "
+                f"({bad.height} of the first {frame.height} rows do not parse)", column=theirs,
+            ))
+    return problems
+
+
+# The checks run on every input file, in order. The date-sample check is one entry.
+FILE_CHECKS: list[Callable[[InputSource], list[Problem]]] = [
+    check_mapped_columns,
+    check_required_columns,
+    check_date_sample,
+]
+
+
+# ---------------------------------------------------------------- config
+
+
+def schema_problems(config: Any, source: str) -> list[Problem]:
+    """Every place the config breaks the schema (not only the first)."""
+    from liqpanel.config import _message, load_schema
+
+    if not isinstance(config, dict):
+        return [Problem(source, "the config must be a mapping of keys to values")]
+    validator = jsonschema.Draft202012Validator(load_schema())
+    errors = sorted(validator.iter_errors(config), key=lambda e: list(map(str, e.absolute_path)))
+    return [Problem(source, _message(e)) for e in errors]
+
+
+def input_sources(config: dict) -> list[InputSource]:
+    """Every input the config names, with its mapping and formats."""
+    inputs = config.get("inputs") or {}
+    columns = config.get("columns") or {}
+    formats = config.get("formats") or {}
+    sources = []
+    for key in ("trades", "quotes", "daily", "returns", "factors", "adjustments", "truth"):
+        path = inputs.get(key)
+        if isinstance(path, str) and path:
+            sources.append(InputSource(
+                key=key, table=key, path=path, mapping=dict(columns.get(key) or {}),
+                formats=dict(formats.get(key) or {}), config_key=f"columns.{key}", date_column=DATE_COLUMN[key],
+                required=REQUIRED[key],
+            ))
+    for index, entry in enumerate(inputs.get("characteristics") or []):
+        if not isinstance(entry, dict) or not isinstance(entry.get("path"), str):
+            continue
+        name = entry.get("name", index)
+        date_column = entry.get("date_column", "date")
+        variables = [v for v in entry.get("variables") or [] if isinstance(v, str)]
+        sources.append(InputSource(
+            key=f"characteristics[{name}]", table="characteristics", path=entry["path"],
+            mapping=dict(entry.get("columns") or {}), formats=dict(entry.get("format") or {}),
+            config_key=f"inputs.characteristics[{name}].columns", date_column=date_column,
+            required=("security", date_column, *variables),
+        ))
+    return sources
+
+
+def _type_name(default: Any) -> str:
+    return {bool: "true or false", int: "a whole number", float: "a number", str: "text", dict: "a mapping",
+            list: "a list"}.get(type(default), type(default).__name__)
+
+
+def _fits(value: Any, default: Any) -> bool:
+    if default is None:
+        return True
+    if isinstance(default, bool):
+        return isinstance(value, bool)
+    if isinstance(default, int):
+        return isinstance(value, int) and not isinstance(value, bool)
+    if isinstance(default, float):
+        return isinstance(value, (int, float)) and not isinstance(value, bool)
+    return isinstance(value, type(default))
+
+
+def measure_problems(config: dict) -> list[Problem]:
+    """Unknown measures and options, and option values of the wrong type."""
+    from liqpanel.measures import REGISTRY
+
+    problems = []
+    for name, options in (config.get("measures") or {}).items():
+        if name not in REGISTRY:
+            problems.append(Problem(f"measures.{name}", f"unknown measure '{name}'; valid names are: "
+                                    f"{', '.join(sorted(REGISTRY))}"))
+            continue
+        measure = REGISTRY[name]
+        if not isinstance(options, dict):
+            continue  # null: the defaults (anything else is a schema error)
+        for option, value in options.items():
+            where = f"measures.{name}.{option}"
+            if option == "min_days":
+                if not isinstance(value, int) or isinstance(value, bool) or value < 1:
+                    problems.append(Problem(where, f"measure '{name}' option 'min_days' is {value!r}; expected a "
+                                            "whole number of days, 1 or more"))
+            elif option not in measure.options:
+                known = ", ".join(sorted({*measure.options, "min_days"}))
+                problems.append(Problem(where, f"measure '{name}' has no option '{option}'; its options are: {known}"))
+            elif not _fits(value, measure.options[option]):
+                default = measure.options[option]
+                problems.append(Problem(where, f"measure '{name}' option '{option}' is {value!r}; expected "
+                                        f"{_type_name(default)} (default {default!r})"))
+    return problems
+
+
+def daily_columns(config: dict, sources: list[InputSource]) -> tuple[set[str], str]:
+    """The columns the daily table will have, and where they come from (for messages)."""
+    from liqpanel.contracts import DAILY
+    from liqpanel.intraday import daily_columns as intraday_columns
+
+    inputs = config.get("inputs") or {}
+    if inputs.get("daily"):
+        daily = next((s for s in sources if s.key == "daily"), None)
+        names = set(DAILY) | DERIVED_DAILY
+        if daily is not None:
+            for header in daily.headers.values():
+                names |= {daily.ours(n) for n in header}
+        return names, f"the daily file {inputs['daily']}"
+    names = set(DAILY) | DERIVED_DAILY
+    if inputs.get("quotes"):
+        names |= set(intraday_columns())
+    else:
+        names |= {"realized_variance", "realized_variance_returns", "n_quoted", "n_signed"}
+    return names, "trades without quotes" if not inputs.get("quotes") else "trades and quotes"
+
+
+def measure_input_problems(config: dict, sources: list[InputSource]) -> list[Problem]:
+    """Every selected measure will find its daily columns."""
+    from liqpanel.measures import REGISTRY
+
+    available, origin = daily_columns(config, sources)
+    problems = []
+    for name in config.get("measures") or {}:
+        if name not in REGISTRY:
+            continue
+        missing = [c for c in REGISTRY[name].columns if c not in available]
+        if missing:
+            hint = "; map a column of the daily file to it under columns.daily or drop the measure"
+            if not (config.get("inputs") or {}).get("daily"):
+                hint = "; add `inputs: quotes:` or drop the measure"
+            if "shares_out" in missing:
+                hint = "; supply shares outstanding as a daily-file column mapped to 'shares_out' under columns.daily"
+            problems.append(Problem(f"measures.{name}", f"measure '{name}' needs daily column(s) {missing}, which "
+                                    f"{origin} will not provide{hint}", column=missing[0]))
+    return problems
+
+
+def panel_variables(config: dict) -> set[str]:
+    """The columns the panel will hold: measures' outputs, characteristics, transforms, returns."""
+    from liqpanel.measures import REGISTRY
+
+    names = set(PANEL_KEYS)
+    for name in config.get("measures") or {}:
+        if name in REGISTRY:
+            names |= set(REGISTRY[name].outputs) | {f"{name}_n", f"{name}_reason"}
+    for entry in (config.get("inputs") or {}).get("characteristics") or []:
+        if isinstance(entry, dict):
+            names |= {v for v in entry.get("variables") or [] if isinstance(v, str)}
+    return names
+
+
+def _names(value: Any) -> list[str]:
+    if isinstance(value, str):
+        return [value]
+    return [v for v in value if isinstance(v, str)] if isinstance(value, list) else []
+
+
+def panel_problems(config: dict) -> list[Problem]:
+    """Transforms, regressions, sorts, the factor and the proxy check use only columns that will exist."""
+    from liqpanel.measures import REGISTRY
+
+    names = panel_variables(config)
+    problems = []
+
+    def need(where: str, variables: list[str], what: str) -> None:
+        for v in variables:
+            if v not in names:
+                problems.append(Problem(where, f"{what} '{v}', which no input provides; the panel will hold "
+                                        f"{sorted(n for n in names - {'month', 'security'} if not n.endswith(('_n', '_reason')))}",
+                                        column=v))
+
+    panel = config.get("panel") or {}
+    logs = _names(panel.get("log") or [])
+    need("panel.log", logs, "takes the log of")
+    names |= {f"log_{v}" for v in logs}
+    need("panel.winsorize.variables", _names((panel.get("winsorize") or {}).get("variables") or []), "clips")
+    need("panel.standardize", _names(panel.get("standardize") or []), "standardizes")
+
+    models = config.get("models") or {}
+    for i, model in enumerate(models.get("regressions") or []):
+        if not isinstance(model, dict):
+            continue
+        where = f"models.regressions[{model.get('name', i)}]"
+        need(where, _names(model.get("regressors") or []), "uses the regressor")
+        need(where, _names(model.get("dependent") or []), "uses the dependent variable")
+    for i, sort in enumerate(models.get("sorts") or []):
+        if not isinstance(sort, dict):
+            continue
+        where = f"models.sorts[{sort.get('name', i)}]"
+        need(where, _names(sort.get("variable")), "sorts on")
+        need(where, _names(sort.get("within")), "sorts first on")
+        need(where, _names(sort.get("characteristics") or []), "reports the characteristic")
+        need(where, _names(sort.get("breakpoint_universe")), "sets breakpoints with")
+        weight = sort.get("weight")
+        if weight == "value":
+            need(where, ["market_cap"], "is value-weighted (weight: value), which needs the column")
+        elif isinstance(weight, str) and weight != "equal":
+            need(where, [weight], "weights by")
+    factor = models.get("factor")
+    if isinstance(factor, dict):
+        need("models.factor", _names(factor.get("measure")), "is built on")
+        need("models.factor", _names(factor.get("size", "log_size")), "forms size groups on")
+        weight = factor.get("weight")
+        if weight == "value":
+            need("models.factor", ["market_cap"], "is value-weighted (weight: value), which needs the column")
+        elif isinstance(weight, str) and weight != "equal":
+            need("models.factor", [weight], "weights by")
+    validation = models.get("validation")
+    if isinstance(validation, dict):
+        monthly = {o for n in config.get("measures") or {} if n in REGISTRY for o in REGISTRY[n].outputs}
+        for key in ("benchmark", "proxies"):
+            for v in _names(validation.get(key)):
+                if v not in monthly:
+                    problems.append(Problem(f"models.validation.{key}", f"names '{v}', which no selected measure "
+                                            f"computes; the monthly table will hold {sorted(monthly)}", column=v))
+    return problems
+
+
+def study_problems(config: dict) -> list[Problem]:
+    from liqpanel.study import check_settings
+
+    try:
+        check_settings(config.get("study"))
+    except LiqpanelError as exc:
+        return [Problem("study", str(exc))]
+    return []
+
+
+def market_problems(config: dict) -> list[Problem]:
+    from liqpanel.config import load_market
+
+    if not isinstance(config.get("market"), str):
+        return []
+    try:
+        load_market(config["market"])
+    except LiqpanelError as exc:
+        return [Problem("market", str(exc))]
+    return []
+
+
+def folder_problems(config: dict) -> list[Problem]:
+    """The results and work folders can be written; nothing is created or deleted to find out."""
+    run = config.get("run") or {}
+    problems = []
+    for key, default in (("results_dir", "results"), ("work_dir", "work")):
+        folder = run.get(key, default)
+        if not isinstance(folder, str):
+            continue
+        problem = writable_problem(Path(folder))
+        if problem:
+            problems.append(Problem(f"run.{key}", f"{folder}: {problem}"))
+    return problems
+
+
+def writable_problem(folder: Path) -> str | None:
+    """Why files cannot be written in ``folder`` (None when they can).
+
+    Writes and removes one temporary file in the folder, or in its nearest
+    existing parent when the folder does not exist yet.
+    """
+    probe = folder
+    while not probe.exists():
+        if probe.parent == probe:
+            break
+        probe = probe.parent
+    if probe.exists() and not probe.is_dir():
+        return f"{probe} is a file, not a folder"
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=".liqpanel-write-test.", dir=probe)
+    except OSError as exc:
+        return f"cannot write in {probe}: {exc.strerror or exc}"
+    os.close(fd)
+    os.unlink(tmp)
+    return None
+
+
+# ---------------------------------------------------------------- dates covered
+
+
+def date_range(source: InputSource):
+    """(first, last) date of an input's files, or None when unknown.
+
+    Parquet: the row-group statistics; CSV: a scan of the date column alone.
+    """
+    import polars as pl
+
+    ours = source.date_column
+    if ours is None:
+        return None
+    lows, highs = [], []
+    for file, names in source.headers.items():
+        have = {source.ours(n): n for n in names}
+        if ours not in have:
+            return None
+        theirs = have[ours]
+        if _is_parquet(file):
+            lf = pl.scan_parquet(file).select(pl.col(theirs).alias("_date"))
+        else:
+            lf = pl.scan_csv(file, separator=source.formats.get("separator") or ",", try_parse_dates=False,
+                             infer_schema_length=SAMPLE_ROWS).select(pl.col(theirs).alias("_date"))
+        try:
+            dtype = lf.collect_schema()["_date"]
+            parsed, _ = _date_expr(dtype, source.formats.get("date_format"), source.table)
+            row = lf.select(parsed.min().alias("lo"), parsed.max().alias("hi")).collect().row(0)
+        except pl.exceptions.PolarsError:
+            return None
+        if row[0] is None:
+            return None
+        lows.append(row[0])
+        highs.append(row[1])
+    return (min(lows), max(highs)) if lows else None
+
+
+def window_warnings(config: dict, sources: list[InputSource]) -> list[Problem]:
+    """Warn when the data of trades, quotes, the daily file or returns does not cover the sample."""
+    sample = config.get("sample") or {}
+    start, end = sample.get("start"), sample.get("end")
+    if not (isinstance(start, str) and isinstance(end, str)):
+        return []
+    warnings = []
+    for source in sources:
+        if source.key not in ("trades", "quotes", "daily", "returns"):
+            continue
+        span = date_range(source)
+        if span is None:
+            continue
+        first, last = span[0].strftime("%Y-%m"), span[1].strftime("%Y-%m")
+        if first > start or last < end:
+            warnings.append(Problem(
+                source.path, f"its dates run from {span[0]} to {span[1]} but the sample is {start} to {end}; "
+                "months outside the data will have no estimates", column=source.theirs(source.date_column),
+                level="warning",
+            ))
+    return warnings
+
+
+# ---------------------------------------------------------------- all together
+
+
+def preflight(config: Any, *, source: str = "config") -> list[Problem]:
+    """Every problem of ``config`` (as written) and its inputs; warnings have ``level == "warning"``."""
+    from liqpanel.config import _fill_defaults, load_schema
+
+    problems = schema_problems(config, source)
+    if not isinstance(config, dict):
+        return problems
+    config = _fill_defaults(copy.deepcopy(config), load_schema())
+    sources = input_sources(config)
+    for input_source in sources:
+        opened = check_files(input_source)
+        problems += opened
+        for check in FILE_CHECKS:
+            problems += check(input_source)
+    steps = [market_problems, measure_problems, panel_problems, study_problems, folder_problems,
+             lambda c: measure_input_problems(c, sources)]
+    broken = bool(problems)
+    for step in steps:
+        try:
+            problems += step(config)
+        except Exception:
+            if not broken:  # a config that passes the schema must not break a check
+                raise
+    if not [p for p in problems if p.level == "error"]:
+        problems += window_warnings(config, sources)
+    return _unique(problems)
+
+
+def _unique(problems: list[Problem]) -> list[Problem]:
+    seen, out = set(), []
+    for p in problems:
+        if (p.where, p.message) not in seen:
+            seen.add((p.where, p.message))
+            out.append(p)
+    return out
+
+
+def errors(problems: list[Problem]) -> list[Problem]:
+    return [p for p in problems if p.level == "error"]
+
+
+def warnings(problems: list[Problem]) -> list[Problem]:
+    return [p for p in problems if p.level == "warning"]
+
+
+def report_lines(problems: list[Problem]) -> list[str]:
+    """The lines printed for ``problems``: errors first, then warnings, each prefixed by the program's name."""
+    errs = errors(problems)
+    lines = [f"liqpanel: {p}" for p in errs + warnings(problems)]
+    if errs:
+        lines.append(f"liqpanel: {len(errs)} problem{'s' if len(errs) != 1 else ''} found; nothing was run")
+    return lines
