@@ -80,6 +80,7 @@ class InputSource:
     formats: dict[str, Any] = field(default_factory=dict)
     config_key: str = ""  # where the mapping lives, e.g. columns.daily
     date_column: str | None = None
+    timezone: str = "UTC"  # the market's, for timestamps without an offset
     required: tuple[str, ...] = ()
     files: list[str] = field(default_factory=list)
     headers: dict[str, list[str]] = field(default_factory=dict)  # file -> the user's column names
@@ -244,6 +245,9 @@ def check_date_sample(source: InputSource) -> list[Problem]:
     problems = []
     for file, names in source.headers.items():
         have = {source.ours(n): n for n in names}
+        if source.table in ("trades", "quotes") and ("ts" in have or "time" in have):
+            problems += _timestamp_sample(source, file, have)
+            continue
         if ours not in have:
             continue  # named by check_required_columns (or the file's timestamp is one 'ts' column)
         theirs = have[ours]
@@ -263,6 +267,38 @@ def check_date_sample(source: InputSource) -> list[Problem]:
                 f"({bad.height} of the first {frame.height} rows do not parse)", column=theirs,
             ))
     return problems
+
+
+def _timestamp_sample(source: InputSource, file: str, have: dict[str, str]) -> list[Problem]:
+    """Trades and quotes: the timestamp (``ts``, or ``date`` and ``time``) parses on the first rows."""
+    import polars as pl
+
+    from liqpanel.readers import _timestamp
+
+    columns = [c for c in ("ts", "date", "time") if c in have]
+    if "ts" not in columns and len(columns) < 2:
+        return []  # named by check_required_columns
+    if _is_parquet(file):
+        frame = pl.scan_parquet(file).select([have[c] for c in columns]).head(SAMPLE_ROWS).collect()
+    else:
+        frame = pl.read_csv(file, columns=[have[c] for c in columns], n_rows=SAMPLE_ROWS, try_parse_dates=False,
+                            separator=source.formats.get("separator") or ",", infer_schema_length=SAMPLE_ROWS)
+    frame = frame.rename({have[c]: c for c in columns})
+    try:
+        ts, bad, raw, _ = _timestamp(frame.schema, source.timezone, file)
+    except LiqpanelError as exc:
+        return [Problem(file, str(exc), column=have[columns[0]])]
+    checked = frame.with_row_index("_row").select("_row", raw.cast(pl.String).alias("_raw"),
+                                                 (bad | (raw.is_not_null() & ts.is_null())).alias("_bad"))
+    bad_rows = checked.filter(pl.col("_bad"))
+    if not bad_rows.height:
+        return []
+    row, value = bad_rows["_row"][0] + 1, bad_rows["_raw"][0]
+    where = f"data row {row} (line {row + 1})" if not _is_parquet(file) else f"row {row}"
+    named = source.named("ts") if "ts" in columns else f"{source.named('date')} and {source.named('time')}"
+    return [Problem(file, f"{where}: column {named} has {value!r}, expected a timestamp, all with or all without "
+                    f"a zone ({bad_rows.height} of the first {frame.height} rows do not parse)",
+                    column=have[columns[0]])]
 
 
 # The checks run on every input file, in order. The date-sample check is one entry.
@@ -292,6 +328,14 @@ def input_sources(config: dict) -> list[InputSource]:
     inputs = config.get("inputs") or {}
     columns = config.get("columns") or {}
     formats = config.get("formats") or {}
+    timezone = "UTC"
+    if isinstance(config.get("market"), str):
+        from liqpanel.config import load_market
+
+        try:
+            timezone = load_market(config["market"])["timezone"]
+        except LiqpanelError:
+            pass  # named by market_problems
     sources = []
     for key in ("trades", "quotes", "daily", "returns", "factors", "adjustments", "truth"):
         path = inputs.get(key)
@@ -299,7 +343,7 @@ def input_sources(config: dict) -> list[InputSource]:
             sources.append(InputSource(
                 key=key, table=key, path=path, mapping=dict(columns.get(key) or {}),
                 formats=dict(formats.get(key) or {}), config_key=f"columns.{key}", date_column=DATE_COLUMN[key],
-                required=REQUIRED[key],
+                required=REQUIRED[key], timezone=timezone,
             ))
     for index, entry in enumerate(inputs.get("characteristics") or []):
         if not isinstance(entry, dict) or not isinstance(entry.get("path"), str):
