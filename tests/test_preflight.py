@@ -11,6 +11,7 @@ beside it.
 from __future__ import annotations
 
 import gzip
+import re
 import os
 import shutil
 import signal
@@ -142,7 +143,7 @@ def test_mapping_names_a_column_the_file_lacks(tmp_path, capsys):
     config["columns"]["daily"]["Last_Price"] = "close"
     err = check(tmp_path, capsys, config, str(DAILY_FILE), "maps column 'Last_Price' (to our 'close')",
                 "'last_px'")  # the file's own columns are listed
-    assert "needs a column 'close'" in err  # and the consequence, in the same run
+    assert "needs column 'close'" in err  # and the consequence, in the same run
 
 
 def test_results_folder_that_cannot_be_written(tmp_path, capsys):
@@ -191,7 +192,7 @@ def test_turnover_needs_shares_outstanding(tmp_path, capsys):
 def test_daily_file_lacks_a_required_column(tmp_path, capsys):
     config = small_daily(tmp_path, ["AX1,2021-01-04,10,11,9,10.5,100"])
     config["columns"]["daily"].pop("qty")
-    check(tmp_path, capsys, config, "vendor_daily.csv", "needs a column 'volume'", "'qty'")
+    check(tmp_path, capsys, config, "vendor_daily.csv", "needs column 'volume'", "'qty'")
 
 
 def test_validation_benchmark_no_measure_computes(tmp_path, capsys):
@@ -217,7 +218,7 @@ def test_panel_transform_of_an_absent_variable(tmp_path, capsys):
 def test_characteristic_the_file_lacks(tmp_path, capsys):
     config = daily_config(tmp_path)
     config["inputs"]["characteristics"][0]["variables"].append("dividend_yield")
-    check(tmp_path, capsys, config, "characteristics.parquet", "needs a column 'dividend_yield'")
+    check(tmp_path, capsys, config, "characteristics.parquet", "needs column 'dividend_yield'")
 
 
 # ------------------------------------------------------------ files and dates
@@ -261,7 +262,7 @@ def test_returns_file_without_a_return_column(tmp_path, capsys):
     frame.with_columns(pl.col("month").str.to_date()).write_parquet(returns)
     config = daily_config(tmp_path)
     config["inputs"]["returns"] = str(returns)
-    check(tmp_path, capsys, config, f"{returns}", "the returns table needs a column 'ret'", "'total_return'")
+    check(tmp_path, capsys, config, f"{returns}", "the returns table needs column 'ret'", "'total_return'")
 
 
 def test_gzip_csv_header_read_with_the_separator(tmp_path, capsys):
@@ -393,3 +394,54 @@ def test_ctrl_c_stops_with_one_line_and_resumes(tmp_path):
     assert again.returncode == 0, err
     assert (tmp_path / "results" / "latest" / "tables" / "regressions.csv").exists()
     shutil.rmtree(tmp_path / "work")
+
+
+# ------------------------------------------------------------ the starter config for a daily file
+
+
+def _map_suggestions(text: str) -> str:
+    """What a user does with the starter: uncomment every suggested mapping."""
+    return re.sub(r"(?m)^    # ([A-Za-z_]+): +([a-z_]+) +#.*$", r"    \1: \2", text)
+
+
+def test_daily_starter_maps_the_invented_vendor_layout(tmp_path, capsys):
+    out = tmp_path / "my.yaml"
+    assert main(["daily-starter", str(DAILY_FILE), "--out", str(out)]) == 0
+    text = out.read_text()
+    # as written, every mapping is commented: the check names the file's columns and ours it needs
+    assert main(["check-config", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "columns.daily is empty" in err and "'security', 'date', 'open'" in err and "'trade_day'" in err
+    assert "Traceback" not in err
+    # the file's dates: the invented market runs from January 2021 to December 2022 (demo_data/README.md)
+    assert 'start: "2021-01"' in text and 'end: "2022-12"' in text
+    mapped = tmp_path / "mapped.yaml"
+    mapped.write_text(_map_suggestions(text))
+    assert main(["check-config", str(mapped)]) == 0, capsys.readouterr().err
+    # the suggestions are the mapping written by hand for the same layout (config/daily_example.yaml)
+    by_hand = yaml.safe_load((ROOT / "config" / "daily_example.yaml").read_text())["columns"]["daily"]
+    assert yaml.safe_load(mapped.read_text())["columns"]["daily"] == by_hand
+    # only the sections that apply to daily data
+    sections = set(yaml.safe_load(mapped.read_text()))
+    assert sections == {"run", "sample", "market", "inputs", "columns", "measures", "panel", "models"}
+
+
+def test_daily_starter_for_a_file_in_our_names(tmp_path, capsys):
+    daily = tmp_path / "bars.parquet"
+    pl.read_csv(DAILY_FILE).rename({"ticker": "security", "trade_day": "date", "first_px": "open", "top_px": "high",
+                                    "bottom_px": "low", "last_px": "close", "qty": "volume"}).head(400).write_parquet(daily)
+    out = tmp_path / "my.yaml"
+    assert main(["daily-starter", str(daily), "--out", str(out)]) == 0
+    text = out.read_text()
+    assert "# date:" in text and "already our name" in text
+    assert main(["daily-starter", str(daily), "--out", str(out)]) == 2  # an existing file is kept
+    assert "exists already" in capsys.readouterr().err
+    mapped = tmp_path / "mapped.yaml"
+    mapped.write_text(_map_suggestions(text))
+    assert main(["check-config", str(mapped)]) == 0, capsys.readouterr().err
+
+
+def test_daily_starter_for_a_missing_file(tmp_path, capsys):
+    assert main(["daily-starter", str(tmp_path / "none.csv"), "--out", str(tmp_path / "my.yaml")]) == 2
+    err = capsys.readouterr().err
+    assert "none.csv: no such file" in err and not (tmp_path / "my.yaml").exists()

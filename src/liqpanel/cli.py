@@ -2,7 +2,8 @@
 
     liqpanel simulate --securities 40 --months 24 --seed 20240101 --out demo_data
     liqpanel measures                 # list the registered measures and sources
-    liqpanel check-config FILE        # validate a config without running
+    liqpanel check-config FILE        # check a config and its inputs without running
+    liqpanel daily-starter DAILY_FILE --out my.yaml   # a starter config for a daily stock file
     liqpanel run [--config FILE] [--cores N] [snakemake args...]
     liqpanel study [--config FILE] [--cores N] [snakemake args...]   # the estimator study alone
     liqpanel check-tables REFERENCE CANDIDATE   # compare two runs' tables cell by cell
@@ -69,6 +70,14 @@ def _preflight(path: str) -> dict:
 def _check_config(args: argparse.Namespace) -> int:
     _preflight(args.config)
     print(f"{args.config}: valid")
+    return 0
+
+
+def _daily_starter(args: argparse.Namespace) -> int:
+    from liqpanel.starter import write_daily_starter
+
+    out = write_daily_starter(args.daily, args.out, separator=args.separator, force=args.force)
+    print(f"{out}: written; map your columns under columns.daily, then run  liqpanel check-config {out}")
     return 0
 
 
@@ -175,8 +184,19 @@ def main(argv: list[str] | None = None) -> int:
     p = sub.add_parser("measures", help="list the registered measures with their sources")
     p.add_argument("-v", "--verbose", action="store_true")
 
-    p = sub.add_parser("check-config", help="validate a config file")
+    p = sub.add_parser("check-config", help="check a config and its inputs, listing every problem (exit 2 if any)")
     p.add_argument("config")
+
+    p = sub.add_parser(
+        "daily-starter", help="write a starter config for a daily stock file (its columns listed for mapping)",
+        description="Write a config holding only the sections that apply to a daily file: every column of the "
+        "file is listed, commented, under columns.daily with a suggested column of ours. Only the file's header "
+        "and its dates are read.",
+    )
+    p.add_argument("daily", help="the daily file (CSV, .csv.gz or Parquet)")
+    p.add_argument("--out", required=True, help="the config file to write")
+    p.add_argument("--separator", default=",", help="the CSV field separator (default ',')")
+    p.add_argument("--force", action="store_true", help="replace --out when it exists")
 
     p = sub.add_parser("run", help="run the whole workflow (extra options go to snakemake)")
     p.add_argument("--config", default="config/config.yaml")
@@ -212,6 +232,8 @@ def main(argv: list[str] | None = None) -> int:
             return _measures(args)
         if args.command == "check-config":
             return _check_config(args)
+        if args.command == "daily-starter":
+            return _daily_starter(args)
         if args.command == "study":
             return _study(args, extra)
         if args.command == "check-tables":

@@ -197,12 +197,13 @@ def check_required_columns(source: InputSource) -> list[Problem]:
             needed += ["date", "time"]
         if source.table == "adjustments" and not have & {"split_ratio", "dividend"}:
             needed.append("split_ratio' or 'dividend")
-        for column in needed:
-            if column not in have:
-                problems.append(Problem(
-                    file, f"the {source.table} table needs a column '{column}' but the file has {names}; "
-                    f"map yours to it under {source.config_key}", column=column,
-                ))
+        missing = [c for c in needed if c not in have]
+        if missing:
+            listed = ", ".join(f"'{c}'" for c in missing)
+            problems.append(Problem(
+                file, f"the {source.table} table needs column{'s' if len(missing) > 1 else ''} {listed}, which the "
+                f"file lacks; its columns are {names}; map yours under {source.config_key}", column=missing[0],
+            ))
     return problems
 
 
@@ -320,7 +321,16 @@ def schema_problems(config: Any, source: str) -> list[Problem]:
         return [Problem(source, "the config must be a mapping of keys to values")]
     validator = jsonschema.Draft202012Validator(load_schema())
     errors = sorted(validator.iter_errors(config), key=lambda e: list(map(str, e.absolute_path)))
-    return [Problem(source, _message(e)) for e in errors]
+    return [Problem(source, _empty_message(e) or _message(e)) for e in errors]
+
+
+def _empty_message(error: jsonschema.ValidationError) -> str | None:
+    """A key written with nothing after its colon (every line under it commented out, say)."""
+    if error.validator != "type" or error.instance is not None or not error.absolute_path:
+        return None
+    where = ".".join(str(p) for p in error.absolute_path)
+    return f"{where} is empty (nothing after the colon, or every line under it commented out); " \
+        f"expected {error.validator_value}: fill it in or remove the key"
 
 
 def input_sources(config: dict) -> list[InputSource]:
