@@ -359,6 +359,7 @@ def test_plain_snakemake_is_checked_too(tmp_path):
     assert "Traceback" not in done.stderr
 
 
+@pytest.mark.slow
 def test_failed_run_keeps_the_users_empty_results_folder(tmp_path):
     # the first rows parse (the pre-flight sample), a later one does not: the run fails in the daily stage
     good = [f"AX1,2021-01-{d:02d},10,11,9,10.5,100" for d in range(4, 29)]
@@ -374,6 +375,7 @@ def test_failed_run_keeps_the_users_empty_results_folder(tmp_path):
     assert (tmp_path / "results").is_dir() and not any((tmp_path / "results").iterdir())
 
 
+@pytest.mark.slow
 def test_ctrl_c_stops_with_one_line_and_resumes(tmp_path):
     config = daily_config(tmp_path)
     (tmp_path / "results").mkdir()
