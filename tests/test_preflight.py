@@ -231,6 +231,17 @@ def test_date_that_does_not_parse_names_file_column_row_value(tmp_path, capsys):
     check(tmp_path, capsys, config, "vendor_daily.csv", "data row 3 (line 4)", "'trade_day' (date)", "'2021-13-02'")
 
 
+def test_whole_number_dates_are_refused_not_misread(tmp_path, capsys):
+    # 20210104 read as a count of days since 1970-01-01 would be a date some 55,000 years on (ISO 8601 calendar)
+    config = small_daily(tmp_path, [])
+    daily = tmp_path / "vendor_daily.parquet"
+    pl.DataFrame({"ticker": ["AX1"], "trade_day": [20210104], "first_px": [10.0], "top_px": [11.0],
+                  "bottom_px": [9.0], "last_px": [10.5], "qty": [100.0]}).write_parquet(daily)
+    config["inputs"]["daily"] = str(daily)
+    check(tmp_path, capsys, config, "vendor_daily.parquet: row 1: column 'trade_day' (date) has '20210104'",
+          "not a whole number")
+
+
 def test_trade_timestamp_that_does_not_parse(tmp_path, capsys):
     trades = tmp_path / "vendor_trades.csv"
     trades.write_text("SYM,STAMP,PX,QTY\nAX1,2021-01-04 10:00:00,10.0,100\nAX1,noon on monday,10.1,200\n")
@@ -321,6 +332,17 @@ def test_sample_beyond_the_data_is_a_warning(tmp_path, capsys):
     err = capsys.readouterr().err
     # the invented market's daily file starts in January 2021 (demo_data/README.md)
     assert f"warning: {DAILY_FILE}: its dates run from 2021-01-" in err and "sample is 2020-07 to 2022-12" in err
+
+
+def test_trades_beyond_the_sample_are_a_warning(tmp_path, capsys):
+    config = trades_config(tmp_path)
+    config["sample"]["end"] = "2023-03"
+    path = tmp_path / "my.yaml"
+    path.write_text(yaml.safe_dump(config))
+    assert main(["check-config", str(path)]) == 0
+    err = capsys.readouterr().err
+    # the invented market's trades run from 2021-01 to 2022-12, business days (demo_data/README.md)
+    assert f"warning: {ROOT / 'demo_data' / 'trades.parquet'}: its dates run from 2021-01-01 to 2022-12-30" in err
 
 
 def test_valid_configs_pass(tmp_path, capsys):
