@@ -189,6 +189,15 @@ def test_turnover_needs_shares_outstanding(tmp_path, capsys):
     check(tmp_path, capsys, config, "measure 'turnover' needs daily column(s) ['shares_out']", "columns.daily")
 
 
+def test_cleaning_rule_on_a_column_the_trades_lack(tmp_path, capsys):
+    # venue and sale-condition filters (Barndorff-Nielsen, Hansen, Lunde & Shephard 2009, P3 and T2)
+    config = trades_config(tmp_path)
+    config["clean"]["venues"] = ["NORTH"]
+    config["clean"]["conditions"] = {"codes": {"Z9": "drop"}}
+    check(tmp_path, capsys, config, "trades.parquet: clean.venues is set but the trades file has no column 'venue'",
+          "clean.conditions is set", "'cond'")
+
+
 def test_daily_file_lacks_a_required_column(tmp_path, capsys):
     config = small_daily(tmp_path, ["AX1,2021-01-04,10,11,9,10.5,100"])
     config["columns"]["daily"].pop("qty")
@@ -469,3 +478,15 @@ def test_daily_starter_for_a_missing_file(tmp_path, capsys):
     assert main(["daily-starter", str(tmp_path / "none.csv"), "--out", str(tmp_path / "my.yaml")]) == 2
     err = capsys.readouterr().err
     assert "none.csv: no such file" in err and not (tmp_path / "my.yaml").exists()
+
+
+def test_daily_starter_reads_the_header_with_the_separator(tmp_path, capsys):
+    daily = tmp_path / "bars.csv"
+    daily.write_text("sym;day;o;h;l;c;v\nAX1;2021-01-04;10;11;9;10.5;100\nAX1;2021-03-05;10;11;9;10.5;100\n")
+    out = tmp_path / "my.yaml"
+    assert main(["daily-starter", str(daily), "--out", str(out), "--separator", ";"]) == 0
+    mapping = yaml.safe_load(_map_suggestions(out.read_text()))["columns"]["daily"]
+    assert mapping == {"sym": "security", "day": "date", "o": "open", "h": "high", "l": "low", "c": "close",
+                       "v": "volume"}
+    assert 'start: "2021-01"' in out.read_text() and 'end: "2021-03"' in out.read_text()
+    assert 'separator: ";"' in out.read_text()

@@ -458,6 +458,33 @@ def measure_input_problems(config: dict, sources: list[InputSource]) -> list[Pro
     return problems
 
 
+# cleaning rules that read a column of the trade file: (setting under clean:, our column, what it holds)
+CLEAN_COLUMNS = (
+    ("venues", "venue", "the venue of each trade"),
+    ("conditions", "cond", "the sale-condition codes"),
+    ("corrections", "correction", "the correction indicator"),
+)
+
+
+def clean_problems(config: dict, sources: list[InputSource]) -> list[Problem]:
+    """A cleaning rule set in the config whose column the trade file lacks (it would apply to nothing)."""
+    clean = config.get("clean") or {}
+    trades = next((s for s in sources if s.key == "trades"), None)
+    if trades is None:
+        return []
+    problems = []
+    for setting, ours, meaning in CLEAN_COLUMNS:
+        if not clean.get(setting):
+            continue
+        for file, names in trades.headers.items():
+            if ours not in {trades.ours(n) for n in names}:
+                problems.append(Problem(
+                    file, f"clean.{setting} is set but the trades file has no column '{ours}' ({meaning}); map yours "
+                    f"to it under columns.trades or remove clean.{setting}; its columns are {names}", column=ours,
+                ))
+    return problems
+
+
 def panel_variables(config: dict) -> set[str]:
     """The columns the panel will hold: measures' outputs, characteristics, transforms, returns."""
     from liqpanel.measures import REGISTRY
@@ -714,7 +741,7 @@ def preflight(config: Any, *, source: str = "config") -> list[Problem]:
         for check in FILE_CHECKS:
             problems += check(input_source)
     steps = [market_problems, measure_problems, panel_problems, study_problems, folder_problems,
-             lambda c: measure_input_problems(c, sources)]
+             lambda c: measure_input_problems(c, sources), lambda c: clean_problems(c, sources)]
     broken = bool(problems)
     for step in steps:
         try:

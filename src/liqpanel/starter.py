@@ -38,11 +38,11 @@ SUGGESTIONS = (
     ("ret", ("return", "ret")),
     ("n_trades", ("trades", "deals", "count", "number")),
     ("dollar_volume", ("turnover", "amount", "value", "notional", "ccy", "dollar")),
-    ("volume", ("volume", "vol", "qty", "quantity")),
-    ("open", ("open", "first")),
-    ("high", ("high", "top", "max")),
-    ("low", ("low", "bottom", "min")),
-    ("close", ("close", "last", "price")),
+    ("volume", ("volume", "vol", "qty", "quantity", "v")),
+    ("open", ("open", "first", "o")),
+    ("high", ("high", "top", "max", "h")),
+    ("low", ("low", "bottom", "min", "l")),
+    ("close", ("close", "last", "price", "c")),
     ("date", ("date", "day")),
     ("security", ("ticker", "tick", "symbol", "sym", "security", "id", "code", "isin")),
 )
@@ -166,7 +166,7 @@ def daily_starter(path: str | Path, *, separator: str = ",", name: str = "my-dai
     lines += [
         "",
         "# formats:                  # how the file writes dates and missing values, when not YYYY-MM-DD and empty",
-        '#   daily: {date_format: "%d/%m/%Y", missing: ["NA"], separator: ","}',
+        f'#   daily: {{date_format: "%d/%m/%Y", missing: ["NA"], separator: "{separator}"}}',
         "",
         "measures:                   # measures of daily data; `liqpanel measures` lists all",
     ]

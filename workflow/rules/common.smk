@@ -15,7 +15,8 @@ try:
     runtime.pin_engine_threads(config)
     INTERRUPTED = runtime.clear_stale_lock()
 
-    if not runtime.already_checked(config):  # `liqpanel run` has checked it already
+    # once per run: not again in each job's process on a cluster, nor when `liqpanel run` has just checked it
+    if workflow.is_main_process and not runtime.already_checked(config):
         from liqpanel.preflight import errors, preflight, report_lines
 
         PROBLEMS = preflight(config, source="config")
