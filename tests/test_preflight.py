@@ -224,6 +224,13 @@ def test_panel_transform_of_an_absent_variable(tmp_path, capsys):
     check(tmp_path, capsys, config, "panel.log", "takes the log of 'turnover'")
 
 
+def test_monthly_returns_asked_for_but_not_given(tmp_path, capsys):
+    config = daily_config(tmp_path)
+    config["inputs"]["returns"] = None
+    config["panel"] = {"return_source": "monthly_file"}
+    check(tmp_path, capsys, config, "panel.return_source: is 'monthly_file' but `inputs: returns:` names no file")
+
+
 def test_characteristic_the_file_lacks(tmp_path, capsys):
     config = daily_config(tmp_path)
     config["inputs"]["characteristics"][0]["variables"].append("dividend_yield")

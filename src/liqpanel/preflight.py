@@ -520,6 +520,9 @@ def panel_problems(config: dict) -> list[Problem]:
                                         column=v))
 
     panel = config.get("panel") or {}
+    if panel.get("return_source") == "monthly_file" and not (config.get("inputs") or {}).get("returns"):
+        problems.append(Problem("panel.return_source", "is 'monthly_file' but `inputs: returns:` names no file; "
+                                "name one, or set 'auto' to compound the daily returns"))
     logs = _names(panel.get("log") or [])
     need("panel.log", logs, "takes the log of")
     names |= {f"log_{v}" for v in logs}
