@@ -321,6 +321,19 @@ def test_every_problem_is_listed_at_once(tmp_path, capsys):
     assert "7 problems found; nothing was run" in err
 
 
+def test_values_of_the_wrong_kind_everywhere(tmp_path, capsys):
+    config = daily_config(tmp_path)
+    config["models"] = {"regressions": "roll", "factor": "x"}
+    config["inputs"]["characteristics"] = "chars.parquet"
+    config["panel"] = {"log": "amihud"}
+    config["columns"] = {"daily": ["ticker"]}
+    config["study"] = "yes"
+    config["measures"] = {"roll_spread": "fast", "amihud": {"scale": "big"}}
+    check(tmp_path, capsys, config, "models.regressions: expected array, got 'roll'", "models.factor",
+          "inputs.characteristics", "panel.log", "columns.daily: expected object", "study: expected object",
+          "measures.roll_spread", "measures.amihud.scale", "'big'", "needs columns 'security', 'date'")
+
+
 def test_run_stops_before_any_work(tmp_path, capsys):
     config = daily_config(tmp_path)
     config["measures"]["roll_spread"]["min_days"] = "fifteen"

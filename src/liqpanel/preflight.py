@@ -335,9 +335,7 @@ def _empty_message(error: jsonschema.ValidationError) -> str | None:
 
 def input_sources(config: dict) -> list[InputSource]:
     """Every input the config names, with its mapping and formats."""
-    inputs = config.get("inputs") or {}
-    columns = config.get("columns") or {}
-    formats = config.get("formats") or {}
+    inputs, columns, formats = (_dict(config.get(k)) for k in ("inputs", "columns", "formats"))
     timezone = "UTC"
     if isinstance(config.get("market"), str):
         from liqpanel.config import load_market
@@ -351,11 +349,12 @@ def input_sources(config: dict) -> list[InputSource]:
         path = inputs.get(key)
         if isinstance(path, str) and path:
             sources.append(InputSource(
-                key=key, table=key, path=path, mapping=dict(columns.get(key) or {}),
-                formats=dict(formats.get(key) or {}), config_key=f"columns.{key}", date_column=DATE_COLUMN[key],
+                key=key, table=key, path=path, mapping=_mapping(columns.get(key)),
+                formats=_dict(formats.get(key)), config_key=f"columns.{key}", date_column=DATE_COLUMN[key],
                 required=REQUIRED[key], timezone=timezone,
             ))
-    for index, entry in enumerate(inputs.get("characteristics") or []):
+    entries = inputs.get("characteristics")
+    for index, entry in enumerate(entries if isinstance(entries, list) else []):
         if not isinstance(entry, dict) or not isinstance(entry.get("path"), str):
             continue
         name = entry.get("name", index)
@@ -363,11 +362,20 @@ def input_sources(config: dict) -> list[InputSource]:
         variables = [v for v in entry.get("variables") or [] if isinstance(v, str)]
         sources.append(InputSource(
             key=f"characteristics[{name}]", table="characteristics", path=entry["path"],
-            mapping=dict(entry.get("columns") or {}), formats=dict(entry.get("format") or {}),
+            mapping=_mapping(entry.get("columns")), formats=_dict(entry.get("format")),
             config_key=f"inputs.characteristics[{name}].columns", date_column=date_column,
             required=("security", date_column, *variables),
         ))
     return sources
+
+
+def _dict(value: Any) -> dict:
+    return dict(value) if isinstance(value, dict) else {}
+
+
+def _mapping(value: Any) -> dict[str, str]:
+    """A `columns:` mapping, its entries of the wrong kind left out (the schema check names them)."""
+    return {k: v for k, v in _dict(value).items() if isinstance(k, str) and isinstance(v, str)}
 
 
 def _type_name(default: Any) -> str:
@@ -734,27 +742,33 @@ def preflight(config: Any, *, source: str = "config") -> list[Problem]:
     from liqpanel.config import _fill_defaults, load_schema
 
     problems = schema_problems(config, source)
+    broken = bool(problems)  # a check may then meet values of the wrong kind
     if not isinstance(config, dict):
         return problems
     config = _fill_defaults(copy.deepcopy(config), load_schema())
     sources = input_sources(config)
     for input_source in sources:
-        opened = check_files(input_source)
-        problems += opened
+        problems += check_files(input_source)
         for check in FILE_CHECKS:
-            problems += check(input_source)
+            problems += _guarded(check, input_source, broken)
     steps = [market_problems, measure_problems, panel_problems, study_problems, folder_problems,
              lambda c: measure_input_problems(c, sources), lambda c: clean_problems(c, sources)]
-    broken = bool(problems)
     for step in steps:
-        try:
-            problems += step(config)
-        except Exception:
-            if not broken:  # a config that passes the schema must not break a check
-                raise
+        problems += _guarded(step, config, broken)
     if not [p for p in problems if p.level == "error"]:
         problems += window_warnings(config, sources)
     return _unique(problems)
+
+
+def _guarded(check: Callable[[Any], list[Problem]], subject: Any, broken: bool) -> list[Problem]:
+    """``check(subject)``; when the config breaks the schema (already listed), a check that trips over
+    a value of the wrong kind adds nothing. A config that passes the schema must not break a check."""
+    try:
+        return check(subject)
+    except Exception:
+        if not broken:
+            raise
+        return []
 
 
 def _unique(problems: list[Problem]) -> list[Problem]:
