@@ -510,3 +510,16 @@ def test_daily_starter_reads_the_header_with_the_separator(tmp_path, capsys):
                        "v": "volume"}
     assert 'start: "2021-01"' in out.read_text() and 'end: "2021-03"' in out.read_text()
     assert 'separator: ";"' in out.read_text()
+
+
+def test_the_study_alone_is_not_held_to_the_models(tmp_path):
+    from liqpanel.preflight import errors, preflight, warnings
+
+    config = trades_config(tmp_path)
+    config["inputs"] = {"trades": config["inputs"]["trades"]}  # no quotes, no characteristics
+    # the whole run needs them: log_size for the models, quotes for the effective spread
+    assert any("'log_size'" in p.message for p in errors(preflight(config)))
+    # the study fits no model; the quote-based measures will be missing, which is worth a warning only
+    study = preflight(config, target="study")
+    assert errors(study) == []
+    assert any("measure 'effective_spread' needs" in p.message for p in warnings(study))

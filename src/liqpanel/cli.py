@@ -17,6 +17,7 @@ import signal
 import subprocess
 import sys
 import threading
+import time
 from pathlib import Path
 
 from liqpanel.errors import LiqpanelError
@@ -53,13 +54,13 @@ def _measures(args: argparse.Namespace) -> int:
     return 0
 
 
-def _preflight(path: str) -> dict:
+def _preflight(path: str, target: str = "all") -> dict:
     """Check the config and its inputs; print every problem and stop (exit 2) when there is one."""
     from liqpanel.config import read_config
     from liqpanel.preflight import errors, preflight, report_lines
 
     raw = read_config(path)
-    problems = preflight(raw, source=str(path))
+    problems = preflight(raw, source=str(path), target=target)
     for line in report_lines(problems):
         print(line, file=sys.stderr)
     if errors(problems):
@@ -92,9 +93,9 @@ def _snakemake(args: argparse.Namespace, extra: list[str], target: str, checked:
         "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", target,
     ]
     env = {**os.environ, CHECKED_ENV: config_digest(checked)}  # the workflow need not check the same config again
-    # Snakemake runs in a session of its own so that Ctrl-C reaches this process alone: it is passed on once,
-    # and what Snakemake prints while it stops (its jobs' tracebacks included) is not shown
-    child = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE, start_new_session=True)
+    # Ctrl-C in a terminal reaches Snakemake too (one process group), which then stops its jobs and releases
+    # its lock; what it prints while it stops (its jobs' tracebacks included) is not shown
+    child = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE)
     muted = threading.Event()
     relay = threading.Thread(target=_relay, args=(child.stderr, muted), daemon=True)
     relay.start()
@@ -102,16 +103,27 @@ def _snakemake(args: argparse.Namespace, extra: list[str], target: str, checked:
         code = _wait(child)
     except KeyboardInterrupt:
         muted.set()
-        child.send_signal(signal.SIGINT)
-        while child.poll() is None:
-            try:
-                child.wait()
-            except KeyboardInterrupt:
-                continue  # a second Ctrl-C: Snakemake is already stopping
+        _stop(child)
         relay.join(timeout=5)
         raise
     relay.join()
     return code
+
+
+def _stop(child: subprocess.Popen, grace: float = 3.0) -> None:
+    """Wait for Snakemake to stop after Ctrl-C; pass the interrupt on if it was sent to this process alone."""
+    deadline = time.monotonic() + grace
+    forwarded = False
+    while child.poll() is None:
+        try:
+            if not forwarded and time.monotonic() > deadline:
+                child.send_signal(signal.SIGINT)
+                forwarded = True
+            child.wait(timeout=0.2)
+        except subprocess.TimeoutExpired:
+            continue
+        except KeyboardInterrupt:
+            continue  # a second Ctrl-C: Snakemake is already stopping
 
 
 def _wait(child: subprocess.Popen) -> int:
@@ -157,7 +169,7 @@ def _study(args: argparse.Namespace, extra: list[str]) -> int:
     from liqpanel.config import load_config
     from liqpanel.report import run_id
 
-    raw = _preflight(args.config)
+    raw = _preflight(args.config, target="study")
     config = load_config(args.config)
     code = _snakemake(args, extra, "study_results", raw)
     if code == 0:

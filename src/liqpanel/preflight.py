@@ -27,7 +27,7 @@ import copy
 import gzip
 import os
 import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable
 
@@ -737,8 +737,14 @@ def window_warnings(config: dict, sources: list[InputSource]) -> list[Problem]:
 # ---------------------------------------------------------------- all together
 
 
-def preflight(config: Any, *, source: str = "config") -> list[Problem]:
-    """Every problem of ``config`` (as written) and its inputs; warnings have ``level == "warning"``."""
+def preflight(config: Any, *, source: str = "config", target: str = "all") -> list[Problem]:
+    """Every problem of ``config`` (as written) and its inputs; warnings have ``level == "warning"``.
+
+    ``target`` is what will run: ``all`` (the whole workflow) or ``study``
+    (the estimator study alone, which fits no model: the panel and model
+    settings are not checked, and a measure whose inputs are missing, whose
+    values will all be missing, is a warning).
+    """
     from liqpanel.config import _fill_defaults, load_schema
 
     problems = schema_problems(config, source)
@@ -751,10 +757,14 @@ def preflight(config: Any, *, source: str = "config") -> list[Problem]:
         problems += check_files(input_source)
         for check in FILE_CHECKS:
             problems += _guarded(check, input_source, broken)
-    steps = [market_problems, measure_problems, panel_problems, study_problems, folder_problems,
-             lambda c: measure_input_problems(c, sources), lambda c: clean_problems(c, sources)]
+    steps = [market_problems, measure_problems, study_problems, folder_problems, lambda c: clean_problems(c, sources)]
+    if target == "all":
+        steps += [panel_problems, lambda c: measure_input_problems(c, sources)]
     for step in steps:
         problems += _guarded(step, config, broken)
+    if target == "study":
+        problems += [replace(p, level="warning") for p in _guarded(lambda c: measure_input_problems(c, sources),
+                                                                   config, broken)]
     if not [p for p in problems if p.level == "error"]:
         problems += window_warnings(config, sources)
     return _unique(problems)

@@ -19,7 +19,7 @@ try:
     if workflow.is_main_process and not runtime.already_checked(config):
         from liqpanel.preflight import errors, preflight, report_lines
 
-        PROBLEMS = preflight(config, source="config")
+        PROBLEMS = preflight(config, source="config", target="study" if "study_results" in sys.argv else "all")
         for line in report_lines(PROBLEMS):
             sys.stderr.write(line + "\n")
         if errors(PROBLEMS):
