@@ -523,3 +523,17 @@ def test_the_study_alone_is_not_held_to_the_models(tmp_path):
     study = preflight(config, target="study")
     assert errors(study) == []
     assert any("measure 'effective_spread' needs" in p.message for p in warnings(study))
+
+
+def test_date_sample_check_reads_the_declared_format_and_missing_tokens(tmp_path):
+    from liqpanel.preflight import FILE_CHECKS, InputSource, check_date_sample, check_files
+
+    assert check_date_sample in FILE_CHECKS
+    daily = tmp_path / "bars.csv"
+    daily.write_text("d;x\n04/01/2021;1\n-;2\n31/02/2021;3\n")  # 31 February: no such day (Gregorian calendar)
+    source = InputSource(key="daily", table="daily", path=str(daily), mapping={"d": "date"}, date_column="date",
+                         formats={"separator": ";", "date_format": "%d/%m/%Y", "missing": ["-"]})
+    assert check_files(source) == []
+    [problem] = check_date_sample(source)
+    assert "data row 3 (line 4): column 'd' (date) has '31/02/2021', expected a date as %d/%m/%Y" in str(problem)
+    assert "(1 of the first 3 rows" in str(problem)

@@ -227,13 +227,16 @@ def _date_expr(dtype, fmt: str | None, table: str):
     return text.str.to_date("%Y-%m-%d", strict=False), "a date as YYYY-MM-DD"
 
 
-def _sample(file: str, column: str, separator: str, rows: int):
+def _head(source: InputSource, file: str, columns: list[str]):
+    """The first :data:`SAMPLE_ROWS` rows of the user's ``columns``; the input's missing-value tokens read as missing."""
     import polars as pl
 
     if _is_parquet(file):
-        return pl.scan_parquet(file).select(pl.col(column).alias("_date")).head(rows).collect()
-    return pl.read_csv(file, columns=[column], n_rows=rows, separator=separator, infer_schema_length=rows,
-                       try_parse_dates=False).rename({column: "_date"})
+        return pl.scan_parquet(file).select(columns).head(SAMPLE_ROWS).collect()
+    missing = source.formats.get("missing")
+    missing = [missing] if isinstance(missing, str) else [str(m) for m in missing or []]
+    return pl.read_csv(file, columns=columns, n_rows=SAMPLE_ROWS, separator=source.formats.get("separator") or ",",
+                       infer_schema_length=SAMPLE_ROWS, try_parse_dates=False, null_values=missing or None)
 
 
 def check_date_sample(source: InputSource) -> list[Problem]:
@@ -253,7 +256,7 @@ def check_date_sample(source: InputSource) -> list[Problem]:
             continue  # named by check_required_columns (or the file's timestamp is one 'ts' column)
         theirs = have[ours]
         try:
-            frame = _sample(file, theirs, source.formats.get("separator") or ",", SAMPLE_ROWS)
+            frame = _head(source, file, [theirs]).rename({theirs: "_date"})
         except (pl.exceptions.PolarsError, OSError) as exc:
             problems.append(Problem(file, f"cannot read column '{theirs}': {str(exc).splitlines()[0]}", column=theirs))
             continue
@@ -279,12 +282,7 @@ def _timestamp_sample(source: InputSource, file: str, have: dict[str, str]) -> l
     columns = [c for c in ("ts", "date", "time") if c in have]
     if "ts" not in columns and len(columns) < 2:
         return []  # named by check_required_columns
-    if _is_parquet(file):
-        frame = pl.scan_parquet(file).select([have[c] for c in columns]).head(SAMPLE_ROWS).collect()
-    else:
-        frame = pl.read_csv(file, columns=[have[c] for c in columns], n_rows=SAMPLE_ROWS, try_parse_dates=False,
-                            separator=source.formats.get("separator") or ",", infer_schema_length=SAMPLE_ROWS)
-    frame = frame.rename({have[c]: c for c in columns})
+    frame = _head(source, file, [have[c] for c in columns]).rename({have[c]: c for c in columns})
     try:
         ts, bad, raw, _ = _timestamp(frame.schema, source.timezone, file)
     except LiqpanelError as exc:
