@@ -149,7 +149,7 @@ def test_mapped_column_absent_names_the_users_name(tmp_path, capsys):
 def test_required_column_absent_says_how_to_map_it(tmp_path, capsys):
     _write_daily(tmp_path / "daily.csv", [r[:6] for r in _days()], header=HEADER.rsplit(",", 1)[0])
     cfg = _config(tmp_path, columns={"daily": {k: v for k, v in DAILY_MAP.items() if k != "Qty"}})
-    _stops(capsys, cfg, "daily.csv", "'volume'", "`columns:`")
+    _stops(capsys, cfg, "daily.csv", "'volume'", "columns.daily")
 
 
 def test_empty_daily_file(tmp_path, capsys):
@@ -574,7 +574,7 @@ def test_truth_value_that_is_not_a_number(tmp_path, capsys):
 
 def test_characteristics_variable_column_absent(tmp_path, capsys):
     inputs = _chars(tmp_path, "security,date,book\nQOLM,20201231,0.5\n")
-    _stops(capsys, _config(tmp_path, inputs=inputs), "chars.csv", "'bm'", "`columns:`")
+    _stops(capsys, _config(tmp_path, inputs=inputs), "chars.csv", "'bm'", "inputs.characteristics[book].columns")
 
 
 def test_daily_file_without_a_security_column(tmp_path, capsys):
@@ -584,4 +584,4 @@ def test_daily_file_without_a_security_column(tmp_path, capsys):
 
 
 def test_daily_glob_that_matches_nothing(tmp_path, capsys):
-    _stops(capsys, _config(tmp_path, inputs={"daily": str(tmp_path / "prices_*.csv")}), "prices_*.csv", "no such file")
+    _stops(capsys, _config(tmp_path, inputs={"daily": str(tmp_path / "prices_*.csv")}), "prices_*.csv", "no file matches the pattern")

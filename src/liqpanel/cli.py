@@ -2,7 +2,8 @@
 
     liqpanel simulate --securities 40 --months 24 --seed 20240101 --out demo_data
     liqpanel measures                 # list the registered measures and sources
-    liqpanel check-config FILE        # validate a config without running
+    liqpanel check-config FILE        # check a config and its inputs without running
+    liqpanel daily-starter DAILY_FILE --out my.yaml   # a starter config for a daily stock file
     liqpanel run [--config FILE] [--cores N] [snakemake args...]
     liqpanel study [--config FILE] [--cores N] [snakemake args...]   # the estimator study alone
     liqpanel check-tables REFERENCE CANDIDATE   # compare two runs' tables cell by cell
@@ -11,9 +12,13 @@
 from __future__ import annotations
 
 import argparse
+import os
 import re
+import signal
 import subprocess
 import sys
+import threading
+import time
 from pathlib import Path
 
 from liqpanel.errors import LiqpanelError
@@ -50,56 +55,132 @@ def _measures(args: argparse.Namespace) -> int:
     return 0
 
 
-def _check_config(args: argparse.Namespace) -> int:
-    from liqpanel.config import load_config
+def _preflight(path: str, target: str = "all") -> dict:
+    """Check the config and its inputs; print every problem and stop (exit 2) when there is one."""
+    from liqpanel.config import read_config
+    from liqpanel.preflight import errors, preflight, report_lines
 
-    load_config(args.config)
+    raw = read_config(path)
+    problems = preflight(raw, source=str(path), target=target)
+    for line in report_lines(problems):
+        print(line, file=sys.stderr)
+    if errors(problems):
+        raise SystemExit(2)
+    return raw
+
+
+def _check_config(args: argparse.Namespace) -> int:
+    _preflight(args.config)
     print(f"{args.config}: valid")
     return 0
 
 
-_JOB_ERROR = re.compile(r'^(\w+) in file ".*", line \d+:$')
-_FRAME = re.compile(r'^\s+File ".*", line \d+')
-_OURS = ("InputError", "ConfigError", "LiqpanelError")
+def _daily_starter(args: argparse.Namespace) -> int:
+    from liqpanel.starter import write_daily_starter
+
+    out = write_daily_starter(args.daily, args.out, separator=args.separator, force=args.force)
+    print(f"{out}: written; map your columns under columns.daily, then run  liqpanel check-config {out}")
+    return 0
 
 
-def _snakemake(args: argparse.Namespace, extra: list[str], target: str) -> int:
-    """Run the workflow; a user's error raised inside a job ends as one line without engine frames.
+class _JobErrors:
+    """Leaves the engine frames out of a user's error raised inside a job.
 
     Snakemake prints an exception raised in a job as its class, the rule
     file, the message and the Python frames. For our own errors (a bad
     input, a bad setting) the frames say nothing to a user: they are left
-    out and the message is repeated last as ``liqpanel: ...`` with exit status 2.
+    out and the message is kept, to be repeated last as ``liqpanel: ...``.
     """
+
+    HEAD = re.compile(r'^(\w+) in file ".*", line \d+:$')
+    FRAME = re.compile(r'^\s+File ".*", line \d+')
+    OURS = ("InputError", "ConfigError", "LiqpanelError")
+
+    def __init__(self) -> None:
+        self.ours, self.reading, self.message = False, False, []
+
+    def keep(self, line: str) -> bool:
+        """Whether to show ``line``; remembers the message of our own error."""
+        if line.startswith("RuleException:"):
+            return False
+        head = self.HEAD.match(line.rstrip("\n"))
+        if head:
+            self.ours, self.reading = head.group(1) in self.OURS, True
+            return not self.ours
+        if self.FRAME.match(line):
+            self.reading = False
+            return not self.ours
+        if self.reading:
+            self.message.append(line.rstrip("\n"))
+            return not self.ours
+        return True
+
+
+STOPPED = "liqpanel: stopped; run the same command again to resume"
+
+
+def _snakemake(args: argparse.Namespace, extra: list[str], target: str, checked: dict) -> int:
+    from liqpanel.runtime import CHECKED_ENV, config_digest
+
     cmd = [
         sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
         "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", target,
     ]
-    proc = subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True, bufsize=1)
-    ours, message, reading = False, [], False
-    for line in proc.stderr:
-        head = _JOB_ERROR.match(line.rstrip("\n"))
-        if line.startswith("RuleException:"):
-            continue
-        if head:
-            ours, reading = head.group(1) in _OURS, True
-            if not ours:
-                sys.stderr.write(line)
-            continue
-        if _FRAME.match(line):
-            reading = False
-            if ours:
-                continue
-        elif reading:
-            message.append(line.rstrip("\n"))
-            if ours:
-                continue
-        sys.stderr.write(line)
-    code = proc.wait()
-    if code != 0 and ours and message:
-        print("liqpanel: " + "\n".join(message), file=sys.stderr)
+    env = {**os.environ, CHECKED_ENV: config_digest(checked)}  # the workflow need not check the same config again
+    # Ctrl-C in a terminal reaches Snakemake too (one process group), which then stops its jobs and releases
+    # its lock; what it prints while it stops (its jobs' tracebacks included) is not shown
+    child = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE)
+    muted, errors = threading.Event(), _JobErrors()
+    relay = threading.Thread(target=_relay, args=(child.stderr, muted, errors), daemon=True)
+    relay.start()
+    try:
+        code = _wait(child)
+    except KeyboardInterrupt:
+        muted.set()
+        _stop(child)
+        relay.join(timeout=5)
+        raise
+    relay.join()
+    if code != 0 and errors.ours and errors.message:
+        print("liqpanel: " + "\n".join(errors.message), file=sys.stderr)
         return 2
     return code
+
+
+def _stop(child: subprocess.Popen, grace: float = 3.0) -> None:
+    """Wait for Snakemake to stop after Ctrl-C; pass the interrupt on if it was sent to this process alone."""
+    deadline = time.monotonic() + grace
+    forwarded = False
+    while child.poll() is None:
+        try:
+            if not forwarded and time.monotonic() > deadline:
+                child.send_signal(signal.SIGINT)
+                forwarded = True
+            child.wait(timeout=0.2)
+        except subprocess.TimeoutExpired:
+            continue
+        except KeyboardInterrupt:
+            continue  # a second Ctrl-C: Snakemake is already stopping
+
+
+def _wait(child: subprocess.Popen) -> int:
+    """Wait for ``child`` in short steps: Ctrl-C may reach another of our threads (the table engine's),
+    and only a waiting that wakes up lets the main thread see it."""
+    while True:
+        try:
+            return child.wait(timeout=0.2)
+        except subprocess.TimeoutExpired:
+            continue
+
+
+def _relay(stream, muted: threading.Event, errors: _JobErrors) -> None:
+    """Copy Snakemake's messages to our standard error line by line as they come, until muted."""
+    signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})  # Ctrl-C interrupts the main thread's wait
+    for raw in iter(stream.readline, b""):
+        line = raw.decode(errors="replace")
+        if not muted.is_set() and errors.keep(line):
+            sys.stderr.write(line)
+            sys.stderr.flush()
 
 
 def _check_tables(args: argparse.Namespace) -> int:
@@ -113,20 +194,17 @@ def _check_tables(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace, extra: list[str]) -> int:
-    from liqpanel.config import load_config
-
-    from liqpanel.stages import check_inputs
-
-    check_inputs(load_config(args.config))  # fail fast with a clear message, before the workflow starts
-    return _snakemake(args, extra, "all")
+    raw = _preflight(args.config)  # every problem at once, before any work
+    return _snakemake(args, extra, "all", raw)
 
 
 def _study(args: argparse.Namespace, extra: list[str]) -> int:
     from liqpanel.config import load_config
     from liqpanel.report import run_id
 
+    raw = _preflight(args.config, target="study")
     config = load_config(args.config)
-    code = _snakemake(args, extra, "study_results")
+    code = _snakemake(args, extra, "study_results", raw)
     if code == 0:
         folder = Path(config["run"]["results_dir"]) / f"study-{run_id(config)}"
         print(f"study results: {folder}")
@@ -151,8 +229,19 @@ def main(argv: list[str] | None = None) -> int:
     p = sub.add_parser("measures", help="list the registered measures with their sources")
     p.add_argument("-v", "--verbose", action="store_true")
 
-    p = sub.add_parser("check-config", help="validate a config file")
+    p = sub.add_parser("check-config", help="check a config and its inputs, listing every problem (exit 2 if any)")
     p.add_argument("config")
+
+    p = sub.add_parser(
+        "daily-starter", help="write a starter config for a daily stock file (its columns listed for mapping)",
+        description="Write a config holding only the sections that apply to a daily file: every column of the "
+        "file is listed, commented, under columns.daily with a suggested column of ours. Only the file's header "
+        "and its dates are read.",
+    )
+    p.add_argument("daily", help="the daily file (CSV, .csv.gz or Parquet)")
+    p.add_argument("--out", required=True, help="the config file to write")
+    p.add_argument("--separator", default=",", help="the CSV field separator (default ',')")
+    p.add_argument("--force", action="store_true", help="replace --out when it exists")
 
     p = sub.add_parser("run", help="run the whole workflow (extra options go to snakemake)")
     p.add_argument("--config", default="config/config.yaml")
@@ -188,6 +277,8 @@ def main(argv: list[str] | None = None) -> int:
             return _measures(args)
         if args.command == "check-config":
             return _check_config(args)
+        if args.command == "daily-starter":
+            return _daily_starter(args)
         if args.command == "study":
             return _study(args, extra)
         if args.command == "check-tables":
@@ -196,6 +287,11 @@ def main(argv: list[str] | None = None) -> int:
     except LiqpanelError as exc:
         print(f"liqpanel: {exc}", file=sys.stderr)
         return 2
+    except SystemExit as exc:
+        return exc.code if isinstance(exc.code, int) else 2
+    except KeyboardInterrupt:
+        print(STOPPED, file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":

@@ -116,16 +116,22 @@ def validate_config(config: dict, *, source: str = "config") -> dict:
     return filled
 
 
-def load_config(path: str | Path) -> dict:
+def read_config(path: str | Path) -> Any:
+    """The config file as written (not yet validated)."""
     path = Path(path)
     try:
         with open(path) as fh:
-            raw = yaml.safe_load(fh)
+            return yaml.safe_load(fh)
     except FileNotFoundError:
         raise ConfigError(f"config file {path} does not exist") from None
+    except IsADirectoryError:
+        raise ConfigError(f"config file {path} is a folder; expected a YAML file") from None
     except yaml.YAMLError as exc:
         raise ConfigError(f"config file {path} is not valid YAML: {exc}") from None
-    return validate_config(raw, source=str(path))
+
+
+def load_config(path: str | Path) -> dict:
+    return validate_config(read_config(path), source=str(path))
 
 
 def market_path(name_or_path: str) -> Path:

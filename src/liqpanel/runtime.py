@@ -65,6 +65,22 @@ def pin_engine_threads(config: dict | None) -> int | None:
     return threads
 
 
+CHECKED_ENV = "LIQPANEL_CHECKED_CONFIG"
+
+
+def config_digest(config: dict | None) -> str:
+    """A fingerprint of a config as written: the workflow skips the pre-flight check of a config
+    the command line has just checked (``liqpanel run`` passes it in :data:`CHECKED_ENV`)."""
+    import hashlib
+
+    text = json.dumps(config, sort_keys=True, default=str)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def already_checked(config: dict | None) -> bool:
+    return os.environ.get(CHECKED_ENV) == config_digest(config)
+
+
 WORK_STAMP = "engine.json"
 
 
@@ -171,3 +187,31 @@ def remove_partial_files(*folders: str | Path) -> int:
             part.unlink(missing_ok=True)
             removed += 1
     return removed
+
+
+HOLD_FILE = ".liqpanel-run-in-progress"
+
+
+def hold_folders(*folders: str | Path) -> list[Path]:
+    """Keep the user's own folders from being removed while the workflow runs; the files written.
+
+    When a run ends, Snakemake removes every empty folder that should have
+    held a missing input or output, and its empty parents with it, so a run
+    that failed early took the user's empty results folder away. A small
+    hidden file in each folder that already exists keeps it (and its parents)
+    non-empty until :func:`release_folders` removes the file again.
+    """
+    held = []
+    for folder in folders:
+        folder = Path(folder)
+        if folder.is_dir():
+            marker = folder / HOLD_FILE
+            marker.write_text(f"{os.getpid()}\n")
+            held.append(marker)
+    return held
+
+
+def release_folders(held: list[Path]) -> None:
+    """Remove the files :func:`hold_folders` wrote (the folders stay)."""
+    for marker in held:
+        marker.unlink(missing_ok=True)

@@ -1,4 +1,4 @@
-# Validate the config, fix the run-id and the month partitions.
+# Check the config and its inputs (every problem at once), fix the run-id and the month partitions.
 import shlex
 import sys
 
@@ -14,6 +14,16 @@ try:
     # of what makes the tables identical on every machine (liqpanel.runtime)
     runtime.pin_engine_threads(config)
     INTERRUPTED = runtime.clear_stale_lock()
+
+    # once per run: not again in each job's process on a cluster, nor when `liqpanel run` has just checked it
+    if workflow.is_main_process and not runtime.already_checked(config):
+        from liqpanel.preflight import errors, preflight, report_lines
+
+        PROBLEMS = preflight(config, source="config", target="study" if "study_results" in sys.argv else "all")
+        for line in report_lines(PROBLEMS):
+            sys.stderr.write(line + "\n")
+        if errors(PROBLEMS):
+            sys.exit(2)
 
     from liqpanel import stages
     from liqpanel.config import validate_config
@@ -61,16 +71,22 @@ def previous_partition(path):
     return previous
 
 
+HELD = []  # marker files keeping the user's own folders in place (liqpanel.runtime.hold_folders)
+
+
 onstart:
     runtime.claim_lock()
+    HELD.extend(runtime.hold_folders(RESULTS, WORK))
     runtime.stamp_work_folder(WORK, CONFIG["run"]["engine_threads"])
 
 
 onsuccess:
+    runtime.release_folders(HELD)
     runtime.release_lock()
 
 
 onerror:
+    runtime.release_folders(HELD)
     runtime.release_lock()
 
 
