@@ -62,7 +62,6 @@ import polars as pl
 from liqpanel.errors import ConfigError
 from liqpanel.intraday import prevailing_quotes
 from liqpanel.markets import local_clock, session_index
-from liqpanel.outliers import neighbourhood_outliers
 from liqpanel.readers import HELPER_COLUMNS
 
 TRADE_RULES = (
@@ -292,6 +291,8 @@ def _match_quotes(frame: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float)
 
 
 def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
+    from liqpanel.outliers import neighbourhood_outliers  # numpy: loaded only when the filter is on
+
     kept = flagged.filter(pl.col("drop_rule").is_null()).select("_file", "_row", "security", "date", "price")
     group = kept.select(pl.struct("security", "date").rle_id()).to_series().to_numpy()
     outlier = neighbourhood_outliers(

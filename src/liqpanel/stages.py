@@ -9,22 +9,26 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import polars as pl
 
 from liqpanel import bars as bars_mod
-from liqpanel import report as rep
 from liqpanel import readers
 from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
 from liqpanel.contracts import DAILY, month_of, require_columns
 from liqpanel.errors import InputError
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
-from liqpanel.measures import REGISTRY, compute_monthly
-from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
 from liqpanel.partition import stored_window
-from liqpanel.replication import write_replication_files
+
+if TYPE_CHECKING:
+    from liqpanel.report import RunFolder
+
+# A job imports only what its stage uses: the measures (and the Gibbs
+# sampler's scipy), the panel, the report and the replication files are
+# imported inside the functions that need them, so a clean or bars job
+# starts without them (``python -X importtime -c "import liqpanel.stages"``).
 
 
 def _month_filter(month: str) -> pl.Expr:
@@ -149,6 +153,8 @@ def daily_from_file(config: dict, month: str, out: str) -> None:
 
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
     """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
+    from liqpanel.measures import compute_monthly
+
     previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
     write_parquet(compute_monthly(pl.scan_parquet(daily_path), config["measures"], previous=previous), out)
 
@@ -159,6 +165,8 @@ def gather(paths: list[str], out: str, sort: list[str]) -> None:
 
 
 def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> None:
+    from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns, transform_panel
+
     inputs = config["inputs"]
     source = config["panel"]["return_source"]
     if source == "monthly_file" or (source == "auto" and inputs.get("returns")):
@@ -175,6 +183,7 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> 
 
 def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> None:
     """Fit every configured model; write each result table and an index."""
+    from liqpanel.measures import REGISTRY
     from liqpanel.models.run import run_models
 
     factors = None
@@ -221,6 +230,11 @@ def report(
     checksummed again: if they changed while the workflow ran, the run stops
     instead of labelling its tables with a run-id that does not describe them.
     """
+    from liqpanel import report as rep
+    from liqpanel.measures import REGISTRY
+    from liqpanel.panel import coverage
+    from liqpanel.replication import write_replication_files
+
     build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
     truth_path = config["inputs"].get("truth")
@@ -347,7 +361,7 @@ def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_di
     write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
 
 
-def render_study(study_dir: str | Path, out: "rep.RunFolder", *, figures: bool = True, min_cell: int = 20) -> None:
+def render_study(study_dir: str | Path, out: "RunFolder", *, figures: bool = True, min_cell: int = 20) -> None:
     """Put the study into a run folder: its tables, heat maps, summary and per-draw data."""
     from liqpanel import study as st
 
@@ -375,6 +389,8 @@ def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, starte
 
     Built beside its final place and moved there in one step, like a full run's folder.
     """
+    from liqpanel import report as rep
+
     build = rep.build_folder(Path(run_dir).parent, Path(run_dir).name)
     settings = config["report"]
     out = rep.RunFolder(build, rid=rid, captions=settings.get("captions"), digits=settings.get("digits", 4))
@@ -388,4 +404,6 @@ def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, starte
 
 
 def now() -> str:
+    from liqpanel import report as rep
+
     return rep.now()
