@@ -21,7 +21,7 @@ from liqpanel.simulate import simulate_market, write_market
 
 # heavy modules only the measures, panel, models and report stages (or the
 # config check before a run) need
-NOT_IN_A_TRADE_JOB = ("scipy", "jsonschema", "liqpanel.report", "liqpanel.measures.gibbs", "liqpanel.panel",
+NOT_IN_A_TRADE_JOB = ("scipy", "jsonschema", "liqpanel.report", "liqpanel.panel",
                       "liqpanel.replication", "liqpanel.models", "matplotlib", "linearmodels", "statsmodels")
 
 JOB = """

@@ -22,7 +22,7 @@ import pytest
 from polars.testing import assert_frame_equal
 
 from liqpanel import readers, stages
-from liqpanel.bars import add_returns, intraday_bars
+from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market, validate_config
 from liqpanel.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
@@ -203,7 +203,8 @@ def test_many_partitions_give_the_tables_of_one(tmp_path, small_market, gap_meas
 
     # the whole market at once: every clean trade in one frame, one daily table, one measures call
     clean = pl.concat([pl.read_parquet(p) for p in sorted(tmp_path.glob("clean/month=*/clean.parquet"))])
-    whole_bars = intraday_bars(clean.lazy(), None, load_market("demo"), config["bars"])
+    columns = needed_columns(config["measures"])  # the high-frequency columns these measures read: none
+    whole_bars = intraday_bars(clean.lazy(), None, load_market("demo"), config["bars"], columns)
     whole_daily = add_returns(whole_bars).collect()
     assert_frame_equal(daily, whole_daily)
     assert_frame_equal(monthly, compute_monthly(whole_daily.lazy(), config["measures"]))

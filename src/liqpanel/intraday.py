@@ -49,15 +49,21 @@ SPREAD_MEASURES = ("quoted_spread", "effective_spread", "realized_spread", "pric
 PAST_CLOSE = ("session_close", "exclude")
 
 
-def daily_columns() -> dict[str, pl.DataType]:
-    """The columns this module adds to the daily table, with their types."""
+def benchmark_columns() -> dict[str, pl.DataType]:
+    """The daily columns of the spread benchmarks (``daily_benchmarks``), with their types."""
     columns: dict[str, pl.DataType] = {"n_quoted": pl.Int64, "n_signed": pl.Int64}
     for name in SPREAD_MEASURES:
         columns[name] = pl.Float64
         columns[f"{name}_size_weighted"] = pl.Float64
-    columns["realized_variance"] = pl.Float64
-    columns["realized_variance_returns"] = pl.Int64
     return columns
+
+
+VARIANCE_COLUMNS: dict[str, pl.DataType] = {"realized_variance": pl.Float64, "realized_variance_returns": pl.Int64}
+
+
+def daily_columns() -> dict[str, pl.DataType]:
+    """The columns this module adds to the daily table, with their types."""
+    return {**benchmark_columns(), **VARIANCE_COLUMNS}
 
 
 def with_local_date(frame: pl.LazyFrame, market: dict) -> pl.LazyFrame:

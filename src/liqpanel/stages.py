@@ -92,14 +92,15 @@ def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict) -
 
 
 def bars_month(clean_trades_path: str, out: str, config: dict | None = None, clean_quotes_path: str | None = None) -> None:
-    """Daily bars of one month; with a config, also the high-frequency benchmarks."""
+    """Daily bars of one month; with a config, also the high-frequency columns its measures read."""
     trades = pl.scan_parquet(clean_trades_path)
     if config is None:
         write_parquet(bars_mod.trading_bars(trades), out)
         return
     market = load_market(config["market"])
     quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
-    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars")), out)
+    columns = bars_mod.needed_columns(config["measures"]) if config.get("measures") else None
+    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars"), columns), out)
 
 
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:

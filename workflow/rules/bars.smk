@@ -10,6 +10,7 @@ if FROM_TRADES:
         params:
             bars=CONFIG["bars"],
             market=CONFIG["market"],
+            measures=sorted(CONFIG["measures"]),  # the high-frequency columns follow the measures
         run:
             stages.bars_month(input.trades, output[0], CONFIG, input.quotes)
 
