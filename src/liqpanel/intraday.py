@@ -73,18 +73,25 @@ def with_local_date(frame: pl.LazyFrame, market: dict) -> pl.LazyFrame:
     return frame.with_columns(local_clock(pl.col("ts"), market)[0].alias("date"))
 
 
-def quote_at(frame: pl.LazyFrame, quotes: pl.LazyFrame, at: str, names: tuple[str, str]) -> pl.LazyFrame:
-    """Add the bid and ask (as ``names``) prevailing at column ``at``: same security and day."""
-    right = quotes.select(
-        *BY, pl.col("ts").alias(at), pl.col("bid").alias(names[0]), pl.col("ask").alias(names[1])
-    ).sort(*BY, at)
-    return frame.sort(*BY, at).join_asof(right, on=at, by=BY, strategy="backward", check_sortedness=False)
+def quote_at(
+    frame: pl.LazyFrame, quotes: pl.LazyFrame, at: str, names: tuple[str, str], *, in_order: bool = False
+) -> pl.LazyFrame:
+    """Add the bid and ask (as ``names``) prevailing at column ``at``: same security and day.
+
+    ``in_order``: both frames are already in security and time order (as the
+    clean stage keeps them) and ``at`` rises with the time, so neither is
+    sorted again and the rows keep their order.
+    """
+    right = quotes.select(*BY, pl.col("ts").alias(at), pl.col("bid").alias(names[0]), pl.col("ask").alias(names[1]))
+    if not in_order:
+        right, frame = right.sort(*BY, at), frame.sort(*BY, at)
+    return frame.join_asof(right, on=at, by=BY, strategy="backward", check_sortedness=False)
 
 
-def prevailing_quotes(trades: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float) -> pl.LazyFrame:
+def prevailing_quotes(trades: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float, *, in_order: bool = False) -> pl.LazyFrame:
     """Trades with ``bid`` and ``ask`` of the quote prevailing at ts - lag (same security and day)."""
     lagged = trades.with_columns((pl.col("ts") - pl.duration(microseconds=round(lag_seconds * 1e6))).alias("_quote_time"))
-    return quote_at(lagged, quotes, "_quote_time", ("bid", "ask"))
+    return quote_at(lagged, quotes, "_quote_time", ("bid", "ask"), in_order=in_order)
 
 
 def trade_benchmarks(
