@@ -100,21 +100,33 @@ def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[s
     Rows dated before the sample (or without a timestamp) belong to the first
     partition, rows after it to the last, so every row lands in one partition.
     """
-    day, clock = local_clock(pl.col("ts"), market)
     first, last = sample
+    # a month between the first and the last holds only its window's instants: the local
+    # clock is then integer arithmetic on them (liqpanel.markets.local_clock)
+    day, clock = local_clock(pl.col("ts"), market, _window(month) if first < month < last else None)
     frame = _with_helpers(frame).filter(_near_month(month, first, last))
     frame = frame.with_columns(
         pl.col("security").fill_null(MISSING_SECURITY),
         day.alias("date"),
-        day.dt.strftime("%Y-%m").alias("_month"),
+        (day.dt.year().cast(pl.Int32) * 12 + day.dt.month().cast(pl.Int32) - 1).alias("_month"),
         clock.alias("_time"),
     )
-    home = (
-        pl.when(pl.col("_month").is_null() | (pl.col("_month") < first)).then(pl.lit(first))
-        .when(pl.col("_month") > last).then(pl.lit(last))
-        .otherwise(pl.col("_month"))
-    )
-    return frame.filter(home == month)
+    lo, hi = _month_number(first), _month_number(last)
+    home = pl.col("_month").fill_null(lo).clip(lo, hi)  # before the sample: the first month; after: the last
+    return frame.filter(home == _month_number(month))
+
+
+def _month_number(month: str) -> int:
+    """'YYYY-MM' as months since year 0, the number ``_partition`` gives each row's local month."""
+    year, mon = map(int, month.split("-"))
+    return year * 12 + mon - 1
+
+
+def _window(month: str) -> tuple[datetime, datetime]:
+    """UTC instants from two days before the month to two days after it (no offset exceeds 14 hours)."""
+    start = datetime.fromisoformat(f"{month}-01").replace(tzinfo=timezone.utc)
+    end = (start + timedelta(days=32)).replace(day=1)
+    return start - timedelta(days=2), end + timedelta(days=2)
 
 
 def _near_month(month: str, first: str, last: str) -> pl.Expr:
@@ -123,9 +135,7 @@ def _near_month(month: str, first: str, last: str) -> pl.Expr:
     Lets each partition skip most of a large file before any local-time work;
     the exact local-month test follows.
     """
-    start = datetime.fromisoformat(f"{month}-01").replace(tzinfo=timezone.utc)
-    end = (start + timedelta(days=32)).replace(day=1)
-    lo, hi = start - timedelta(days=2), end + timedelta(days=2)
+    lo, hi = _window(month)
     ts = pl.col("ts")
     keep = ts.is_null() | ((ts >= lo) & (ts < hi))
     if month == first:
@@ -172,7 +182,8 @@ def _common_rules(frame: pl.LazyFrame, market: dict, rules: dict, *, numeric: tu
     missing = pl.any_horizontal([pl.col(c).is_null() for c in required]) | (pl.col("security") == MISSING_SECURITY)
     reason = pl.when(pl.col("_bad").is_not_null()).then(pl.lit("unparseable"))
     reason = reason.when(missing).then(pl.lit("missing_field"))
-    reason = reason.when((pl.col("_month") < first) | (pl.col("_month") > last)).then(pl.lit("outside_sample"))
+    outside = ~pl.col("_month").is_between(_month_number(first), _month_number(last))
+    reason = reason.when(outside).then(pl.lit("outside_sample"))
     if rules.get("nonpositive", True):
         reason = reason.when(pl.any_horizontal([pl.col(c) <= 0 for c in numeric])).then(pl.lit("nonpositive"))
     if rules.get("outside_session", True):
