@@ -112,6 +112,32 @@ def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config
     write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments), out)
 
 
+def trades_span(config: dict, months: list[str], paths: dict[str, list[str]]) -> None:
+    """Clean and bars of each month of a span, in one process (one cluster job).
+
+    ``paths``: per month, in the order of ``months``, the files ``trades``,
+    ``audit``, ``quotes`` (clean) and ``bars``; each month is written as its
+    own partition, exactly as ``clean_month`` and ``bars_month`` write it.
+    """
+    for i, month in enumerate(months):
+        clean_month(config, month, paths["trades"][i], paths["audit"][i], paths["quotes"][i])
+        bars_month(paths["trades"][i], paths["bars"][i], config, paths["quotes"][i])
+
+
+def daily_span(config: dict, bars_paths: list[str], previous_bars_path: str | None, out_paths: list[str]) -> None:
+    """``daily_month`` for consecutive months; ``previous_bars_path``: the month before the first, or None."""
+    for bars_path, out in zip(bars_paths, out_paths, strict=True):
+        daily_month(bars_path, previous_bars_path, out, config)
+        previous_bars_path = bars_path
+
+
+def measures_span(config: dict, daily_paths: list[str], previous_daily_path: str | None, out_paths: list[str]) -> None:
+    """``measures_month`` for consecutive months; ``previous_daily_path``: the month before the first, or None."""
+    for daily_path, out in zip(daily_paths, out_paths, strict=True):
+        measures_month(config, daily_path, previous_daily_path, out)
+        previous_daily_path = daily_path
+
+
 def read_daily_file(path: str, mapping: dict[str, str]) -> pl.LazyFrame:
     """A user's daily file in the daily contract (see DEVELOPERS.md).
 
