@@ -32,20 +32,24 @@ from liqpanel import intraday
 from liqpanel.contracts import month_of
 
 
-def trading_bars(trades: pl.LazyFrame, timezone: str | None = None) -> pl.LazyFrame:
+def trading_bars(trades: pl.LazyFrame, timezone: str | None = None, *, in_order: bool = False) -> pl.LazyFrame:
     """OHLC, volume, dollar volume, VWAP and trade count per security-day.
 
     ``trades`` follows the trades contract; if it has no ``date`` column the
-    local date is taken in ``timezone``.
+    local date is taken in ``timezone``. ``in_order``: the trades are already
+    in security and time order (a clean partition is), so the days are
+    aggregated in that order without sorting the security names.
     """
     if "date" not in trades.collect_schema().names():
         if timezone is None:
             raise ValueError("trading_bars needs a `date` column or a timezone")
         trades = trades.with_columns(pl.col("ts").dt.convert_time_zone(timezone).dt.date().alias("date"))
-    return (
-        trades.sort("security", "ts")
-        .group_by("security", "date")
-        .agg(
+    if in_order:
+        days = trades.group_by("security", "date", maintain_order=True)
+    else:
+        days = trades.sort("security", "ts").group_by("security", "date")
+    bars = (
+        days.agg(
             pl.col("price").first().alias("open"),
             pl.col("price").max().alias("high"),
             pl.col("price").min().alias("low"),
@@ -58,8 +62,8 @@ def trading_bars(trades: pl.LazyFrame, timezone: str | None = None) -> pl.LazyFr
             (pl.col("dollar_volume") / pl.col("volume")).alias("vwap"),
             month_of("date").alias("month"),
         )
-        .sort("security", "date")
     )
+    return bars if in_order else bars.sort("security", "date")
 
 
 def add_returns(
@@ -136,6 +140,8 @@ def intraday_bars(
     market: dict,
     options: dict | None = None,
     columns: Iterable[str] | None = None,
+    *,
+    in_order: bool = False,
 ) -> pl.LazyFrame:
     """Daily bars with the high-frequency benchmarks and realized variance.
 
@@ -145,6 +151,7 @@ def intraday_bars(
     ``columns``: the daily columns wanted beyond the trading bars (see
     ``needed_columns``); the spread benchmarks are computed only when one of
     theirs is wanted, the realized variance likewise; None wants all.
+    ``in_order``: the trades are in security and time order (``trading_bars``).
     """
     options = {**BAR_OPTIONS, **(options or {})}
     rv_options = {**BAR_OPTIONS["realized_variance"], **(options.get("realized_variance") or {})}
@@ -152,7 +159,7 @@ def intraday_bars(
     groups = {"benchmarks": intraday.benchmark_columns(), "variance": intraday.VARIANCE_COLUMNS}
     groups = {name: group for name, group in groups.items() if wanted & set(group)}
     trades = intraday.with_local_date(trades, market)
-    bars = trading_bars(trades)
+    bars = trading_bars(trades, in_order=in_order)
     if not groups:
         return bars
     if quotes is None:

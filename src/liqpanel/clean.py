@@ -94,18 +94,20 @@ def _with_helpers(frame: pl.LazyFrame) -> pl.LazyFrame:
     return frame.with_columns(extra) if extra else frame
 
 
-def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[str, str]) -> pl.LazyFrame:
+def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[str, str]) -> pl.DataFrame:
     """The rows of one month partition, with local date and time of day.
 
     Rows dated before the sample (or without a timestamp) belong to the first
     partition, rows after it to the last, so every row lands in one partition.
     """
     first, last = sample
-    # a month between the first and the last holds only its window's instants: the local
-    # clock is then integer arithmetic on them (liqpanel.markets.local_clock)
-    day, clock = local_clock(pl.col("ts"), market, _window(month) if first < month < last else None)
-    frame = _with_helpers(frame).filter(_near_month(month, first, last))
-    frame = frame.with_columns(
+    frame = _with_helpers(frame).filter(_near_month(month, first, last)).collect()
+    # the rows' own first and last instants bound the local clock's offsets: a month's
+    # window, or more in the first and last partitions (liqpanel.markets.local_clock)
+    utc = pl.col("ts").dt.convert_time_zone("UTC")
+    span = frame.select(utc.min().alias("lo"), utc.max().alias("hi")).row(0)
+    day, clock = local_clock(pl.col("ts"), market, span if None not in span else None)
+    frame = frame.lazy().with_columns(
         pl.col("security").fill_null(MISSING_SECURITY),
         day.alias("date"),
         (day.dt.year().cast(pl.Int32) * 12 + day.dt.month().cast(pl.Int32) - 1).alias("_month"),
@@ -113,7 +115,7 @@ def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[s
     )
     lo, hi = _month_number(first), _month_number(last)
     home = pl.col("_month").fill_null(lo).clip(lo, hi)  # before the sample: the first month; after: the last
-    return frame.filter(home == _month_number(month))
+    return frame.filter(home == _month_number(month)).collect()
 
 
 def _month_number(month: str) -> int:
@@ -282,7 +284,7 @@ def _merge_same_time(frame: pl.LazyFrame, medians: list[str], sums: list[str]) -
 
 def flag_quotes(quotes: pl.LazyFrame, market: dict, rules: dict, *, month: str, sample: tuple[str, str]) -> pl.LazyFrame:
     """Every quote of the partition with ``drop_rule`` (null when kept)."""
-    frame = _in_order(_partition(quotes, market, month=month, sample=sample).collect()).lazy()
+    frame = _in_order(_partition(quotes, market, month=month, sample=sample)).lazy()
     frame = frame.with_columns(_common_rules(frame, market, rules, numeric=("bid", "ask"), sample=sample)
                                .otherwise(None).cast(pl.String).alias("drop_rule"))
     names = frame.collect_schema().names()
@@ -316,7 +318,7 @@ def flag_trades(
     outside-quotes and no-quote rules. Collected here because the outlier
     filter works on a whole partition at once.
     """
-    frame = _in_order(_partition(trades, market, month=month, sample=sample).collect()).lazy()
+    frame = _in_order(_partition(trades, market, month=month, sample=sample)).lazy()
     names = frame.collect_schema().names()
     reason = _common_rules(frame, market, rules, numeric=("price", "size"), sample=sample)
     for column, rule in (("correction", "correction"), ("cond", "excluded_condition")):

@@ -140,9 +140,10 @@ def local_clock(ts: pl.Expr, market: dict, span: tuple[datetime, datetime] | Non
     zone changes its offset a handful of times at most (a daylight-saving
     change or none), so the local clock is integer arithmetic on the
     microseconds: UTC plus the offset in force, read from Python's
-    ``zoneinfo`` at each change. Without a span, or for one outside
-    1900-2099 (the years over which the two time-zone engines agree), the
-    table engine converts each timestamp. Both give the same dates and times.
+    ``zoneinfo`` at each change. Without a span, for one outside 1900-2099
+    (the years over which the two time-zone engines agree) or one longer
+    than a year, the table engine converts each timestamp. Both give the
+    same dates and times.
     """
     offsets = _offsets_within(market["timezone"], *span) if span is not None else None
     if offsets is None:
@@ -168,9 +169,10 @@ def _offsets_within(zone_name: str, first: datetime, last: datetime) -> list[tup
 
     Each change is the first microsecond of the new offset; the zone is
     read at every day of the span and a change located by bisection (no
-    zone changes its offset twice within a day). None outside 1900-2099.
+    zone changes its offset twice within a day). None outside 1900-2099, or
+    for a span of more than a year (a stray timestamp far from the month).
     """
-    if first < _AGREED[0] or last >= _AGREED[1]:
+    if first < _AGREED[0] or last >= _AGREED[1] or last - first > timedelta(days=400):
         return None
     zone = zoneinfo.ZoneInfo(zone_name)
 

@@ -100,7 +100,8 @@ def bars_month(clean_trades_path: str, out: str, config: dict | None = None, cle
     market = load_market(config["market"])
     quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
     columns = bars_mod.needed_columns(config["measures"]) if config.get("measures") else None
-    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars"), columns), out)
+    # a clean partition is in security and time order (liqpanel.clean.kept_rows)
+    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars"), columns, in_order=True), out)
 
 
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
