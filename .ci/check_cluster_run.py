@@ -7,7 +7,11 @@ Usage: python check_cluster_run.py LOCAL_DIR CLUSTER_DIR
    distinct, slurmctld reports each as COMPLETED (squeue --states=all; the
    test cluster keeps finished jobs for an hour), and each job's SLURM log
    shows its rule finishing.
-2. Both runs wrote the same results folder (same run-id), byte-identical CSV
+2. The plan has one job per span of months for each of clean + bars, daily
+   and measures (run.span_months of the config, a calendar year by default)
+   and one job for each whole-sample stage: the count of SLURM jobs is
+   exactly that.
+3. Both runs wrote the same results folder (same run-id), byte-identical CSV
    tables, and equal Parquet tables, under results/ and under work/ (every
    partition).
 Exits non-zero with a message naming the first difference.
@@ -67,10 +71,29 @@ def check_jobs(cluster: Path) -> int:
             fail(f"SLURM job {slurm_id} ({path}) does not show rule {rule} finishing")
     counts: dict[str, int] = {}
     for name in remote:
-        counts[name] = counts.get(name, 0) + 1
+        stage = re.sub(r"_\d{4}_\d{2}$", "", name)  # a span's job: stage_<first month>
+        counts[stage] = counts.get(stage, 0) + 1
     print(f"check: {len(ids)} jobs ran as SLURM jobs {min(map(int, ids))}-{max(map(int, ids))}, "
           f"all COMPLETED: " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
     return len(ids)
+
+
+def check_job_count(cluster: Path, jobs: int) -> None:
+    """One job per span and span stage, one per whole-sample stage: nothing per month."""
+    from liqpanel.config import load_config
+    from liqpanel.io import month_range
+    from liqpanel.partition import spans
+
+    config = load_config(cluster / "config" / "config.yaml")
+    months = month_range(config["sample"]["start"], config["sample"]["end"])
+    n_spans = len(spans(months, config["run"]["span_months"]))
+    whole = ["audit", "monthly", "panel", "models", "report"] + (["study"] if config["study"]["in_report"] else [])
+    expected = 3 * n_spans + len(whole)
+    if jobs != expected:
+        fail(f"{jobs} SLURM jobs for {len(months)} months; the plan has {expected} "
+             f"({n_spans} spans x clean + bars, daily, measures; {', '.join(whole)})")
+    print(f"check: {jobs} jobs for {len(months)} months in {n_spans} spans of "
+          f"{config['run']['span_months']} months, as planned")
 
 
 def same_tree(local: Path, cluster: Path, pattern: str) -> int:
@@ -107,5 +130,5 @@ if __name__ == "__main__":
     if len(sys.argv) != 3:
         sys.exit(__doc__)
     local_dir, cluster_dir = (Path(p).resolve() for p in sys.argv[1:])
-    check_jobs(cluster_dir)
+    check_job_count(cluster_dir, check_jobs(cluster_dir))
     check_tables(local_dir, cluster_dir)

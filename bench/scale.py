@@ -1,23 +1,27 @@
-"""How the month-partitioned stages scale: markets of 1x, 4x and 16x a base size.
+"""How the workflow's jobs scale: markets of 1x, 4x and 16x a base size.
 
 The base market is ``--base-months`` months of ``--securities`` invented
 securities (``liqpanel.simulate``); the 4x and 16x markets are its first 4
 and 16 times as many months (same securities, about the same trades per
 month), each written as one trade file in time order, as vendors deliver
-them. Each market goes
-through clean -> bars -> daily -> measures exactly as the workflow runs it:
-one process per stage and month partition (as one Snakemake job would be),
-``--jobs`` at a time, each polars query limited to ``--threads`` threads.
-For every size it reports the wall time, trades per second, and the peak
-resident memory of each kind of job (the largest over its partitions,
-measured by the operating system for each process). Cleaning applies the
-missing-field, sample, non-positive, session and duplicate rules (the
-outlier filter and the same-time merge are off, as in the pandas script).
+them. Each market goes through the workflow's jobs exactly as Snakemake runs
+them: one process per stage and span of ``--span`` months (clean + bars,
+daily, measures; a calendar year by default), ``--jobs`` at a time, each
+polars query limited to ``--threads`` threads. For every size it reports the
+wall time, the CPU time of all jobs with their start-up, trades per CPU
+second of the whole chain and of clean + bars alone, and the peak resident
+memory of each kind of job (the largest over its spans, measured by the
+operating system for each process). Cleaning applies the missing-field,
+sample, non-positive, session and duplicate rules (the outlier filter and
+the same-time merge are off, as in the pandas script).
 
 Side by side on the 1x and 4x markets (``--pandas-sizes``): a naive pandas
 script that loads the whole trade file and computes the same daily table and
 the Roll and Amihud measures in one process; its results are checked against
-ours before its time counts.
+ours before its time counts. Below the table: the number of jobs the
+workflow plans for 2 and 20 years of data, against one job per month and
+stage, and the CPU time a job spends starting (Python, polars and the stage
+modules).
 
 Run: ``make bench-scale`` (or ``python -m bench.scale --help``). No assertion is
 made on time: the table is the result.
@@ -39,7 +43,7 @@ from pathlib import Path
 import numpy as np
 import polars as pl
 
-STAGES = ("clean", "bars", "daily", "measures")
+STAGES = ("trades", "daily", "measures")  # the workflow's jobs per span: clean + bars, daily, measures
 MEASURES = {"roll_spread": {"convention": "missing"}, "amihud": None}
 # the rules the pandas script applies too: the outlier filter and the merge of
 # same-time records are off, so both compute the same numbers
@@ -98,20 +102,20 @@ def config_for(trades: Path, n_months: int) -> dict:
 
 
 def job_main(spec: dict) -> None:
-    """Run one stage of one partition (the body of one workflow job) and print its seconds."""
+    """Run one stage of one span (the body of one workflow job) and print its seconds."""
     from liqpanel import stages
 
     config = json.loads(Path(spec["config"]).read_text()) if spec.get("config") else None
     start = time.process_time()
     paths, stage = spec.get("paths", {}), spec["stage"]
-    if stage == "clean":
-        stages.clean_month(config, spec["month"], paths["clean"], paths["audit"], paths["quotes"])
-    elif stage == "bars":
-        stages.bars_month(paths["clean"], paths["bars"], config, paths["quotes"])
+    if stage == "trades":
+        stages.trades_span(config, spec["months"], {k: paths[k] for k in ("trades", "audit", "quotes", "bars")})
     elif stage == "daily":
-        stages.daily_month(paths["bars"], spec.get("previous_bars"), paths["daily"], config)
+        stages.daily_span(config, paths["bars"], spec.get("previous_bars"), paths["daily"])
     elif stage == "measures":
-        stages.measures_month(config, paths["daily"], spec.get("previous_daily"), paths["measures"])
+        stages.measures_span(config, paths["daily"], spec.get("previous_daily"), paths["measures"])
+    elif stage == "start":  # nothing: what a job costs before its work
+        pass
     elif stage == "pandas":
         pandas_monthly(spec["trades"], spec["months"]).to_parquet(spec["out"])
     else:
@@ -150,41 +154,58 @@ def run_job(spec: dict, threads: int) -> dict:
     return {"wall": wall, **report}
 
 
-def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int) -> dict:
+def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int, span: int) -> dict:
+    from liqpanel.partition import spans
+
     config = config_for(trades, n_months)
     config_path = work / "config.json"
     work.mkdir(parents=True, exist_ok=True)
     config_path.write_text(json.dumps(config))
     months = month_list(n_months)
+    blocks = spans(months, span)
 
-    def paths(m: str) -> dict[str, str]:
-        return {s: str(work / s / f"month={m}" / f"{s}.parquet") for s in (*STAGES, "audit", "quotes")}
+    def paths(ms: list[str]) -> dict[str, list[str]]:
+        names = {"trades": "clean/trades", "audit": "clean/audit", "quotes": "clean/quotes", "bars": "bars/bars",
+                 "daily": "daily/daily", "measures": "measures/monthly"}
+        return {k: [str(work / v.split("/")[0] / f"month={m}" / f"{v.split('/')[1]}.parquet") for m in ms]
+                for k, v in names.items()}
 
     def spec(stage: str, i: int) -> dict:
-        m = months[i]
-        s = {"stage": stage, "month": m, "paths": paths(m), "config": str(config_path)}
-        if i:
-            s["previous_bars"] = paths(months[i - 1])["bars"]
-            s["previous_daily"] = paths(months[i - 1])["daily"]
+        block = blocks[i]
+        s = {"stage": stage, "months": block, "paths": paths(block), "config": str(config_path)}
+        first = months.index(block[0])
+        if first:
+            before = paths([months[first - 1]])
+            s["previous_bars"], s["previous_daily"] = before["bars"][0], before["daily"][0]
         return s
 
     per_stage = {}
     started = time.perf_counter()
     with ThreadPoolExecutor(max_workers=jobs) as pool:
-        for stage in STAGES:  # each stage's partitions depend only on earlier stages
-            per_stage[stage] = list(pool.map(lambda i: run_job(spec(stage, i), threads), range(n_months)))
+        for stage in STAGES:  # each stage's spans depend only on earlier stages
+            per_stage[stage] = list(pool.map(lambda i: run_job(spec(stage, i), threads), range(len(blocks))))
     wall = time.perf_counter() - started
-    monthly = pl.concat([pl.read_parquet(paths(m)["measures"]) for m in months]).sort("security", "month")
+    monthly = pl.concat([pl.read_parquet(p) for p in paths(months)["measures"]]).sort("security", "month")
     return {
         "months": n_months,
         "trades": pl.scan_parquet(trades).select(pl.len()).collect().item(),
-        "jobs": n_months * len(STAGES),
+        "jobs": len(blocks) * len(STAGES),
         "wall": wall,
         "cpu": sum(r["process_cpu"] for runs in per_stage.values() for r in runs),
+        "trades_cpu": sum(r["process_cpu"] for r in per_stage["trades"]),
         "mean_job": {s: sum(r["cpu"] for r in runs) / len(runs) for s, runs in per_stage.items()},
         "peak_mb": {s: max(r["peak_mb"] for r in runs) for s, runs in per_stage.items()},
         "monthly": monthly,
     }
+
+
+def job_plan(years: int, span: int) -> tuple[int, int]:
+    """(jobs planned, jobs at one per month and stage) for ``years`` of data, as the workflow plans them."""
+    from liqpanel.partition import spans
+
+    months = month_list(12 * years)
+    whole = 6  # audit, monthly table, panel, models, study, report
+    return len(STAGES) * len(spans(months, span)) + whole, 4 * len(months) + whole
 
 
 # ---------------------------------------------------------------- the naive baseline
@@ -267,41 +288,50 @@ def machine() -> str:
             f"polars {pl.__version__}, pandas {pd.__version__}")
 
 
-def table(results: dict[int, dict], baselines: dict[int, dict], jobs: int, threads: int, order: str) -> str:
+def table(results: dict[int, dict], baselines: dict[int, dict], args, start: dict) -> str:
     one = results[min(results)]
     largest_one = max(one["peak_mb"].values())
     lines = [
-        "| market | partitions | trades | wall time (s) | CPU time (s) | CPU / 1x | trades per CPU second "
-        "| CPU per job (s): clean / bars / daily / measures "
-        "| peak memory per job (MB): clean / bars / daily / measures | largest job / 1x |",
-        "|---|---:|---:|---:|---:|---:|---:|---|---|---:|",
+        "| market | months | jobs | trades | wall time (s) | CPU time (s) | CPU / 1x | trades per CPU second "
+        "| clean + bars: trades per CPU second | CPU per job (s): clean + bars / daily / measures "
+        "| peak memory per job (MB): clean + bars / daily / measures | largest job / 1x |",
+        "|---|---:|---:|---:|---:|---:|---:|---:|---:|---|---|---:|",
     ]
     for k, r in sorted(results.items()):
         times = " / ".join(f"{r['mean_job'][s]:.2f}" for s in STAGES)
         peaks = " / ".join(f"{r['peak_mb'][s]:.0f}" for s in STAGES)
         lines.append(
-            f"| {k}x | {r['months']} | {r['trades']:,} | {r['wall']:.1f} | {r['cpu']:.1f} | {r['cpu'] / one['cpu']:.2f} "
-            f"| {r['trades'] / r['cpu']:,.0f} | {times} | {peaks} | {max(r['peak_mb'].values()) / largest_one:.2f} |"
+            f"| {k}x | {r['months']} | {r['jobs']} | {r['trades']:,} | {r['wall']:.1f} | {r['cpu']:.1f} "
+            f"| {r['cpu'] / one['cpu']:.2f} | {r['trades'] / r['cpu']:,.0f} | {r['trades'] / r['trades_cpu']:,.0f} "
+            f"| {times} | {peaks} | {max(r['peak_mb'].values()) / largest_one:.2f} |"
         )
     first = baselines[min(baselines)]
     for k, b in sorted(baselines.items()):
         trades = results[k]["trades"]
         lines.append(
-            f"| pandas, {k}x | whole file | {trades:,} | {b['wall']:.1f} | {b['process_cpu']:.1f} "
-            f"| {b['process_cpu'] / first['process_cpu']:.2f} | {trades / b['process_cpu']:,.0f} "
+            f"| pandas, {k}x | {results[k]['months']} | 1 | {trades:,} | {b['wall']:.1f} | {b['process_cpu']:.1f} "
+            f"| {b['process_cpu'] / first['process_cpu']:.2f} | {trades / b['process_cpu']:,.0f} | - "
             f"| {b['cpu']:.2f} (one script) | {b['peak_mb']:.0f} (one script) | {b['peak_mb'] / first['peak_mb']:.2f} |"
         )
+    ratios = "; ".join(
+        f"{k}x: {b['process_cpu'] / results[k]['trades_cpu']:.1f}x (whole chain {b['process_cpu'] / results[k]['cpu']:.1f}x)"
+        for k, b in sorted(baselines.items())
+    )
+    plans = "; ".join(f"{y} years: {job_plan(y, args.span)[0]} jobs (one per month and stage: {job_plan(y, args.span)[1]})"
+                      for y in (2, 20))
     b = first
     footer = [
         "",
-        f"One process per stage and month partition (as one workflow job), {jobs} at a time, {threads} polars "
-        "thread(s) each. CPU time adds up every job's process, start-up included; CPU per job is the stage "
-        "alone, averaged over the partitions; peak memory is the largest over the partitions. "
+        f"One process per stage and span of {args.span} months (as one workflow job), {args.jobs} at a time, "
+        f"{args.threads} polars thread(s) each. CPU time adds up every job's process, start-up included; CPU per "
+        "job is the stage alone, averaged over the spans; peak memory is the largest over the spans. "
         "x / 1x compares with the 1x market of the same program.",
-        f"pandas against liqpanel at {min(baselines)}x: {b['process_cpu'] / one['cpu']:.2f}x the CPU time, "
-        f"{b['peak_mb'] / largest_one:.2f}x the peak memory of liqpanel's largest job; "
+        f"Trades per CPU second of clean + bars (start-up included) against the pandas script: {ratios}.",
+        f"pandas at {min(baselines)}x: {b['peak_mb'] / largest_one:.2f}x the peak memory of liqpanel's largest job; "
         f"same results (largest relative difference: Roll {b['diff_roll']:.1e}, Amihud {b['diff_amihud']:.1e}).",
-        f"Trade files in {order} order. Machine: {machine()}.",
+        f"Jobs planned: {plans}. Start-up of a job process (Python, polars, liqpanel.stages): "
+        f"{start['process_cpu']:.2f} CPU-s, {start['peak_mb']:.0f} MB.",
+        f"Trade files in {args.order} order. Machine: {machine()}.",
     ]
     return "\n".join(lines + footer)
 
@@ -314,6 +344,7 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--securities", type=int, default=100, help="securities in every market (default 100)")
     parser.add_argument("--jobs", type=int, default=2, help="jobs run at once (default 2)")
     parser.add_argument("--threads", type=int, default=1, help="polars threads per job (default 1)")
+    parser.add_argument("--span", type=int, default=12, help="months per job, as run.span_months (default 12)")
     parser.add_argument("--order", choices=("time", "security"), default="time",
                         help="row order of the trade files (default time)")
     parser.add_argument("--seed", type=int, default=20240611)
@@ -332,14 +363,16 @@ def main(argv: list[str] | None = None) -> None:
         print(f"simulated the markets in {time.perf_counter() - t0:.0f}s; running...", file=sys.stderr)
         results, baselines = {}, {}
         for k in sizes:
-            results[k] = run_market(files[months[k]], months[k], root / f"x{k}" / "work", args.jobs, args.threads)
+            results[k] = run_market(files[months[k]], months[k], root / f"x{k}" / "work", args.jobs, args.threads,
+                                    args.span)
             print(f"  {k}x done in {results[k]['wall']:.1f}s", file=sys.stderr)
         for k in pandas_sizes:
             baselines[k] = b = run_pandas(files[months[k]], months[k], root / f"x{k}", args.threads)
             b["diff_roll"] = largest_difference(results[k]["monthly"], b["monthly"], "roll_spread")
             b["diff_amihud"] = largest_difference(results[k]["monthly"], b["monthly"], "amihud")
             print(f"  pandas {k}x done in {b['wall']:.1f}s", file=sys.stderr)
-    print(table(results, baselines, args.jobs, args.threads, args.order))
+        start = min((run_job({"stage": "start"}, args.threads) for _ in range(3)), key=lambda r: r["process_cpu"])
+    print(table(results, baselines, args, start))
 
 
 if __name__ == "__main__":

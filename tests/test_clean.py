@@ -9,6 +9,7 @@ with Python's ``zoneinfo`` (the IANA database), independently of polars.
 from datetime import datetime, timezone
 from zoneinfo import ZoneInfo
 
+import numpy as np
 import polars as pl
 import pytest
 
@@ -236,3 +237,42 @@ def test_daily_bars_from_clean_trades(cleaned):
     assert aaa["volume"] == sum(sizes) and aaa["n_trades"] == len(prices)
     assert aaa["dollar_volume"] == pytest.approx(sum(p * s for p, s in zip(prices, sizes)))
     assert aaa["vwap"] == pytest.approx(aaa["dollar_volume"] / aaa["volume"])
+
+
+def _scrambled_trades(order: str) -> pl.DataFrame:
+    """Trades with many exact copies and same-time records, in time order or shuffled; a few without a time."""
+    rng = np.random.default_rng(11)
+    n = 4000
+    frame = pl.DataFrame({
+        "security": rng.choice(["KX2", "AB1", "ZQ9", "M00"], n),
+        "ts": [_local(4 + int(d), 10, int(m), int(s)) for d, m, s in zip(rng.integers(0, 3, n), rng.integers(0, 3, n),
+                                                                          rng.integers(0, 60, n))],
+        "price": rng.choice([10.0, 10.01, 10.02, 9.99], n),
+        "size": rng.choice([100.0, 200.0], n),
+    }).with_columns(pl.when(pl.int_range(pl.len()) % 997 == 5).then(None).otherwise(pl.col("ts")).alias("ts"))
+    return frame.sort("ts", "security", nulls_last=True) if order == "time" else frame
+
+
+@pytest.mark.parametrize("order", ["time", "shuffled"])
+def test_duplicates_and_same_time_merges_match_pandas_in_any_input_order(order):
+    # pandas as the reference: a stable sort on security, time and input row; exact copies
+    # dropped (keep the first), then one record per security and time with the median
+    # price and summed size (BNHLS 2009, T3); rows without a time dropped first
+    trades = _scrambled_trades(order)
+    rules = {**RULES_ON, "same_timestamp": "merge"}
+    kept, audit = clean_trades(trades.lazy(), MARKET, rules, month="2021-01", sample=("2021-01", "2021-01"))
+    kept, audit = kept.collect(), audit.collect()
+
+    frame = trades.to_pandas()
+    frame["row"] = range(len(frame))
+    frame = frame.dropna(subset=["ts"]).sort_values(["security", "ts", "row"], kind="stable")
+    unique = frame[~frame.duplicated(subset=["security", "ts", "price", "size"], keep="first")]
+    expected = unique.groupby(["security", "ts"], sort=True).agg(price=("price", "median"), size=("size", "sum"))
+    expected = expected.reset_index()
+    assert kept.height == len(expected) and kept.height < trades.height / 2  # most rows are copies or same-time
+    assert kept["security"].to_list() == expected["security"].tolist()
+    assert kept["ts"].dt.epoch("us").to_list() == expected["ts"].dt.as_unit("us").astype("int64").tolist()
+    assert kept["price"].to_list() == pytest.approx(expected["price"].tolist(), abs=0)
+    assert kept["size"].to_list() == expected["size"].tolist()
+    totals = audit.select(pl.col("drop_duplicate", "drop_merged_same_time", "drop_missing_field").sum()).row(0)
+    assert totals == (len(frame) - len(unique), len(unique) - len(expected), trades["ts"].null_count())

@@ -11,7 +11,9 @@ import pandas as pd
 import polars as pl
 import pytest
 
-from liqpanel.bars import add_returns, intraday_bars
+from polars.testing import assert_frame_equal
+
+from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market
 from liqpanel.intraday import SPREAD_MEASURES, daily_benchmarks, realized_variance, trade_benchmarks
 from liqpanel.measures import compute_monthly
@@ -184,3 +186,24 @@ def test_bars_without_quotes_keep_every_benchmark_column_missing(roll_market):
     assert bars["realized_variance"].null_count() == 0  # from trade prices
     assert bars.schema["n_quoted"] == pl.Int64 and bars["n_quoted"].sum() == 0
     assert bars["date"].min() == date(2021, 1, 1)  # the simulator's first business day
+
+
+@pytest.mark.parametrize(
+    ("measures", "expected"),
+    [
+        ({"roll_spread": None, "amihud": None}, []),
+        ({"realized_variance": None}, ["realized_variance", "realized_variance_returns"]),
+        ({"price_impact": None, "roll_spread": None},
+         ["n_quoted", "n_signed", *SPREAD_MEASURES, *[f"{m}_size_weighted" for m in SPREAD_MEASURES]]),
+    ],
+)
+def test_bars_compute_only_the_columns_the_selected_measures_read(roll_market, measures, expected):
+    # the narrow bars must equal the same columns of the full bars, value for value
+    full = intraday_bars(roll_market.trades.lazy(), roll_market.quotes.lazy(), DEMO).collect()
+    wanted = needed_columns(measures)
+    assert set(wanted) <= set(expected) and (not expected or wanted)
+    narrow = intraday_bars(roll_market.trades.lazy(), roll_market.quotes.lazy(), DEMO, columns=wanted).collect()
+    base = ["security", "date", "open", "high", "low", "close", "volume", "dollar_volume", "n_trades", "vwap", "month"]
+    assert narrow.columns == base + expected
+    assert_frame_equal(narrow, full.select(narrow.columns))
+    assert full.height == 3 * 21 and full["effective_spread"].null_count() == 0  # the full bars had values to compare

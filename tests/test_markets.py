@@ -99,3 +99,38 @@ def test_bad_profiles_are_refused_naming_file_and_key(tmp_path, change, needle):
         load_market(str(path))
     assert needle in str(info.value) and "bad.yaml" in str(info.value)
 
+
+
+@pytest.mark.parametrize(
+    ("profile", "month"),
+    [
+        ("demo", "2021-03"),        # New York: clocks forward on 14 March, 02:00 -> 03:00
+        ("demo", "2021-11"),        # New York: clocks back on 7 November, 02:00 -> 01:00 (an hour twice)
+        ("tidewater", "2021-04"),   # Auckland: clocks back on 4 April; the session crosses UTC midnight
+        ("tidewater", "2021-09"),   # Auckland: clocks forward on 26 September
+        ("kestrel", "2021-06"),     # Kolkata: UTC+05:30 all year, no change
+    ],
+)
+def test_integer_local_clock_matches_zoneinfo_across_clock_changes(profile, month):
+    # every 7 minutes and 13 seconds over the month's window, and each second around the change
+    from liqpanel.clean import _window
+    from liqpanel.markets import _offsets_within, local_clock
+
+    market = load_market(profile)
+    zone = ZoneInfo(market["timezone"])
+    lo, hi = _window(month)
+    step = pl.datetime_range(lo, hi, "433s", time_zone="UTC", eager=True)
+    frame = pl.DataFrame({"ts": step.dt.cast_time_unit("us")})
+    changes = [start for start, _ in _offsets_within(market["timezone"], lo, hi)[1:]]
+    assert len(changes) == (0 if profile == "kestrel" else 1)
+    for start in changes:  # the seconds either side of the change, to the microsecond
+        near = pl.Series([start + k * 1_000_000 + d for k in range(-3, 4) for d in (-1, 0, 1)]).cast(pl.Datetime("us", "UTC"))
+        frame = pl.concat([frame, pl.DataFrame({"ts": near})])
+    day, clock = local_clock(pl.col("ts"), market, (lo, hi))
+    got = frame.select(day.alias("date"), clock.alias("time"))
+    local = [t.astimezone(zone) for t in frame["ts"].to_list()]
+    assert got["date"].to_list() == [t.date() for t in local]
+    assert got["time"].to_list() == [t.time().replace(tzinfo=None) for t in local]
+    if profile == "tidewater":  # a trading day that begins on the previous UTC date
+        opens = got.with_columns(frame["ts"]).filter(pl.col("time").is_between(time(10, 0), time(10, 8)))
+        assert (opens["ts"].dt.date() < opens["date"]).all() and opens.height > 20

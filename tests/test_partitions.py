@@ -22,13 +22,13 @@ import pytest
 from polars.testing import assert_frame_equal
 
 from liqpanel import readers, stages
-from liqpanel.bars import add_returns, intraday_bars
+from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market, validate_config
 from liqpanel.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
 from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
 from liqpanel.measures.roll import roll_spread
-from liqpanel.partition import PREVIOUS_DAY, month_window, stored_window, with_previous_day
+from liqpanel.partition import PREVIOUS_DAY, month_window, spans, stored_window, with_previous_day
 from liqpanel.simulate import simulate_market, write_market
 
 KEY = ["security", "month"]
@@ -203,7 +203,8 @@ def test_many_partitions_give_the_tables_of_one(tmp_path, small_market, gap_meas
 
     # the whole market at once: every clean trade in one frame, one daily table, one measures call
     clean = pl.concat([pl.read_parquet(p) for p in sorted(tmp_path.glob("clean/month=*/clean.parquet"))])
-    whole_bars = intraday_bars(clean.lazy(), None, load_market("demo"), config["bars"])
+    columns = needed_columns(config["measures"])  # the high-frequency columns these measures read: none
+    whole_bars = intraday_bars(clean.lazy(), None, load_market("demo"), config["bars"], columns)
     whole_daily = add_returns(whole_bars).collect()
     assert_frame_equal(daily, whole_daily)
     assert_frame_equal(monthly, compute_monthly(whole_daily.lazy(), config["measures"]))
@@ -273,3 +274,15 @@ def test_return_after_a_month_without_trading_is_missing_in_both_layouts():
         bars.filter(pl.col("month") == date(2021, 3, 1)).lazy(), bars.filter(pl.col("month") == date(2021, 2, 1)).lazy()
     ).collect()
     assert_frame_equal(march, whole.filter(pl.col("month") == date(2021, 3, 1)))
+
+
+def test_spans_are_calendar_blocks_that_cover_every_month_once():
+    # a sample from March 2021 to February 2023 in calendar years (the default), then in quarters
+    months = month_range("2021-03", "2023-02")
+    years = spans(months, 12)
+    assert [s[0] for s in years] == ["2021-03", "2022-01", "2023-01"]
+    assert [len(s) for s in years] == [10, 12, 2]
+    assert [m for s in years for m in s] == months
+    assert [s[0] for s in spans(months, 3)][:3] == ["2021-03", "2021-04", "2021-07"]
+    assert len(spans(month_range("2001-01", "2020-12"), 12)) == 20  # 20 years: 20 jobs per span stage
+    assert spans(months, 1) == [[m] for m in months]

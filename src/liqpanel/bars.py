@@ -24,26 +24,32 @@ spreads, price impact) and the daily realized variance join the bars.
 
 from __future__ import annotations
 
+from collections.abc import Iterable
+
 import polars as pl
 
 from liqpanel import intraday
 from liqpanel.contracts import month_of
 
 
-def trading_bars(trades: pl.LazyFrame, timezone: str | None = None) -> pl.LazyFrame:
+def trading_bars(trades: pl.LazyFrame, timezone: str | None = None, *, in_order: bool = False) -> pl.LazyFrame:
     """OHLC, volume, dollar volume, VWAP and trade count per security-day.
 
     ``trades`` follows the trades contract; if it has no ``date`` column the
-    local date is taken in ``timezone``.
+    local date is taken in ``timezone``. ``in_order``: the trades are already
+    in security and time order (a clean partition is), so the days are
+    aggregated in that order without sorting the security names.
     """
     if "date" not in trades.collect_schema().names():
         if timezone is None:
             raise ValueError("trading_bars needs a `date` column or a timezone")
         trades = trades.with_columns(pl.col("ts").dt.convert_time_zone(timezone).dt.date().alias("date"))
-    return (
-        trades.sort("security", "ts")
-        .group_by("security", "date")
-        .agg(
+    if in_order:
+        days = trades.group_by("security", "date", maintain_order=True)
+    else:
+        days = trades.sort("security", "ts").group_by("security", "date")
+    bars = (
+        days.agg(
             pl.col("price").first().alias("open"),
             pl.col("price").max().alias("high"),
             pl.col("price").min().alias("low"),
@@ -56,8 +62,8 @@ def trading_bars(trades: pl.LazyFrame, timezone: str | None = None) -> pl.LazyFr
             (pl.col("dollar_volume") / pl.col("volume")).alias("vwap"),
             month_of("date").alias("month"),
         )
-        .sort("security", "date")
     )
+    return bars if in_order else bars.sort("security", "date")
 
 
 def add_returns(
@@ -129,41 +135,68 @@ BAR_OPTIONS = {
 
 
 def intraday_bars(
-    trades: pl.LazyFrame, quotes: pl.LazyFrame | None, market: dict, options: dict | None = None
+    trades: pl.LazyFrame,
+    quotes: pl.LazyFrame | None,
+    market: dict,
+    options: dict | None = None,
+    columns: Iterable[str] | None = None,
+    *,
+    in_order: bool = False,
 ) -> pl.LazyFrame:
     """Daily bars with the high-frequency benchmarks and realized variance.
 
     ``trades`` and ``quotes`` are clean (``liqpanel.clean``); ``quotes`` may
     be None or empty, then the benchmark columns are missing (null) and the
     realized variance uses trade prices. ``options`` as ``BAR_OPTIONS``.
+    ``columns``: the daily columns wanted beyond the trading bars (see
+    ``needed_columns``); the spread benchmarks are computed only when one of
+    theirs is wanted, the realized variance likewise; None wants all.
+    ``in_order``: the trades are in security and time order (``trading_bars``).
     """
     options = {**BAR_OPTIONS, **(options or {})}
     rv_options = {**BAR_OPTIONS["realized_variance"], **(options.get("realized_variance") or {})}
+    wanted = set(intraday.daily_columns() if columns is None else columns)
+    groups = {"benchmarks": intraday.benchmark_columns(), "variance": intraday.VARIANCE_COLUMNS}
+    groups = {name: group for name, group in groups.items() if wanted & set(group)}
     trades = intraday.with_local_date(trades, market)
-    bars = trading_bars(trades)
+    bars = trading_bars(trades, in_order=in_order)
+    if not groups:
+        return bars
     if quotes is None:
         quotes = pl.LazyFrame(schema={"security": pl.String, "date": pl.Date, "ts": pl.Datetime("us", "UTC"),
                                       "bid": pl.Float64, "ask": pl.Float64})
     quotes = intraday.with_local_date(quotes, market)
-    per_trade = intraday.trade_benchmarks(
-        trades,
-        quotes,
-        market,
-        signing=options["signing"],
-        quote_lag_seconds=float(options["quote_lag_seconds"]),
-        horizon_minutes=float(options["horizon_minutes"]),
-        past_close=options["past_close"],
-    )
-    price = rv_options["price"]
-    has_quotes = quotes.select(pl.len()).collect().item() > 0
-    if price == "midquote" or (price == "auto" and has_quotes):
-        series = quotes.select("security", "ts", ((pl.col("bid") + pl.col("ask")) / 2.0).alias("price"))
-    else:
-        series = trades.select("security", "ts", "price")
-    variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]))
     key = ["security", "date"]
-    out = bars.join(intraday.daily_benchmarks(per_trade), on=key, how="left").join(variance, on=key, how="left")
-    columns = intraday.daily_columns()
-    return out.with_columns(
-        [pl.col(c).cast(t) for c, t in columns.items()]
-    ).sort(key)
+    if "benchmarks" in groups:
+        per_trade = intraday.trade_benchmarks(
+            trades,
+            quotes,
+            market,
+            signing=options["signing"],
+            quote_lag_seconds=float(options["quote_lag_seconds"]),
+            horizon_minutes=float(options["horizon_minutes"]),
+            past_close=options["past_close"],
+        )
+        bars = bars.join(intraday.daily_benchmarks(per_trade), on=key, how="left")
+    if "variance" in groups:
+        price = rv_options["price"]
+        has_quotes = quotes.select(pl.len()).collect().item() > 0
+        if price == "midquote" or (price == "auto" and has_quotes):
+            series = quotes.select("security", "ts", ((pl.col("bid") + pl.col("ask")) / 2.0).alias("price"))
+        else:
+            series = trades.select("security", "ts", "price")
+        variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]))
+        bars = bars.join(variance, on=key, how="left")
+    types = {c: t for group in groups.values() for c, t in group.items()}
+    return bars.with_columns([pl.col(c).cast(t) for c, t in types.items()]).sort(key)
+
+
+def needed_columns(measures: Iterable[str]) -> list[str]:
+    """The high-frequency daily columns (``liqpanel.intraday``) that the named measures read.
+
+    From each measure's registered daily columns (``liqpanel.measures``).
+    """
+    from liqpanel.measures import REGISTRY
+
+    offered = intraday.daily_columns()
+    return [c for c in offered if any(c in REGISTRY[name].columns for name in measures)]

@@ -60,9 +60,8 @@ from datetime import datetime, timedelta, timezone
 import polars as pl
 
 from liqpanel.errors import ConfigError
-from liqpanel.intraday import prevailing_quotes
+from liqpanel.intraday import BY, prevailing_quotes
 from liqpanel.markets import local_clock, session_index
-from liqpanel.outliers import neighbourhood_outliers
 from liqpanel.readers import HELPER_COLUMNS
 
 TRADE_RULES = (
@@ -95,27 +94,41 @@ def _with_helpers(frame: pl.LazyFrame) -> pl.LazyFrame:
     return frame.with_columns(extra) if extra else frame
 
 
-def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[str, str]) -> pl.LazyFrame:
+def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[str, str]) -> pl.DataFrame:
     """The rows of one month partition, with local date and time of day.
 
     Rows dated before the sample (or without a timestamp) belong to the first
     partition, rows after it to the last, so every row lands in one partition.
     """
-    day, clock = local_clock(pl.col("ts"), market)
     first, last = sample
-    frame = _with_helpers(frame).filter(_near_month(month, first, last))
-    frame = frame.with_columns(
+    frame = _with_helpers(frame).filter(_near_month(month, first, last)).collect()
+    # the rows' own first and last instants bound the local clock's offsets: a month's
+    # window, or more in the first and last partitions (liqpanel.markets.local_clock)
+    utc = pl.col("ts").dt.convert_time_zone("UTC")
+    span = frame.select(utc.min().alias("lo"), utc.max().alias("hi")).row(0)
+    day, clock = local_clock(pl.col("ts"), market, span if None not in span else None)
+    frame = frame.lazy().with_columns(
         pl.col("security").fill_null(MISSING_SECURITY),
         day.alias("date"),
-        day.dt.strftime("%Y-%m").alias("_month"),
+        (day.dt.year().cast(pl.Int32) * 12 + day.dt.month().cast(pl.Int32) - 1).alias("_month"),
         clock.alias("_time"),
     )
-    home = (
-        pl.when(pl.col("_month").is_null() | (pl.col("_month") < first)).then(pl.lit(first))
-        .when(pl.col("_month") > last).then(pl.lit(last))
-        .otherwise(pl.col("_month"))
-    )
-    return frame.filter(home == month)
+    lo, hi = _month_number(first), _month_number(last)
+    home = pl.col("_month").fill_null(lo).clip(lo, hi)  # before the sample: the first month; after: the last
+    return frame.filter(home == _month_number(month)).collect()
+
+
+def _month_number(month: str) -> int:
+    """'YYYY-MM' as months since year 0, the number ``_partition`` gives each row's local month."""
+    year, mon = map(int, month.split("-"))
+    return year * 12 + mon - 1
+
+
+def _window(month: str) -> tuple[datetime, datetime]:
+    """UTC instants from two days before the month to two days after it (no offset exceeds 14 hours)."""
+    start = datetime.fromisoformat(f"{month}-01").replace(tzinfo=timezone.utc)
+    end = (start + timedelta(days=32)).replace(day=1)
+    return start - timedelta(days=2), end + timedelta(days=2)
 
 
 def _near_month(month: str, first: str, last: str) -> pl.Expr:
@@ -124,9 +137,7 @@ def _near_month(month: str, first: str, last: str) -> pl.Expr:
     Lets each partition skip most of a large file before any local-time work;
     the exact local-month test follows.
     """
-    start = datetime.fromisoformat(f"{month}-01").replace(tzinfo=timezone.utc)
-    end = (start + timedelta(days=32)).replace(day=1)
-    lo, hi = start - timedelta(days=2), end + timedelta(days=2)
+    lo, hi = _window(month)
     ts = pl.col("ts")
     keep = ts.is_null() | ((ts >= lo) & (ts < hi))
     if month == first:
@@ -173,7 +184,8 @@ def _common_rules(frame: pl.LazyFrame, market: dict, rules: dict, *, numeric: tu
     missing = pl.any_horizontal([pl.col(c).is_null() for c in required]) | (pl.col("security") == MISSING_SECURITY)
     reason = pl.when(pl.col("_bad").is_not_null()).then(pl.lit("unparseable"))
     reason = reason.when(missing).then(pl.lit("missing_field"))
-    reason = reason.when((pl.col("_month") < first) | (pl.col("_month") > last)).then(pl.lit("outside_sample"))
+    outside = ~pl.col("_month").is_between(_month_number(first), _month_number(last))
+    reason = reason.when(outside).then(pl.lit("outside_sample"))
     if rules.get("nonpositive", True):
         reason = reason.when(pl.any_horizontal([pl.col(c) <= 0 for c in numeric])).then(pl.lit("nonpositive"))
     if rules.get("outside_session", True):
@@ -200,25 +212,79 @@ def _survivor_window(expr: pl.Expr, by: list[str]) -> pl.Expr:
     return expr.over([*by, pl.col("drop_rule").is_null()])
 
 
+def _in_order(frame: pl.DataFrame) -> pl.DataFrame:
+    """The rows in (security, ts, _file, _row) order, nulls first, without sorting the strings.
+
+    The securities get integer codes in text order (an Enum of the sorted
+    distinct names). A vendor's file is usually in time order, so a stable
+    sort on the code alone already puts each security's rows in time order;
+    one pass over the result checks that, and only a file where it fails
+    is sorted on the code, time, file and row. Either way the order is
+    that of a sort on the four columns.
+    """
+    names = frame.get_column("security").unique().sort()
+    keyed = frame.with_columns(pl.col("security").cast(pl.Enum(names)).to_physical().alias("_code"))
+    ordered = keyed.sort("_code", maintain_order=True)
+    if not ordered.select(_ascending_within("_code", _ORDER[1:])).item():
+        ordered = keyed.sort("_code", *_ORDER[1:])
+    return ordered.drop("_code")
+
+
+def _ascending_within(group: str, columns: list[str]) -> pl.Expr:
+    """True when each row of a run of equal ``group`` follows the one before it in ``columns`` order (nulls first)."""
+    key = [pl.col(c).to_physical().cast(pl.Int64).fill_null(pl.Int64.min()) for c in columns]
+    after = pl.lit(False)
+    for k in reversed(key):  # lexicographic: earlier columns decide, later ones break ties
+        after = (k > k.shift(1)) | ((k == k.shift(1)) & after)
+    return ((pl.col(group) != pl.col(group).shift(1)) | after).fill_null(True).all()
+
+
+def _on_ties(frame: pl.LazyFrame, step, changes: list[str]) -> pl.LazyFrame:
+    """Apply ``step`` to the rows that share security and timestamp with a neighbour; pass the rest through.
+
+    ``step`` may change the columns ``changes`` of those rows; the rows stay
+    where they are.
+
+    In (security, ts, ...) order every group of one security and timestamp
+    is a run of adjacent rows, so a rule that only acts within such groups
+    (duplicates, same-time merges) gives the same result on these runs
+    alone: rows alone at their timestamp are untouched by it. The runs are
+    rare, so the rule's window works on a small frame.
+    """
+    same = ((pl.col("security") == pl.col("security").shift(1)) & (pl.col("ts") == pl.col("ts").shift(1))).fill_null(False)
+    frame = frame.with_row_index("_at").with_columns((same | same.shift(-1).fill_null(False)).alias("_tie"))
+    ties = step(frame.filter(pl.col("_tie"))).select("_at", *[pl.col(c).alias(f"{c}_tied") for c in changes])
+    tie = pl.col("_tie")
+    return (
+        frame.join(ties, on="_at", how="left", maintain_order="left")
+        .with_columns([pl.when(tie).then(pl.col(f"{c}_tied")).otherwise(pl.col(c)).alias(c) for c in changes])
+        .drop("_at", "_tie", *[f"{c}_tied" for c in changes])
+    )
+
+
 def _duplicates(frame: pl.LazyFrame, columns: list[str]) -> pl.LazyFrame:
     repeat = ~pl.struct(columns).is_first_distinct()
-    return _mark(frame, _survivor_window(repeat, []), "duplicate")
+    return _on_ties(frame, lambda ties: _mark(ties, _survivor_window(repeat, []), "duplicate"), ["drop_rule"])
 
 
 def _merge_same_time(frame: pl.LazyFrame, medians: list[str], sums: list[str]) -> pl.LazyFrame:
     """BNHLS (2009) T3/Q1: one record per security and timestamp with median values."""
     by = ["security", "ts"]
     kept = pl.col("drop_rule").is_null()
-    frame = frame.with_columns(
-        *[pl.when(kept).then(_survivor_window(pl.col(c).median(), by)).otherwise(pl.col(c)).alias(c) for c in medians],
-        *[pl.when(kept).then(_survivor_window(pl.col(c).sum(), by)).otherwise(pl.col(c)).alias(c) for c in sums],
-    )
-    return _mark(frame, _survivor_window(pl.int_range(pl.len()) > 0, by), "merged_same_time")
+
+    def merge(ties: pl.LazyFrame) -> pl.LazyFrame:
+        ties = ties.with_columns(
+            *[pl.when(kept).then(_survivor_window(pl.col(c).median(), by)).otherwise(pl.col(c)).alias(c) for c in medians],
+            *[pl.when(kept).then(_survivor_window(pl.col(c).sum(), by)).otherwise(pl.col(c)).alias(c) for c in sums],
+        )
+        return _mark(ties, _survivor_window(pl.int_range(pl.len()) > 0, by), "merged_same_time")
+
+    return _on_ties(frame, merge, [*medians, *sums, "drop_rule"])
 
 
 def flag_quotes(quotes: pl.LazyFrame, market: dict, rules: dict, *, month: str, sample: tuple[str, str]) -> pl.LazyFrame:
     """Every quote of the partition with ``drop_rule`` (null when kept)."""
-    frame = _partition(quotes, market, month=month, sample=sample).sort(_ORDER)
+    frame = _in_order(_partition(quotes, market, month=month, sample=sample)).lazy()
     frame = frame.with_columns(_common_rules(frame, market, rules, numeric=("bid", "ask"), sample=sample)
                                .otherwise(None).cast(pl.String).alias("drop_rule"))
     names = frame.collect_schema().names()
@@ -252,7 +318,7 @@ def flag_trades(
     outside-quotes and no-quote rules. Collected here because the outlier
     filter works on a whole partition at once.
     """
-    frame = _partition(trades, market, month=month, sample=sample).sort(_ORDER)
+    frame = _in_order(_partition(trades, market, month=month, sample=sample)).lazy()
     names = frame.collect_schema().names()
     reason = _common_rules(frame, market, rules, numeric=("price", "size"), sample=sample)
     for column, rule in (("correction", "correction"), ("cond", "excluded_condition")):
@@ -286,12 +352,18 @@ def flag_trades(
 def _match_quotes(frame: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float) -> pl.LazyFrame:
     """Kept trades get the prevailing ``bid`` and ``ask`` and ``_quoted``; dropped rows get nulls."""
     kept = pl.col("drop_rule").is_null()
-    matched = prevailing_quotes(frame.filter(kept), quotes, lag_seconds).drop("_quote_time")
-    matched = matched.with_columns(pl.col("bid").is_not_null().alias("_quoted"))
-    return pl.concat([matched, frame.filter(~kept)], how="diagonal_relaxed").sort(_ORDER)
+    frame = frame.with_row_index("_at")  # both tables are in security and time order: no sort, rows stay put
+    matched = prevailing_quotes(frame.filter(kept).select("_at", *BY, "ts"), quotes, lag_seconds, in_order=True)
+    return (
+        frame.join(matched.select("_at", "bid", "ask"), on="_at", how="left", maintain_order="left")
+        .with_columns(pl.when(kept).then(pl.col("bid").is_not_null()).alias("_quoted"))
+        .drop("_at")
+    )
 
 
 def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
+    from liqpanel.outliers import neighbourhood_outliers  # numpy: loaded only when the filter is on
+
     kept = flagged.filter(pl.col("drop_rule").is_null()).select("_file", "_row", "security", "date", "price")
     group = kept.select(pl.struct("security", "date").rle_id()).to_series().to_numpy()
     outlier = neighbourhood_outliers(
@@ -334,14 +406,14 @@ def audit_of(flagged: pl.DataFrame | pl.LazyFrame, table: str, *, month: str, ti
 
 
 def kept_rows(flagged: pl.DataFrame | pl.LazyFrame, columns: list[str]) -> pl.LazyFrame:
-    """The kept rows with ``columns`` (those present) and the local ``date``, in time order."""
+    """The kept rows with ``columns`` (those present) and the local ``date``, in the flagged frame's order.
+
+    ``flag_trades`` and ``flag_quotes`` leave their rows in security, time and
+    input order, so the clean tables come out in that order without a sort.
+    """
     lf = flagged.lazy()
     names = lf.collect_schema().names()
-    return (
-        lf.filter(pl.col("drop_rule").is_null())
-        .sort(_ORDER)
-        .select(*[c for c in columns if c in names], "date")
-    )
+    return lf.filter(pl.col("drop_rule").is_null()).select(*[c for c in columns if c in names], "date")
 
 
 def clean_trades(trades: pl.LazyFrame, market: dict, rules: dict, **partition) -> tuple[pl.LazyFrame, pl.LazyFrame]:

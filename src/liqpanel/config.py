@@ -13,7 +13,6 @@ import copy
 from pathlib import Path
 from typing import Any
 
-import jsonschema
 import yaml
 
 from liqpanel.errors import ConfigError
@@ -28,12 +27,12 @@ def load_schema(path: Path = SCHEMA_PATH) -> dict:
         return yaml.safe_load(fh)
 
 
-def _where(error: jsonschema.ValidationError) -> str:
+def _where(error: "jsonschema.ValidationError") -> str:
     parts = [str(p) for p in error.absolute_path]
     return ".".join(parts) if parts else "the top level"
 
 
-def _message(error: jsonschema.ValidationError) -> str:
+def _message(error: "jsonschema.ValidationError") -> str:
     where = _where(error)
     if error.validator == "additionalProperties":
         allowed = sorted(error.schema.get("properties", {}))
@@ -90,6 +89,8 @@ def validate_config(config: dict, *, source: str = "config") -> dict:
     """
     if not isinstance(config, dict):
         raise ConfigError(f"{source}: the config must be a mapping of keys to values")
+    import jsonschema  # here, not at the top: a clean or bars job loads profiles, never validates
+
     schema = load_schema()
     validator = jsonschema.Draft202012Validator(schema)
     errors = sorted(validator.iter_errors(config), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))

@@ -49,15 +49,21 @@ SPREAD_MEASURES = ("quoted_spread", "effective_spread", "realized_spread", "pric
 PAST_CLOSE = ("session_close", "exclude")
 
 
-def daily_columns() -> dict[str, pl.DataType]:
-    """The columns this module adds to the daily table, with their types."""
+def benchmark_columns() -> dict[str, pl.DataType]:
+    """The daily columns of the spread benchmarks (``daily_benchmarks``), with their types."""
     columns: dict[str, pl.DataType] = {"n_quoted": pl.Int64, "n_signed": pl.Int64}
     for name in SPREAD_MEASURES:
         columns[name] = pl.Float64
         columns[f"{name}_size_weighted"] = pl.Float64
-    columns["realized_variance"] = pl.Float64
-    columns["realized_variance_returns"] = pl.Int64
     return columns
+
+
+VARIANCE_COLUMNS: dict[str, pl.DataType] = {"realized_variance": pl.Float64, "realized_variance_returns": pl.Int64}
+
+
+def daily_columns() -> dict[str, pl.DataType]:
+    """The columns this module adds to the daily table, with their types."""
+    return {**benchmark_columns(), **VARIANCE_COLUMNS}
 
 
 def with_local_date(frame: pl.LazyFrame, market: dict) -> pl.LazyFrame:
@@ -67,18 +73,25 @@ def with_local_date(frame: pl.LazyFrame, market: dict) -> pl.LazyFrame:
     return frame.with_columns(local_clock(pl.col("ts"), market)[0].alias("date"))
 
 
-def quote_at(frame: pl.LazyFrame, quotes: pl.LazyFrame, at: str, names: tuple[str, str]) -> pl.LazyFrame:
-    """Add the bid and ask (as ``names``) prevailing at column ``at``: same security and day."""
-    right = quotes.select(
-        *BY, pl.col("ts").alias(at), pl.col("bid").alias(names[0]), pl.col("ask").alias(names[1])
-    ).sort(*BY, at)
-    return frame.sort(*BY, at).join_asof(right, on=at, by=BY, strategy="backward", check_sortedness=False)
+def quote_at(
+    frame: pl.LazyFrame, quotes: pl.LazyFrame, at: str, names: tuple[str, str], *, in_order: bool = False
+) -> pl.LazyFrame:
+    """Add the bid and ask (as ``names``) prevailing at column ``at``: same security and day.
+
+    ``in_order``: both frames are already in security and time order (as the
+    clean stage keeps them) and ``at`` rises with the time, so neither is
+    sorted again and the rows keep their order.
+    """
+    right = quotes.select(*BY, pl.col("ts").alias(at), pl.col("bid").alias(names[0]), pl.col("ask").alias(names[1]))
+    if not in_order:
+        right, frame = right.sort(*BY, at), frame.sort(*BY, at)
+    return frame.join_asof(right, on=at, by=BY, strategy="backward", check_sortedness=False)
 
 
-def prevailing_quotes(trades: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float) -> pl.LazyFrame:
+def prevailing_quotes(trades: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float, *, in_order: bool = False) -> pl.LazyFrame:
     """Trades with ``bid`` and ``ask`` of the quote prevailing at ts - lag (same security and day)."""
     lagged = trades.with_columns((pl.col("ts") - pl.duration(microseconds=round(lag_seconds * 1e6))).alias("_quote_time"))
-    return quote_at(lagged, quotes, "_quote_time", ("bid", "ask"))
+    return quote_at(lagged, quotes, "_quote_time", ("bid", "ask"), in_order=in_order)
 
 
 def trade_benchmarks(

@@ -61,7 +61,9 @@ def write_parquet(frame: pl.DataFrame | pl.LazyFrame, path: str | Path) -> Path:
         # the in-memory engine gives bit-identical floats from run to run
         frame = frame.collect(engine="in-memory")
     with atomic_path(path) as tmp:
-        frame.write_parquet(tmp, compression="zstd", statistics=True)
+        # one chunk per column: the bytes written depend on the values alone, not on how
+        # the engine happened to split the columns into chunks
+        frame.rechunk().write_parquet(tmp, compression="zstd", statistics=True)
     return Path(path)
 
 

@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import re
 import zoneinfo
-from datetime import date, time
+from datetime import date, datetime, time, timedelta, timezone
 from pathlib import Path
 
 import polars as pl
@@ -132,7 +132,63 @@ def session_bound(market: dict, index: pl.Expr, day: pl.Expr, which: str) -> pl.
     )
 
 
-def local_clock(ts: pl.Expr, market: dict) -> tuple[pl.Expr, pl.Expr]:
-    """(local date, local time of day) of UTC timestamps in the market's time zone."""
-    local = ts.dt.convert_time_zone(market["timezone"])
-    return local.dt.date(), local.dt.time()
+def local_clock(ts: pl.Expr, market: dict, span: tuple[datetime, datetime] | None = None) -> tuple[pl.Expr, pl.Expr]:
+    """(local date, local time of day) of UTC timestamps in the market's time zone.
+
+    ``span``: (first, last) UTC instants, time-zone aware, that bound every
+    timestamp of the frame (a month partition's window). Within a span the
+    zone changes its offset a handful of times at most (a daylight-saving
+    change or none), so the local clock is integer arithmetic on the
+    microseconds: UTC plus the offset in force, read from Python's
+    ``zoneinfo`` at each change. Without a span, for one outside 1900-2099
+    (the years over which the two time-zone engines agree) or one longer
+    than a year, the table engine converts each timestamp. Both give the
+    same dates and times.
+    """
+    offsets = _offsets_within(market["timezone"], *span) if span is not None else None
+    if offsets is None:
+        local = ts.dt.convert_time_zone(market["timezone"])
+        return local.dt.date(), local.dt.time()
+    us = ts.dt.epoch("us")
+    (_, first), *changes = offsets
+    offset = pl.lit(first, dtype=pl.Int64)
+    for start, value in changes:
+        offset = pl.when(us >= start).then(pl.lit(value, dtype=pl.Int64)).otherwise(offset)
+    local = us + offset
+    day = local.floordiv(_DAY_US)
+    return day.cast(pl.Int32).cast(pl.Date), ((local - day * _DAY_US) * 1000).cast(pl.Time)
+
+
+_DAY_US = 86_400_000_000
+_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
+_AGREED = (datetime(1900, 1, 1, tzinfo=timezone.utc), datetime(2100, 1, 1, tzinfo=timezone.utc))
+
+
+def _offsets_within(zone_name: str, first: datetime, last: datetime) -> list[tuple[int | None, int]] | None:
+    """[(None, offset), (change, offset), ...] in microseconds for the UTC instants first..last.
+
+    Each change is the first microsecond of the new offset; the zone is
+    read at every day of the span and a change located by bisection (no
+    zone changes its offset twice within a day). None outside 1900-2099, or
+    for a span of more than a year (a stray timestamp far from the month).
+    """
+    if first < _AGREED[0] or last >= _AGREED[1] or last - first > timedelta(days=400):
+        return None
+    zone = zoneinfo.ZoneInfo(zone_name)
+
+    def offset_at(us: int) -> int:
+        return (_EPOCH + timedelta(microseconds=us)).astimezone(zone).utcoffset() // timedelta(microseconds=1)
+
+    lo, hi = (int((t - _EPOCH) // timedelta(microseconds=1)) for t in (first, last))
+    out: list[tuple[int | None, int]] = [(None, offset_at(lo))]
+    t = lo
+    while t < hi:  # one probe a day over a month's window: a few dozen calls
+        step = min(t + _DAY_US, hi)
+        if offset_at(step) != out[-1][1]:
+            before, after = t, step
+            while after - before > 1:
+                middle = (before + after) // 2
+                before, after = (middle, after) if offset_at(middle) == out[-1][1] else (before, middle)
+            out.append((after, offset_at(after)))
+        t = step
+    return out

@@ -122,6 +122,25 @@ def stored_window(schema: pl.Schema, month: str, sample: tuple[str, str], timezo
     return after if month == sample[1] else after & (pl.col("date") < bounds[1])
 
 
+def spans(months: list[str], size: int) -> list[list[str]]:
+    """The months cut into spans of ``size`` months, aligned on January (12: calendar years).
+
+    One workflow job carries a span: its months are still written one
+    partition each, so the tables do not depend on ``size``.
+    """
+    def block(month: str) -> int:
+        year, mon = map(int, month.split("-"))
+        return (year * 12 + mon - 1) // size
+
+    out: list[list[str]] = []
+    for month in months:  # a few hundred months at most, once per run
+        if out and block(out[-1][-1]) == block(month):
+            out[-1].append(month)
+        else:
+            out.append([month])
+    return out
+
+
 def with_previous_day(daily: pl.LazyFrame, previous: pl.LazyFrame | None = None) -> pl.LazyFrame:
     """Daily rows plus, per security-month, the security's last day of the previous month.
 
@@ -150,4 +169,4 @@ def with_previous_day(daily: pl.LazyFrame, previous: pl.LazyFrame | None = None)
     return pl.concat([daily, carried], how="diagonal_relaxed").select(names).sort("security", "month", "date")
 
 
-__all__ = ["PREVIOUS_DAY", "month_start", "month_window", "next_month", "stored_window", "with_previous_day"]
+__all__ = ["PREVIOUS_DAY", "month_start", "month_window", "next_month", "spans", "stored_window", "with_previous_day"]

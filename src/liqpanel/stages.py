@@ -10,24 +10,26 @@ from __future__ import annotations
 import json
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import polars as pl
 
 from liqpanel import bars as bars_mod
-from liqpanel import report as rep
 from liqpanel import readers
 from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
 from liqpanel.config import load_market
 from liqpanel.errors import InputError
 from liqpanel import ingest
 from liqpanel.io import previous_month, write_parquet, write_text
-from liqpanel.measures import REGISTRY, compute_monthly
-from liqpanel.panel import (
-    build_panel, coverage, monthly_from_daily, read_characteristics, read_monthly_returns, transform_panel,
-)
 from liqpanel.partition import stored_window
-from liqpanel.replication import write_replication_files
+
+if TYPE_CHECKING:
+    from liqpanel.report import RunFolder
+
+# A job imports only what its stage uses: the measures (and the Gibbs
+# sampler's scipy), the panel, the report and the replication files are
+# imported inside the functions that need them, so a clean or bars job
+# starts without them (``python -X importtime -c "import liqpanel.stages"``).
 
 
 def _month_filter(month: str) -> pl.Expr:
@@ -133,20 +135,48 @@ def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict, m
 
 
 def bars_month(clean_trades_path: str, out: str, config: dict | None = None, clean_quotes_path: str | None = None) -> None:
-    """Daily bars of one month; with a config, also the high-frequency benchmarks."""
+    """Daily bars of one month; with a config, also the high-frequency columns its measures read."""
     trades = pl.scan_parquet(clean_trades_path)
     if config is None:
         write_parquet(bars_mod.trading_bars(trades), out)
         return
     market = load_market(config["market"])
     quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
-    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars")), out)
+    columns = bars_mod.needed_columns(config["measures"]) if config.get("measures") else None
+    # a clean partition is in security and time order (liqpanel.clean.kept_rows)
+    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars"), columns, in_order=True), out)
 
 
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
     adjustments = _adjustments(config) if config is not None else None
     write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments), out)
+
+
+def trades_span(config: dict, months: list[str], paths: dict[str, list[str]]) -> None:
+    """Clean and bars of each month of a span, in one process (one cluster job).
+
+    ``paths``: per month, in the order of ``months``, the files ``trades``,
+    ``audit``, ``quotes`` (clean) and ``bars``; each month is written as its
+    own partition, exactly as ``clean_month`` and ``bars_month`` write it.
+    """
+    for i, month in enumerate(months):
+        clean_month(config, month, paths["trades"][i], paths["audit"][i], paths["quotes"][i])
+        bars_month(paths["trades"][i], paths["bars"][i], config, paths["quotes"][i])
+
+
+def daily_span(config: dict, bars_paths: list[str], previous_bars_path: str | None, out_paths: list[str]) -> None:
+    """``daily_month`` for consecutive months; ``previous_bars_path``: the month before the first, or None."""
+    for bars_path, out in zip(bars_paths, out_paths, strict=True):
+        daily_month(bars_path, previous_bars_path, out, config)
+        previous_bars_path = bars_path
+
+
+def measures_span(config: dict, daily_paths: list[str], previous_daily_path: str | None, out_paths: list[str]) -> None:
+    """``measures_month`` for consecutive months; ``previous_daily_path``: the month before the first, or None."""
+    for daily_path, out in zip(daily_paths, out_paths, strict=True):
+        measures_month(config, daily_path, previous_daily_path, out)
+        previous_daily_path = daily_path
 
 
 def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = None) -> pl.LazyFrame:
@@ -201,6 +231,8 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
 
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
     """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
+    from liqpanel.measures import compute_monthly
+
     previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
     write_parquet(compute_monthly(pl.scan_parquet(daily_path), config["measures"], previous=previous), out)
 
@@ -211,6 +243,8 @@ def gather(paths: list[str], out: str, sort: list[str]) -> None:
 
 
 def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> None:
+    from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns, transform_panel
+
     inputs = config["inputs"]
     source = config["panel"]["return_source"]
     if source == "monthly_file" or (source == "auto" and inputs.get("returns")):
@@ -232,6 +266,7 @@ def read_truth(config: dict) -> pl.DataFrame:
 
 def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> None:
     """Fit every configured model; write each result table and an index."""
+    from liqpanel.measures import REGISTRY
     from liqpanel.models.run import run_models
 
     factors = None
@@ -278,6 +313,11 @@ def report(
     checksummed again: if they changed while the workflow ran, the run stops
     instead of labelling its tables with a run-id that does not describe them.
     """
+    from liqpanel import report as rep
+    from liqpanel.measures import REGISTRY
+    from liqpanel.panel import coverage
+    from liqpanel.replication import write_replication_files
+
     build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
     truth_path = config["inputs"].get("truth")
@@ -427,7 +467,7 @@ def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_di
     write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
 
 
-def render_study(study_dir: str | Path, out: "rep.RunFolder", *, figures: bool = True, min_cell: int = 20) -> None:
+def render_study(study_dir: str | Path, out: "RunFolder", *, figures: bool = True, min_cell: int = 20) -> None:
     """Put the study into a run folder: its tables, heat maps, summary and per-draw data."""
     from liqpanel import study as st
 
@@ -455,6 +495,8 @@ def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, starte
 
     Built beside its final place and moved there in one step, like a full run's folder.
     """
+    from liqpanel import report as rep
+
     build = rep.build_folder(Path(run_dir).parent, Path(run_dir).name)
     settings = config["report"]
     out = rep.RunFolder(build, rid=rid, captions=settings.get("captions"), digits=settings.get("digits", 4))
@@ -468,4 +510,6 @@ def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, starte
 
 
 def now() -> str:
+    from liqpanel import report as rep
+
     return rep.now()

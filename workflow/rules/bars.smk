@@ -1,29 +1,21 @@
-# bars: clean trades -> daily bars; daily: bars + returns across month ends (liqpanel.bars)
+# daily: bars + returns across month ends (liqpanel.bars), one job per span of months;
+# the first month of a span reads the last bars of the span before
 if FROM_TRADES:
+    for SPAN in SPANS:
 
-    rule bars:
-        input:
-            trades=f"{WORK}/clean/month={{month}}/trades.parquet",
-            quotes=f"{WORK}/clean/month={{month}}/quotes.parquet",
-        output:
-            f"{WORK}/bars/month={{month}}/bars.parquet",
-        params:
-            bars=CONFIG["bars"],
-            market=CONFIG["market"],
-        run:
-            stages.bars_month(input.trades, output[0], CONFIG, input.quotes)
-
-    rule daily:
-        input:
-            bars=f"{WORK}/bars/month={{month}}/bars.parquet",
-            previous=previous_partition(f"{WORK}/bars/month={{month}}/bars.parquet"),
-            adjustments=expand_inputs("adjustments"),
-        output:
-            f"{WORK}/daily/month={{month}}/daily.parquet",
-        params:
-            columns=CONFIG["columns"]["adjustments"],
-        run:
-            stages.daily_month(input.bars, input.previous[0] if input.previous else None, output[0], CONFIG)
+        rule:
+            name:
+                span_rule("daily", SPAN)
+            input:
+                bars=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", SPAN),
+                previous=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", month_before(SPAN)),
+                adjustments=expand_inputs("adjustments"),
+            output:
+                month_files(f"{WORK}/daily/month={{month}}/daily.parquet", SPAN),
+            params:
+                columns=CONFIG["columns"]["adjustments"],
+            run:
+                stages.daily_span(CONFIG, list(input.bars), input.previous[0] if input.previous else None, list(output))
 
 else:
 

@@ -1,21 +1,29 @@
-# clean: raw trades (and quotes) of one month -> clean tables + audit (liqpanel.clean)
+# clean + bars: raw trades (and quotes) -> clean tables, audit and daily bars,
+# one job per span of months, one partition file per month (liqpanel.clean, liqpanel.bars)
 if FROM_TRADES:
+    for SPAN in SPANS:
 
-    rule clean:
-        input:
-            trades=expand_inputs("trades"),
-            quotes=expand_inputs("quotes"),
-        output:
-            trades=f"{WORK}/clean/month={{month}}/trades.parquet",
-            quotes=f"{WORK}/clean/month={{month}}/quotes.parquet",
-            audit=f"{WORK}/clean/month={{month}}/audit.parquet",
-        params:
-            clean=CONFIG["clean"],
-            market=CONFIG["market"],
-            columns={table: CONFIG["columns"][table] for table in ("trades", "quotes")},
-            sample=CONFIG["sample"],
-        run:
-            stages.clean_month(CONFIG, wildcards.month, output.trades, output.audit, output.quotes)
+        rule:
+            name:
+                span_rule("trades", SPAN)
+            input:
+                trades=expand_inputs("trades"),
+                quotes=expand_inputs("quotes"),
+            output:
+                trades=month_files(f"{WORK}/clean/month={{month}}/trades.parquet", SPAN),
+                quotes=month_files(f"{WORK}/clean/month={{month}}/quotes.parquet", SPAN),
+                audit=month_files(f"{WORK}/clean/month={{month}}/audit.parquet", SPAN),
+                bars=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", SPAN),
+            params:
+                months=SPAN,
+                clean=CONFIG["clean"],
+                bars=CONFIG["bars"],
+                market=CONFIG["market"],
+                columns={table: CONFIG["columns"][table] for table in ("trades", "quotes")},
+                sample=CONFIG["sample"],
+                measures=sorted(CONFIG["measures"]),  # the high-frequency bar columns follow the measures
+            run:
+                stages.trades_span(CONFIG, params.months, {key: list(output[key]) for key in ("trades", "quotes", "audit", "bars")})
 
     rule audit:
         input:

@@ -27,7 +27,8 @@ try:
 
     from liqpanel import stages
     from liqpanel.config import validate_config
-    from liqpanel.io import month_range, previous_month
+    from liqpanel.io import month_range
+    from liqpanel.partition import spans
     from liqpanel.readers import list_files
     from liqpanel.report import input_files, report_category, report_labels, run_id
 
@@ -45,6 +46,9 @@ except LiqpanelError as exc:
 WORK = CONFIG["run"]["work_dir"]
 RESULTS = CONFIG["run"]["results_dir"]
 MONTHS = month_range(CONFIG["sample"]["start"], CONFIG["sample"]["end"])
+# one job per span of months (run.span_months, a calendar year by default) and
+# stage; each month is still its own partition file
+SPANS = spans(MONTHS, CONFIG["run"]["span_months"])
 FROM_TRADES = not CONFIG["inputs"]["daily"]
 STARTED = stages.now()
 COMMAND = shlex.join(sys.argv)
@@ -60,15 +64,20 @@ wildcard_constraints:
     month=r"\d{4}-\d{2}",
 
 
-def previous_partition(path):
-    """Input function: ``path`` (with a {month} field) of the previous month, none for the first."""
+def month_files(path, months):
+    """``path`` (with a {month} field) of each month."""
+    return [path.format(month=m) for m in months]
 
-    def previous(wildcards):
-        if wildcards.month == MONTHS[0]:
-            return []
-        return [path.format(month=previous_month(wildcards.month))]
 
-    return previous
+def month_before(span):
+    """The month before a span's first, as a list: empty for the sample's first span."""
+    i = MONTHS.index(span[0])
+    return MONTHS[i - 1 : i]
+
+
+def span_rule(stage, span):
+    """The name of a span's job of ``stage``: e.g. trades_2021_01 (the span's first month)."""
+    return f"{stage}_{span[0].replace('-', '_')}"
 
 
 HELD = []  # marker files keeping the user's own folders in place (liqpanel.runtime.hold_folders)

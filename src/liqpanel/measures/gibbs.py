@@ -25,7 +25,6 @@ import time
 from dataclasses import dataclass
 import numpy as np
 import polars as pl
-from scipy.special import log_ndtr, ndtri_exp
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
@@ -55,6 +54,8 @@ def draw_truncated_normal(mean: np.ndarray, sd: np.ndarray, uniform: np.ndarray)
     tail stay accurate; the draw is mean + sd z. ``uniform`` must lie in (0, 1].
     All arguments broadcast.
     """
+    from scipy.special import log_ndtr, ndtri_exp  # here: only the measures job that runs the sampler pays for scipy
+
     mean = np.asarray(mean, dtype=float)
     sd = np.asarray(sd, dtype=float)
     a = -mean / sd

@@ -1,0 +1,113 @@
+"""Clean + bars with the demo's full rule set: this code against an earlier commit, side by side.
+
+The demo market (``demo_data/``, 24 months, trades and quotes) goes through
+clean and bars with every rule of ``config/config.yaml``: the quote rules,
+the same-time merges, the outside-quotes rule, the Brownlees & Gallo
+outlier filter, trade signing, the spread benchmarks and the realized
+variance. Each program runs its jobs as its workflow does:
+
+- this code: one process per span of ``run.span_months`` months (clean and
+  bars of each month in turn, ``liqpanel.stages.trades_span``);
+- the earlier commit (``--ref``, default the commit before the span jobs):
+  one process per month and stage, its own ``src/`` extracted with
+  ``git archive`` into a scratch folder and put first on the path.
+
+It reports the CPU time of all processes, start-up included, with one
+polars thread each, and checks that both wrote the same tables (every clean
+table, audit and bars partition). No assertion on time: the lines are the
+result. Run: ``make bench-rules`` or ``python -m bench.rules --help``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tarfile
+import tempfile
+from io import BytesIO
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+BASE_REF = "602a09d"  # the last commit that ran one job per month and stage
+
+JOB = r"""
+import json, os, sys
+from liqpanel import stages
+from liqpanel.config import load_config
+config = load_config("config/config.yaml")
+spec = json.loads(sys.argv[1])
+for month in spec["months"]:
+    p = {k: os.path.join(spec["out"], f"{k}-{month}.parquet") for k in ("trades", "audit", "quotes", "bars")}
+    if "clean" in spec["stages"]:
+        stages.clean_month(config, month, p["trades"], p["audit"], p["quotes"])
+    if "bars" in spec["stages"]:
+        stages.bars_month(p["trades"], p["bars"], config, p["quotes"])
+used = os.times()
+print(used.user + used.system)
+"""
+
+
+def run(specs: list[dict], cwd: Path, path: str | None) -> float:
+    """CPU seconds of all the processes, start-up included."""
+    env = {**os.environ, "POLARS_MAX_THREADS": "1"}
+    if path:
+        env["PYTHONPATH"] = path
+    total = 0.0
+    for spec in specs:
+        done = subprocess.run([sys.executable, "-c", JOB, json.dumps(spec)], cwd=cwd, env=env,
+                              capture_output=True, text=True)
+        if done.returncode:
+            raise RuntimeError(f"job {spec['months'][0]} failed:\n{done.stderr[-3000:]}")
+        total += float(done.stdout.strip().splitlines()[-1])
+    return total
+
+
+def extract(ref: str, into: Path) -> None:
+    """``src/``, ``config/`` and ``workflow/`` of commit ``ref``, and a link to the demo data."""
+    archive = subprocess.run(["git", "archive", ref, "src", "config", "workflow"], cwd=REPO, capture_output=True,
+                             check=True).stdout
+    with tarfile.open(fileobj=BytesIO(archive)) as tar:
+        tar.extractall(into, filter="data")
+    (into / "demo_data").symlink_to(REPO / "demo_data")
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(prog="python -m bench.rules", description=__doc__.split("\n\n")[0])
+    parser.add_argument("--ref", default=BASE_REF, help=f"the earlier commit (default {BASE_REF})")
+    args = parser.parse_args(argv)
+    sys.path.insert(0, str(REPO / "src"))
+    from liqpanel.config import load_config
+    from liqpanel.io import month_range
+    from liqpanel.partition import spans
+
+    config = load_config(REPO / "config" / "config.yaml")
+    months = month_range(config["sample"]["start"], config["sample"]["end"])
+    with tempfile.TemporaryDirectory(prefix="liqpanel-bench-rules-") as tmp:
+        root = Path(tmp)
+        extract(args.ref, root / "base")
+        ours, theirs = root / "ours", root / "base-out"
+        ours.mkdir()
+        theirs.mkdir()
+        span_specs = [{"months": block, "stages": ["clean", "bars"], "out": str(ours)}
+                      for block in spans(months, config["run"]["span_months"])]
+        month_specs = [{"months": [m], "stages": [stage], "out": str(theirs)} for stage in ("clean", "bars") for m in months]
+        cpu_ours = run(span_specs, REPO, None)
+        cpu_base = run(month_specs, root / "base", str(root / "base" / "src"))
+        import polars as pl
+        from polars.testing import assert_frame_equal
+
+        files = sorted(p.name for p in theirs.glob("*.parquet"))
+        for name in files:
+            assert_frame_equal(pl.read_parquet(ours / name), pl.read_parquet(theirs / name))
+    trades = pl.scan_parquet(REPO / "demo_data" / "trades.parquet").select(pl.len()).collect().item()
+    print(f"demo market, full rule set, {len(months)} months, {trades:,} trades read; one polars thread per process")
+    print(f"  this code       {len(span_specs):3d} processes (a span of months each)  {cpu_ours:6.2f} CPU-s")
+    print(f"  commit {args.ref}  {len(month_specs):3d} processes (a month and stage each)  {cpu_base:6.2f} CPU-s")
+    print(f"  {cpu_base / cpu_ours:.1f}x less CPU; the same {len(files)} tables (clean trades, quotes, audit, bars)")
+
+
+if __name__ == "__main__":
+    main()
