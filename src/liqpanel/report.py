@@ -572,6 +572,8 @@ def _git(args: list[str], cwd: Path) -> str | None:
 def git_state() -> dict[str, Any]:
     """Revision of the code that ran and whether it had uncommitted changes."""
     repo = Path(liqpanel.__file__).resolve().parents[2]
+    if not (repo / "src" / "liqpanel").is_dir():  # installed from a wheel: no source tree to ask
+        return {"revision": None, "dirty": None}
     status = _git(["status", "--porcelain", "--untracked-files=no"], repo)
     return {"revision": _git(["rev-parse", "HEAD"], repo), "dirty": bool(status) if status is not None else None}
 
@@ -723,3 +725,11 @@ def point_latest(results_dir: Path, rid: str) -> None:
         tmp.unlink()
     tmp.symlink_to(rid)
     os.replace(tmp, link)
+
+
+def run_folder(config_path: str | Path) -> Path:
+    """``results_dir/<run-id>``: where a run of the config at ``config_path`` is written."""
+    from liqpanel.config import load_config
+
+    config = load_config(config_path)
+    return Path(config["run"]["results_dir"]) / run_id(config)
