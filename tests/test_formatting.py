@@ -73,3 +73,13 @@ def test_html_table_has_caption_cells_and_notes(tmp_path):
     assert "<caption>Liquidity &amp; returns</caption>" in html
     assert '<td class="text">Roll spread</td><td class="num">0.557</td>' in html
     assert "<em>Notes:</em> Units: fractions of the price." in html
+
+
+def test_labels_replace_whole_words_in_row_labels_and_captions(tmp_path):
+    labels = {"roll_spread": "Roll spread", "log_size": "log market value"}
+    assert fmt.relabel("high-low roll_spread (avg over log_size groups)", labels) == (
+        "high-low Roll spread (avg over log market value groups)")
+    assert fmt.relabel("roll_spread_hi", labels) == "roll_spread_hi"  # only whole words
+    out = rep.RunFolder(tmp_path, rid="r", labels=labels)
+    out.table("sort", pl.DataFrame({"portfolio": ["1"], "mean_ret": [0.01]}), caption="Sorted on roll_spread")
+    assert (tmp_path / "tables" / "sort.md").read_text().startswith("**Sorted on Roll spread**")

@@ -26,6 +26,7 @@ our statistic columns (``std_error`` -> ``standard error``).
 from __future__ import annotations
 
 import math
+import re
 from datetime import date, datetime
 from typing import Any
 
@@ -79,12 +80,26 @@ def _month_like(series: pl.Series) -> bool:
     return series.dtype in (pl.Date, pl.Datetime) and series.drop_nulls().dt.day().eq(1).all()
 
 
+_WORD = re.compile(r"[A-Za-z0-9_]+")
+
+
+def relabel(text: str, labels: dict | None) -> str:
+    """``text`` with every whole word that ``labels`` names replaced by its label.
+
+    ``"high-low roll_spread (avg over log_size groups)"`` becomes
+    ``"high-low Roll spread (avg over log market value groups)"``.
+    """
+    if not labels:
+        return text
+    return _WORD.sub(lambda m: labels.get(m.group(0), m.group(0)), text)
+
+
 def _text(value: Any, labels: dict) -> str:
     if value is None:
         return ""
     if isinstance(value, (datetime, date)):
         return value.strftime("%Y-%m-%d")
-    return labels.get(str(value), str(value))
+    return relabel(str(value), labels)
 
 
 def heading(name: str, labels: dict | None = None) -> str:

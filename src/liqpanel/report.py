@@ -40,7 +40,7 @@ import polars as pl
 import liqpanel
 from liqpanel.clean import RULES_OF
 from liqpanel.errors import InputError
-from liqpanel.formatting import format_frame
+from liqpanel.formatting import format_frame, relabel
 from liqpanel.io import expand_inputs, sha256_file, write_parquet, write_text
 
 DEPENDENCIES = (
@@ -364,7 +364,8 @@ class RunFolder:
 
     def _settings(self, name: str, caption: str, notes: str) -> tuple[str, str | None, str]:
         own = self.captions.get(name) or {}
-        return own.get("caption", caption), own.get("label"), join_notes(notes, own.get("notes", ""), self.sample)
+        caption = own.get("caption", relabel(caption, self.labels))  # the user's own caption is kept as written
+        return caption, own.get("label"), join_notes(notes, own.get("notes", ""), self.sample)
 
     def table(
         self, name: str, frame: pl.DataFrame, *, caption: str, notes: str = "", label: str | None = None,
