@@ -1,7 +1,7 @@
 """File-level entry points of the workflow: one function per rule.
 
 Each function reads its input files, calls the stage's logic and writes its
-outputs atomically. The Snakemake rules in ``workflow/rules/`` call these and
+outputs atomically. The Snakemake rules in ``liqpanel/workflow/rules/`` call these and
 nothing else, so every stage can be run and tested without Snakemake.
 """
 
