@@ -7,22 +7,33 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 CORES ?= 2
+DEMO_CONFIG := config/config.yaml
+# The demo's own run folder, results/<run-id of the demo config> (never
+# results/latest, which follows whatever ran last). Expanded in the shell.
+DEMO_RUN = $$($(BIN)/python -c 'from liqpanel.report import run_folder; print(run_folder("$(DEMO_CONFIG)"))')
 
-.PHONY: demo test study bench bench-measures bench-scale bench-daily bench-rules cluster-test clean-work report expected verify
+.PHONY: demo test study bench bench-measures bench-scale bench-daily bench-rules cluster-test clean-work report expected verify lock wheel-test
 
-$(STAMP): pyproject.toml
+# Exact versions from requirements.lock (made by `make lock`), then liqpanel itself.
+$(STAMP): pyproject.toml requirements.lock
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test]'
+	$(BIN)/python -m pip install --quiet -r requirements.lock
+	$(BIN)/python -m pip install --quiet --no-deps -e .
 	@touch $(STAMP)
 
+# Resolve the newest versions the pyproject.toml ranges allow, with hashes, for Python 3.11 on Linux.
+lock: $(STAMP)
+	$(BIN)/python -m pip install --quiet 'uv>=0.9'
+	$(BIN)/uv pip compile pyproject.toml --extra test --python-version 3.11 --python-platform x86_64-manylinux_2_28 \
+		--generate-hashes --no-header --quiet -o requirements.lock
+
 demo: $(STAMP)
-	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --cores $(CORES) --force-use-threads --rerun-incomplete --quiet rules -- all
-	@echo "results: results/latest -> $$(readlink results/latest)"
-	@cat results/latest/tables/regressions.md
+	$(BIN)/snakemake --snakefile Snakefile --configfile $(DEMO_CONFIG) --cores $(CORES) --force-use-threads --rerun-incomplete --quiet rules -- all
+	@run=$(DEMO_RUN); echo "results: $$run"; cat $$run/tables/regressions.md
 
 study: $(STAMP)
-	$(BIN)/liqpanel study --config config/config.yaml --cores $(CORES) --quiet rules
+	$(BIN)/liqpanel study --config $(DEMO_CONFIG) --cores $(CORES) --quiet rules
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q
@@ -34,6 +45,10 @@ $(VENV)/.installed-cluster: $(STAMP)
 
 cluster-test: $(VENV)/.installed-cluster
 	bash .ci/cluster-test.sh
+
+# A wheel installed with the locked versions into a fresh environment runs the demo config from another folder.
+wheel-test:
+	PYTHON=$(PYTHON) bash .ci/wheel-test.sh
 
 bench: bench-measures bench-scale bench-daily bench-rules
 
@@ -59,15 +74,15 @@ clean-work:
 
 # Snakemake's HTML report of the demo run: every table and figure with its caption.
 report: demo
-	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --report results/$$(readlink results/latest)-report.html -- all
-	@echo "report: results/$$(readlink results/latest)-report.html"
+	run=$(DEMO_RUN); $(BIN)/snakemake --snakefile Snakefile --configfile $(DEMO_CONFIG) --report $$run-report.html -- all \
+		&& echo "report: $$run-report.html"
 
 # Compare the demo run's tables with the committed ones in tests/expected/.
 verify: demo
-	$(BIN)/liqpanel check-tables tests/expected results/latest --report results/table-check.json
+	run=$(DEMO_RUN); $(BIN)/liqpanel check-tables tests/expected $$run --report $$run-table-check.json
 
 # Refresh tests/expected/ from a demo run made from nothing (after a deliberate
 # change of results; Snakemake does not rerun a stage when only code changed).
 expected: $(STAMP)
-	$(BIN)/snakemake --snakefile Snakefile --configfile config/config.yaml --cores $(CORES) --force-use-threads --forceall --quiet rules -- all
-	rm -f tests/expected/*.csv && mkdir -p tests/expected && cp results/latest/tables/*.csv tests/expected/
+	$(BIN)/snakemake --snakefile Snakefile --configfile $(DEMO_CONFIG) --cores $(CORES) --force-use-threads --forceall --quiet rules -- all
+	run=$(DEMO_RUN); rm -f tests/expected/*.csv && mkdir -p tests/expected && cp $$run/tables/*.csv tests/expected/

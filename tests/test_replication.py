@@ -44,6 +44,17 @@ def _sha(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
+def _html_report(workdir: Path, report: Path) -> Path:
+    """Snakemake's HTML report of the run made in ``workdir`` (config.yaml there)."""
+    made = subprocess.run(
+        [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--configfile", "config.yaml",
+         "--report", str(report), "--", "all"],
+        cwd=workdir, capture_output=True, text=True, timeout=600,
+    )
+    assert made.returncode == 0, made.stderr[-4000:]
+    return report
+
+
 def test_a_killed_run_resumes_to_the_same_tables(tmp_path, market, whole_run):
     (tmp_path / "config.yaml").write_text(yaml.safe_dump(_config(market)))
     command = [sys.executable, "-m", "liqpanel.cli", "run", "--config", "config.yaml", "--cores", "2"]
@@ -76,14 +87,7 @@ def test_a_killed_run_resumes_to_the_same_tables(tmp_path, market, whole_run):
     assert result.passed and result.counts()["equal"] == len(csvs), summary_text(result)
 
     # Snakemake's HTML report of the resumed run: every table and figure with its caption
-    report = tmp_path / "report.html"
-    made = subprocess.run(
-        [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--configfile", "config.yaml",
-         "--report", str(report), "--", "all"],
-        cwd=tmp_path, capture_output=True, text=True, timeout=600,
-    )
-    assert made.returncode == 0, made.stderr[-4000:]
-    html = report.read_text()
+    html = _html_report(tmp_path, tmp_path / "report.html").read_text()
     manifest = json.loads((folder / "manifest.json").read_text())
     for kind in ("tables", "figures"):
         for name, entry in manifest[kind].items():
@@ -123,3 +127,62 @@ def test_demo_tables_match_the_committed_expected_tables(tmp_path):
     result = check_tables(EXPECTED, tmp_path / "results" / "latest")
     assert result.passed, summary_text(result)
     assert result.counts()["missing"] == 0 and len(list(EXPECTED.glob("*.csv"))) >= 4
+
+
+def test_html_report_shows_each_formatted_table_in_a_browser(tmp_path, whole_run):
+    """Snakemake's HTML report, opened in headless Chromium: choosing a table shows it as printed.
+
+    For every table the report lists, its view button is clicked; the page
+    the report then shows (in a frame) is opened on its own and its rendered
+    text (``innerText``) must hold the caption, the formatted cells of the
+    Markdown version and the notes. CI installs Chromium (.ci/run).
+    """
+    import base64
+    import urllib.parse
+
+    from browser import Browser, chromium
+
+    if chromium() is None:
+        if os.environ.get("CI"):
+            pytest.fail("CI must install Chromium (apt-get install chromium) for the HTML report check")
+        pytest.skip("Chromium is not installed")
+    report = _html_report(whole_run.parents[1], tmp_path / "report.html")
+    manifest = json.loads((whole_run / "manifest.json").read_text())
+    browser = Browser(tmp_path / "profile")
+    try:
+        browser.open(report.as_uri())
+        browser.wait_for("document.querySelector('nav li') !== null")
+        click_tables = ("(() => { const a = Array.from(document.querySelectorAll('nav a'))"
+                        ".find(a => a.textContent.trim() === 'Tables'); if (a) a.click(); return !!a; })()")
+        assert browser.evaluate(click_tables)
+        listed = browser.wait_for("Array.from(document.querySelectorAll('tr td:first-child')).map(td => td.textContent)")
+        assert sorted(listed) == sorted(manifest["tables"])
+        shown = {}
+        for name in sorted(manifest["tables"]):
+            browser.evaluate(click_tables)
+            browser.wait_for("document.querySelectorAll('tr').length > 1")
+            assert browser.evaluate(
+                f"Array.from(document.querySelectorAll('tr')).find(r => r.cells[0] && r.cells[0].textContent === "
+                f"{json.dumps(name)}).querySelector('a[iconname=eye]').click() || true"
+            )
+            shown[name] = browser.wait_for("document.querySelector('iframe') && document.querySelector('iframe').src")
+        pages = {}
+        for name, uri in shown.items():  # the framed page, decoded from its data URI and opened on its own
+            head, data = uri.split(",", 1)
+            page = tmp_path / f"{name}.html"
+            page.write_bytes(base64.b64decode(data) if head.endswith(";base64") else urllib.parse.unquote(data).encode())
+            browser.open(page.as_uri())
+            pages[name] = browser.wait_for("document.body && document.body.innerText")
+    finally:
+        browser.close()
+    for name, text in pages.items():
+        entry = manifest["tables"][name]
+        assert entry["caption"] in text, name
+        assert entry["notes"] in text, name
+        md = (whole_run / "tables" / f"{name}.md").read_text().splitlines()
+        first_row = next(line for line in md if line.startswith("| ") and not line.startswith("|---")
+                         and line != md[2])  # the first body row of the pipe table
+        cells = [c.strip() for c in first_row.strip("|").split("|")]
+        assert "\t".join(c for c in cells) in text.replace(" \t", "\t"), (name, cells)
+    # the regressions as printed: t-statistics in parentheses, whole-number counts
+    assert "(" in pages["regressions"] and "\nN\t" in pages["regressions"]

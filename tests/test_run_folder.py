@@ -81,7 +81,7 @@ def test_identity_replaces_every_input_path_by_its_checksum(tmp_path):
     assert ident["config"]["inputs"]["returns"] == {"sha256": sha}
     daily = [hashlib.sha256((a / f"daily_{d}.csv").read_bytes()).hexdigest() for d in ("01", "02")]
     assert ident["config"]["inputs"]["daily"] == {"sha256": daily}  # a glob: its matches in name order
-    market = hashlib.sha256((REPO / "config" / "markets" / "demo.yaml").read_bytes()).hexdigest()
+    market = hashlib.sha256((REPO / "src" / "liqpanel" / "market_profiles" / "demo.yaml").read_bytes()).hexdigest()
     assert ident["config"]["market"] == {"sha256": market}
 
 

@@ -126,7 +126,7 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
     second = _run(tmp_path / "b", moved)
     assert second.name == first.name  # same input contents at another path, same run-id
     tables = sorted((first / "tables").glob("*.*"))
-    assert {p.suffix for p in tables} == {".csv", ".tex", ".md"}
+    assert {p.suffix for p in tables} == {".csv", ".tex", ".md", ".html"}
     for table in tables:
         assert table.read_bytes() == (second / "tables" / table.name).read_bytes(), table.name
 

@@ -7,6 +7,11 @@
     liqpanel run [--config FILE] [--cores N] [snakemake args...]
     liqpanel study [--config FILE] [--cores N] [snakemake args...]   # the estimator study alone
     liqpanel check-tables REFERENCE CANDIDATE   # compare two runs' tables cell by cell
+    liqpanel check-versions RUN_FOLDER          # installed package versions against a run's manifest
+
+Also ``python -m liqpanel``. The workflow, its schema and the market profiles
+are package data (``liqpanel/workflow/``, ``liqpanel/market_profiles/``), so
+an installed wheel runs without the source tree.
 """
 
 from __future__ import annotations
@@ -21,9 +26,9 @@ import threading
 import time
 from pathlib import Path
 
+import liqpanel
+from liqpanel.config import SNAKEFILE
 from liqpanel.errors import LiqpanelError
-
-REPO_ROOT = Path(__file__).resolve().parents[2]
 
 
 def _simulate(args: argparse.Namespace) -> int:
@@ -123,15 +128,19 @@ def _snakemake(args: argparse.Namespace, extra: list[str], target: str, checked:
     from liqpanel.runtime import CHECKED_ENV, config_digest
 
     cmd = [
-        sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
+        sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE),
         "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", target,
     ]
     env = {**os.environ, CHECKED_ENV: config_digest(checked)}  # the workflow need not check the same config again
+    # quiet (the default): one line per stage from the engine's output (liqpanel.progress); verbose: all of it
+    quiet = not (args.verbose or any(a in ("-n", "--dry-run", "--dryrun") for a in extra))
     # Ctrl-C in a terminal reaches Snakemake too (one process group), which then stops its jobs and releases
     # its lock; what it prints while it stops (its jobs' tracebacks included) is not shown
-    child = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE)
+    child = subprocess.Popen(cmd, env=env, stdout=subprocess.PIPE if quiet else None,
+                             stderr=subprocess.STDOUT if quiet else subprocess.PIPE)
     muted, errors = threading.Event(), _JobErrors()
-    relay = threading.Thread(target=_relay, args=(child.stderr, muted, errors), daemon=True)
+    stream = child.stdout if quiet else child.stderr
+    relay = threading.Thread(target=_relay, args=(stream, muted, errors, quiet), daemon=True)
     relay.start()
     try:
         code = _wait(child)
@@ -173,14 +182,34 @@ def _wait(child: subprocess.Popen) -> int:
             continue
 
 
-def _relay(stream, muted: threading.Event, errors: _JobErrors) -> None:
-    """Copy Snakemake's messages to our standard error line by line as they come, until muted."""
+def _relay(stream, muted: threading.Event, errors: _JobErrors, quiet: bool) -> None:
+    """Pass Snakemake's messages on line by line as they come, until muted: through the progress
+    lines when ``quiet``, else all of them to our standard error."""
     signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})  # Ctrl-C interrupts the main thread's wait
-    for raw in iter(stream.readline, b""):
-        line = raw.decode(errors="replace")
-        if not muted.is_set() and errors.keep(line):
-            sys.stderr.write(line)
-            sys.stderr.flush()
+    lines = (raw.decode(errors="replace") for raw in iter(stream.readline, b""))
+    shown = (line for line in lines if not muted.is_set() and errors.keep(line))
+    if quiet:
+        from liqpanel.progress import follow
+
+        follow(shown, _Unless(muted, sys.stdout), _Unless(muted, sys.stderr))
+        return
+    for line in shown:
+        sys.stderr.write(line)
+        sys.stderr.flush()
+
+
+class _Unless:
+    """A stream that writes nothing once ``muted`` is set (after Ctrl-C)."""
+
+    def __init__(self, muted: threading.Event, stream) -> None:
+        self.muted, self.stream = muted, stream
+
+    def write(self, text: str) -> None:
+        if not self.muted.is_set():
+            self.stream.write(text)
+
+    def flush(self) -> None:
+        self.stream.flush()
 
 
 def _check_tables(args: argparse.Namespace) -> int:
@@ -193,9 +222,25 @@ def _check_tables(args: argparse.Namespace) -> int:
     return 0 if result.passed else 1
 
 
+def _check_versions(args: argparse.Namespace) -> int:
+    from liqpanel.environment import compare_versions, installed_versions, manifest_versions, versions_text
+
+    differences = compare_versions(manifest_versions(args.run_folder), installed_versions())
+    sys.stdout.write(versions_text(differences, args.run_folder, show_all=args.all))
+    return 1 if any(d.differs for d in differences) else 0
+
+
 def _run(args: argparse.Namespace, extra: list[str]) -> int:
+    from liqpanel.config import load_config
+
     raw = _preflight(args.config)  # every problem at once, before any work
-    return _snakemake(args, extra, "all", raw)
+    config = load_config(args.config)
+    code = _snakemake(args, extra, "all", raw)
+    if code == 0 and not any(a in ("-n", "--dry-run", "--dryrun") for a in extra):
+        from liqpanel.report import run_id
+
+        print(f"results: {Path(config['run']['results_dir']) / run_id(config)}")
+    return code
 
 
 def _study(args: argparse.Namespace, extra: list[str]) -> int:
@@ -214,23 +259,32 @@ def _study(args: argparse.Namespace, extra: list[str]) -> int:
     return code
 
 
-def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="liqpanel", description="Cross-sectional liquidity panels, reproducibly.")
-    sub = parser.add_subparsers(dest="command", required=True)
+def _workflow_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--config", default="config/config.yaml", help="the run's YAML config (default config/config.yaml)")
+    p.add_argument("--cores", type=int, default=2, help="CPU cores the workflow may use (default 2)")
+    p.add_argument("-v", "--verbose", action="store_true",
+                   help="print the workflow engine's full output (every job) instead of one line per stage")
+
+
+def parser() -> argparse.ArgumentParser:
+    top = argparse.ArgumentParser(prog="liqpanel", description="Cross-sectional liquidity panels, reproducibly.")
+    top.add_argument("--version", action="version", version=f"liqpanel {liqpanel.__version__}")
+    sub = top.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     p = sub.add_parser("simulate", help="write an invented market (trades, quotes, characteristics, truth)")
-    p.add_argument("--securities", type=int, default=40)
-    p.add_argument("--months", type=int, default=24)
-    p.add_argument("--seed", type=int, default=20240101)
-    p.add_argument("--start", default="2021-01", help="first month, YYYY-MM")
-    p.add_argument("--bad-row-share", type=float, default=0.002, help="share of planted bad rows for the cleaning audit")
-    p.add_argument("--out", required=True)
+    p.add_argument("--securities", type=int, default=40, help="number of invented securities (default 40)")
+    p.add_argument("--months", type=int, default=24, help="number of months (default 24)")
+    p.add_argument("--seed", type=int, default=20240101, help="random seed; the same seed gives the same files")
+    p.add_argument("--start", default="2021-01", help="first month, YYYY-MM (default 2021-01)")
+    p.add_argument("--bad-row-share", type=float, default=0.002,
+                   help="share of planted bad rows for the cleaning audit (default 0.002)")
+    p.add_argument("--out", required=True, help="folder to write the market's files into")
 
     p = sub.add_parser("measures", help="list the registered measures with their sources")
-    p.add_argument("-v", "--verbose", action="store_true")
+    p.add_argument("-v", "--verbose", action="store_true", help="also list outputs, needed columns and options")
 
     p = sub.add_parser("check-config", help="check a config and its inputs, listing every problem (exit 2 if any)")
-    p.add_argument("config")
+    p.add_argument("config", help="the YAML config to check")
 
     p = sub.add_parser(
         "daily-starter", help="write a starter config for a daily stock file (its columns listed for mapping)",
@@ -244,13 +298,11 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--force", action="store_true", help="replace --out when it exists")
 
     p = sub.add_parser("run", help="run the whole workflow (extra options go to snakemake)")
-    p.add_argument("--config", default="config/config.yaml")
-    p.add_argument("--cores", type=int, default=2)
+    _workflow_options(p)
 
     p = sub.add_parser("study", help="which estimator is closest to the truth in conditions like your market's "
                                      "(a simulation study calibrated to your data; extra options go to snakemake)")
-    p.add_argument("--config", default="config/config.yaml")
-    p.add_argument("--cores", type=int, default=2)
+    _workflow_options(p)
 
     p = sub.add_parser(
         "check-tables",
@@ -265,11 +317,35 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--rel-tol", type=float, default=1e-6, help="tolerance relative to |reference| (default 1e-6)")
     p.add_argument("--strict", action="store_true", help="also fail when the candidate has tables the reference lacks")
     p.add_argument("--top", type=int, default=10, help="largest deviations to print (default 10)")
-    p.add_argument("--report", default="table-check.json", help="where to write the JSON report ('' for none)")
+    p.add_argument("--report", default=None, metavar="FILE",
+                   help="also write the comparison as JSON to FILE (default: none)")
 
-    args, extra = parser.parse_known_args(argv)
+    p = sub.add_parser(
+        "check-versions",
+        help="compare the installed package versions with those a run recorded in its manifest",
+        description="Before rerunning a run's tables, list every package whose installed version differs from the "
+        "version recorded in RUN_FOLDER/manifest.json (Python included). Exit status 0: all the same; 1: some differ.",
+    )
+    p.add_argument("run_folder", help="a run folder (results/<run-id>) or its manifest.json")
+    p.add_argument("--all", action="store_true", help="list every recorded package, not only those that differ")
+    return top
+
+
+def main(argv: list[str] | None = None) -> int:
+    """The command line; a closed output pipe (``liqpanel measures | head``) ends it quietly."""
+    try:
+        return _main(argv)
+    except BrokenPipeError:
+        # Python's advice: point stdout at devnull so the interpreter's final flush does not fail again
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
+
+
+def _main(argv: list[str] | None) -> int:
+    top = parser()
+    args, extra = top.parse_known_args(argv)
     if extra and args.command not in ("run", "study"):
-        parser.error(f"unrecognised arguments: {' '.join(extra)}")
+        top.error(f"unrecognised arguments: {' '.join(extra)}")
     try:
         if args.command == "simulate":
             return _simulate(args)
@@ -283,6 +359,8 @@ def main(argv: list[str] | None = None) -> int:
             return _study(args, extra)
         if args.command == "check-tables":
             return _check_tables(args)
+        if args.command == "check-versions":
+            return _check_versions(args)
         return _run(args, extra)
     except LiqpanelError as exc:
         print(f"liqpanel: {exc}", file=sys.stderr)

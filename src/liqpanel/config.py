@@ -1,6 +1,6 @@
 """Load and validate a run's configuration.
 
-The config is YAML, validated against ``workflow/schemas/config.schema.yaml``
+The config is YAML, validated against ``src/liqpanel/workflow/schemas/config.schema.yaml``
 (JSON Schema). Every mapping in the schema forbids unknown keys, so a
 misspelled key stops the run with its name and the keys allowed there.
 Defaults written in the schema are filled in, so the manifest records the
@@ -17,9 +17,11 @@ import yaml
 
 from liqpanel.errors import ConfigError
 
-REPO_ROOT = Path(__file__).resolve().parents[2]
-SCHEMA_PATH = REPO_ROOT / "workflow" / "schemas" / "config.schema.yaml"
-MARKETS_DIR = REPO_ROOT / "config" / "markets"
+PACKAGE_DIR = Path(__file__).resolve().parent
+WORKFLOW_DIR = PACKAGE_DIR / "workflow"
+SNAKEFILE = WORKFLOW_DIR / "Snakefile"
+SCHEMA_PATH = WORKFLOW_DIR / "schemas" / "config.schema.yaml"
+MARKETS_DIR = PACKAGE_DIR / "market_profiles"
 
 
 def load_schema(path: Path = SCHEMA_PATH) -> dict:
@@ -136,13 +138,13 @@ def load_config(path: str | Path) -> dict:
 
 
 def market_path(name_or_path: str) -> Path:
-    """The profile file of a market name (``config/markets/<name>.yaml``) or path."""
+    """The profile file of a market name (``liqpanel/market_profiles/<name>.yaml``, shipped with the package) or path."""
     path = Path(name_or_path)
     return MARKETS_DIR / f"{name_or_path}.yaml" if not path.suffix else path
 
 
 def load_market(name_or_path: str) -> dict:
-    """Load a market profile by name (``config/markets/<name>.yaml``) or path."""
+    """Load a market profile by name (``liqpanel/market_profiles/<name>.yaml``, shipped with the package) or path."""
     path = market_path(name_or_path)
     if not path.exists():
         known = ", ".join(sorted(p.stem for p in MARKETS_DIR.glob("*.yaml")))

@@ -1,6 +1,6 @@
 """Market profiles: time zone, trading sessions, half days, tick size.
 
-A profile is a small YAML file in ``config/markets/`` (or any path):
+A profile is a small YAML file in ``liqpanel/market_profiles/`` (or any path):
 
     name: ...                 # free text
     timezone: Asia/Kolkata    # an IANA time-zone name

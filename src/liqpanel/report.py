@@ -40,6 +40,7 @@ import polars as pl
 import liqpanel
 from liqpanel.clean import RULES_OF
 from liqpanel.errors import InputError
+from liqpanel.formatting import format_frame, relabel
 from liqpanel.io import expand_inputs, sha256_file, write_parquet, write_text
 
 DEPENDENCIES = (
@@ -179,14 +180,6 @@ def format_number(value: float, digits: int) -> str:
     return f"{value:.{-math.floor(math.log10(size)) + 2}f}"
 
 
-def _cell(value: Any, digits: int) -> str:
-    if value is None:
-        return ""
-    if isinstance(value, float):
-        return format_number(value, digits)
-    return str(value)
-
-
 _LATEX_SPECIAL = {
     "\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "_": r"\_", "#": r"\#", "$": r"\$",
     "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}", "^": r"\textasciicircum{}",
@@ -212,19 +205,24 @@ def _split_decimal(text: str) -> tuple[str, str]:
     return (text, "") if cut < 0 else (text[:cut], text[cut:])
 
 
-def to_latex(df: pl.DataFrame, *, caption: str, label: str, notes: str = "", digits: int = 4) -> str:
+def to_latex(
+    df: pl.DataFrame, *, caption: str, label: str, notes: str = "", digits: int = 3, labels: dict | None = None,
+    by_row: bool = False,
+) -> str:
     """A booktabs table with the caption above and the notes below.
 
+    Numbers are printed by :mod:`liqpanel.formatting` (decimals by kind of
+    number, months as YYYY-MM, headings and row labels through ``labels``).
     The first column (row labels) is left-aligned. Every other column whose
     cells are all numbers (plain, or decorated like ``(1.962)`` or ``0.05**``)
     is aligned on the decimal point: it is set as a pair of columns ``r@{}l``
     (integer part right-aligned, the rest left-aligned) under one heading, so
     it needs no LaTeX package beyond booktabs. Other columns are left-aligned.
     """
-    cells = [[_cell(v, digits) for v in row] for row in df.iter_rows()]
+    headings, cells = format_frame(df, digits=digits, labels=labels, by_row=by_row)
     aligned = [i > 0 and _decimal_column([r[i] for r in cells]) for i in range(df.width)]
     spec = "".join("r@{}l" if a else "l" for a in aligned)
-    head = [rf"\multicolumn{{2}}{{c}}{{{_latex_escape(c)}}}" if a else _latex_escape(c) for c, a in zip(df.columns, aligned)]
+    head = [rf"\multicolumn{{2}}{{c}}{{{_latex_escape(c)}}}" if a else _latex_escape(c) for c, a in zip(headings, aligned)]
     lines = [
         r"% liqpanel table; needs \usepackage{booktabs}",
         r"\begin{table}[htbp]",
@@ -253,31 +251,82 @@ def to_latex(df: pl.DataFrame, *, caption: str, label: str, notes: str = "", dig
     return "\n".join(lines) + "\n"
 
 
-def to_markdown(df: pl.DataFrame, *, caption: str = "", notes: str = "", digits: int = 4) -> str:
-    """A pipe table: caption in bold above, notes in italics below."""
-    header = "| " + " | ".join(df.columns) + " |"
+def to_markdown(
+    df: pl.DataFrame, *, caption: str = "", notes: str = "", digits: int = 3, labels: dict | None = None,
+    by_row: bool = False,
+) -> str:
+    """A pipe table: caption in bold above, notes in italics below; numbers as in :func:`to_latex`."""
+    headings, cells = format_frame(df, digits=digits, labels=labels, by_row=by_row)
+    header = "| " + " | ".join(headings) + " |"
     rule = "|" + "|".join(["---"] + ["---:"] * (df.width - 1)) + "|"
-    rows = ["| " + " | ".join(_cell(v, digits) for v in row) + " |" for row in df.iter_rows()]
+    rows = ["| " + " | ".join(row) + " |" for row in cells]
     head = [f"**{caption}**", ""] if caption else []
     tail = ["", f"*Notes:* {notes}"] if notes else []
     return "\n".join(head + [header, rule, *rows] + tail) + "\n"
 
 
+def to_html(
+    df: pl.DataFrame, *, caption: str, notes: str = "", digits: int = 3, labels: dict | None = None,
+    by_row: bool = False, title: str = "",
+) -> str:
+    """A small standalone page: the caption, the table as printed in LaTeX and Markdown, the notes.
+
+    Snakemake's HTML report (``make report``) shows it when a table is chosen.
+    """
+    from html import escape
+
+    headings, cells = format_frame(df, digits=digits, labels=labels, by_row=by_row)
+    numeric = [i > 0 and _decimal_column([r[i] for r in cells]) for i in range(df.width)]
+
+    def row(tag: str, texts: list[str]) -> str:
+        return "<tr>" + "".join(
+            f'<{tag} class="{"num" if n else "text"}">{escape(t)}</{tag}>' for t, n in zip(texts, numeric)
+        ) + "</tr>"
+
+    body = "\n".join(row("td", r) for r in cells)
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>{escape(title or caption)}</title>
+<style>
+body {{ font-family: Georgia, 'Times New Roman', serif; margin: 1.5em; color: #111; }}
+table {{ border-collapse: collapse; border-top: 2px solid #111; border-bottom: 2px solid #111; }}
+thead th {{ border-bottom: 1px solid #111; }}
+th, td {{ padding: 0.2em 0.8em; }}
+.num {{ text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }}
+.text {{ text-align: left; }}
+caption {{ caption-side: top; text-align: left; font-weight: bold; padding-bottom: 0.5em; }}
+p.notes {{ max-width: 50em; font-size: 0.9em; }}
+</style></head>
+<body>
+<table>
+<caption>{escape(caption)}</caption>
+<thead>{row("th", headings)}</thead>
+<tbody>
+{body}
+</tbody>
+</table>
+{f'<p class="notes"><em>Notes:</em> {escape(notes)}</p>' if notes else ''}
+</body></html>
+"""
+
+
 def write_table(
     df: pl.DataFrame, stem: str | Path, *, caption: str, label: str, notes: str = "",
-    display: pl.DataFrame | None = None, digits: int = 4,
+    display: pl.DataFrame | None = None, digits: int = 3, labels: dict | None = None, by_row: bool = False,
 ) -> list[Path]:
-    """Write ``stem``.csv (full precision), .tex (booktabs) and .md.
+    """Write ``stem``.csv (full precision), .tex (booktabs), .md and .html.
 
     ``display`` is the layout for print (e.g. coefficients over t-statistics
-    in parentheses) when it differs from the numbers in the CSV.
+    in parentheses) when it differs from the numbers in the CSV. ``by_row``:
+    the rows are different variables, so decimals follow each row's scale.
     """
     stem = Path(stem)
     shown = df if display is None else display
+    style = {"digits": digits, "labels": labels, "by_row": by_row}
     csv = write_text(df.write_csv(), stem.with_suffix(".csv"))
-    tex = write_text(to_latex(shown, caption=caption, label=label, notes=notes, digits=digits), stem.with_suffix(".tex"))
-    md = write_text(to_markdown(shown, caption=caption, notes=notes, digits=digits), stem.with_suffix(".md"))
-    return [csv, tex, md]
+    tex = write_text(to_latex(shown, caption=caption, label=label, notes=notes, **style), stem.with_suffix(".tex"))
+    md = write_text(to_markdown(shown, caption=caption, notes=notes, **style), stem.with_suffix(".md"))
+    html = write_text(to_html(shown, caption=caption, notes=notes, title=stem.name, **style), stem.with_suffix(".html"))
+    return [csv, tex, md, html]
 
 
 def join_notes(*parts: str) -> str:
@@ -300,28 +349,34 @@ class RunFolder:
     which goes into the manifest.
     """
 
-    def __init__(self, path: str | Path, *, rid: str, captions: dict | None = None, sample: str = "", digits: int = 4):
+    def __init__(
+        self, path: str | Path, *, rid: str, captions: dict | None = None, sample: str = "", digits: int = 3,
+        labels: dict | None = None,
+    ):
         self.path = Path(path)
         self.rid = rid
         self.captions = captions or {}
         self.sample = sample
         self.digits = digits
+        self.labels = labels or {}
         self.tables: dict[str, dict[str, Any]] = {}
         self.figures: dict[str, dict[str, Any]] = {}
 
     def _settings(self, name: str, caption: str, notes: str) -> tuple[str, str | None, str]:
         own = self.captions.get(name) or {}
-        return own.get("caption", caption), own.get("label"), join_notes(notes, own.get("notes", ""), self.sample)
+        caption = own.get("caption", relabel(caption, self.labels))  # the user's own caption is kept as written
+        return caption, own.get("label"), join_notes(notes, own.get("notes", ""), self.sample)
 
     def table(
         self, name: str, frame: pl.DataFrame, *, caption: str, notes: str = "", label: str | None = None,
-        display: pl.DataFrame | None = None,
+        display: pl.DataFrame | None = None, by_row: bool = False,
     ) -> list[Path]:
+        """Write a table (see :func:`write_table`); ``by_row`` when its rows are different variables."""
         caption, own_label, notes = self._settings(name, caption, notes)
         label = own_label or label or f"tab:{name}"
         paths = write_table(
             frame, self.path / "tables" / name, caption=caption, label=label, notes=notes, display=display,
-            digits=self.digits,
+            digits=self.digits, labels=self.labels, by_row=by_row,
         )
         self.tables[name] = {
             "caption": caption, "label": label, "notes": notes, "rows": frame.height,
@@ -405,6 +460,40 @@ def measure_sources(names: list[str]) -> str:
     return "Measures: " + "; ".join(f"{n} from {REGISTRY[n].source}" for n in names) if names else ""
 
 
+def currency_of(config: dict) -> str:
+    """The currency named in the notes: ``report.currency``, else the market profile's, else 'currency units'."""
+    own = (config.get("report") or {}).get("currency")
+    if own:
+        return own
+    try:
+        from liqpanel.config import load_market
+
+        return load_market(config["market"]).get("currency") or "currency units"
+    except Exception:  # a profile given as a mapping or without a currency: say so plainly
+        return "currency units"
+
+
+def units_note(config: dict, measures: list[str]) -> str:
+    """The units of the measures that ran, and the currency."""
+    from liqpanel.measures import REGISTRY
+
+    families = {REGISTRY[n].family for n in measures if n in REGISTRY}
+    cur = currency_of(config)
+    parts = []
+    if families & {"spread", "impact"}:
+        parts.append("spreads and price impact are fractions of the price (0.01 = 1%)")
+    if "volatility" in families:
+        parts.append("volatilities are daily, in decimals (realized variance: daily, squared)")
+    if "amihud" in measures:
+        scale = (config["measures"].get("amihud") or {}).get("scale", 1e6)
+        words = {1e6: "million", 1e9: "billion", 1e3: "thousand"}.get(float(scale), f"{scale:g}")
+        parts.append(f"Amihud illiquidity is the absolute daily return per {words} {cur} traded")
+    if {"zero_return_share", "zero_return_share_traded"} & set(measures):
+        parts.append("shares of zero-return days are fractions of the month's days")
+    parts.append(f"returns are decimal returns per month; prices and market values in {cur}")
+    return "Units: " + "; ".join(parts)
+
+
 def measure_summary(monthly: pl.DataFrame, outputs: list[str]) -> pl.DataFrame:
     """Pooled distribution of each measure output over security-months."""
     rows = []
@@ -481,51 +570,154 @@ def spread_against_truth(monthly: pl.DataFrame, truth: pl.DataFrame, measures: l
 
 # ---------------------------------------------------------------- figures
 
-def figure_median_spread(
-    monthly: pl.DataFrame, truth: pl.DataFrame | None, measures: list[str], stem: str | Path, rid: str
-) -> list[Path]:
-    """Monthly cross-sectional median of spread measures (and of the truth)."""
-    from liqpanel import figures
-
-    frames = {m: monthly.group_by("month").agg(pl.col(m).median().alias("v")).sort("month") for m in measures}
-    if truth is not None:
-        frames["true spread"] = truth.group_by("month").agg(pl.col("spread").median().alias("v")).sort("month")
-    return figures.line_chart(
-        {label: (df.get_column("month").to_list(), (df.get_column("v") * 100).to_list()) for label, df in frames.items()},
-        stem=stem,
-        title="Cross-sectional median spread" + (" against the truth" if truth is not None else ""),
-        ylabel="spread (% of price)",
-        rid=rid,
-    )
+def label_of(name: str, labels: dict | None = None) -> str:
+    """A variable's name in print: ``report.labels.<name>`` of the config, else the name itself."""
+    return (labels or {}).get(name) or name
 
 
-def figure_cumulative(series: pl.DataFrame, stem: str | Path, rid: str) -> list[Path]:
-    """Cumulative growth of 1 in each portfolio (month, portfolio, ret).
+def liquidity_ends(variable: str) -> tuple[str, str] | None:
+    """What the lowest and the highest values of ``variable`` mean for liquidity, or None.
 
-    Returns are dated by formation month and earned the month after, so the
-    x axis is the month the return is earned. Missing months count as 0.
+    Spreads, price impact and the share of zero returns are high when a
+    security is illiquid; turnover is high when it is liquid; the
+    Pastor-Stambaugh gamma is more negative for illiquid securities (Pastor &
+    Stambaugh 2003). Other variables (size, volatility) say nothing by
+    themselves.
+    """
+    from liqpanel.measures import REGISTRY
+
+    owner = next((m for m in REGISTRY.values() if variable in m.outputs), None)
+    if owner is None:
+        return None
+    if owner.name in ("turnover", "ps_gamma"):
+        return "least liquid", "most liquid"
+    if owner.family in ("spread", "impact") or owner.name.startswith("zero_return_share"):
+        return "most liquid", "least liquid"
+    return None
+
+
+def _end_word(variable: str, group: int, groups: int) -> str:
+    ends = liquidity_ends(variable) or ("lowest", "highest")
+    return f" ({ends[0]})" if group == 1 else f" ({ends[1]})" if group == groups else ""
+
+
+def portfolio_lines(series: pl.DataFrame, spec: dict | None, labels: dict | None = None) -> list:
+    """The cumulative-value lines of one sort (``month, portfolio, ret``), labelled for print.
+
+    Each line starts at 1 at the first formation month; a return dated by its
+    formation month is earned the month after (missing months count as 0).
+    Single sorts label the ends, "1 (most liquid)" ... "3 (least liquid)";
+    a double sort's labels name both variables, its colours follow the second
+    sort and its line styles the first. The high-minus-low line is drawn as
+    the benchmark.
     """
     from liqpanel import figures
 
-    lines = {}
-    for (label,), frame in sorted(series.group_by("portfolio"), key=lambda kv: str(kv[0][0])):
-        frame = frame.sort("month")
-        growth = (frame.get_column("ret").fill_null(0.0) + 1.0).cum_prod()
-        lines[str(label)] = (frame.get_column("month").dt.offset_by("1mo").to_list(), growth.to_list())
-    return figures.line_chart(lines, stem=stem, title="Cumulative return", ylabel="value of 1 invested", rid=rid)
+    start = series.get_column("month").min()
+    names = sorted(series.get_column("portfolio").unique().to_list(), key=lambda p: (p == "high-low", p))
+    variable = (spec or {}).get("variable", "")
+    n2 = int((spec or {}).get("portfolios", 0) or 0)
+    first, n1 = (spec or {}).get("within"), int((spec or {}).get("within_portfolios", 0) or 0)
+    colours = figures.series_styles(max(n2, 1))
+    lines = []
+    for name in names:
+        frame = series.filter(pl.col("portfolio") == name).sort("month")
+        growth = [1.0] + (frame.get_column("ret").fill_null(0.0) + 1.0).cum_prod().to_list()
+        x = [start] + frame.get_column("month").dt.offset_by("1mo").to_list()
+        parts = name.split("-")
+        if name == "high-low":
+            ends = liquidity_ends(variable)
+            words = f" ({ends[1]} minus {ends[0]})" if ends else ""
+            lines.append(figures.Series(f"{n2} minus 1{words}" if n2 else "high minus low", x, growth, benchmark=True))
+        elif name == "factor":
+            lines.append(figures.Series("liquidity factor", x, growth, benchmark=True))
+        elif first and len(parts) == 2 and all(p.isdigit() for p in parts):
+            a, b = int(parts[0]), int(parts[1])
+            label = (f"{label_of(first, labels)} {a}{_end_word(first, a, n1)}, "
+                     f"{label_of(variable, labels)} {b}{_end_word(variable, b, n2)}")
+            look = {"color": colours[(b - 1) % len(colours)]["color"],
+                    "linestyle": figures.LINESTYLES[(a - 1) % len(figures.LINESTYLES)]}
+            lines.append(figures.Series(label, x, growth, style=look))
+        elif name.isdigit() and variable:
+            lines.append(figures.Series(f"{name}{_end_word(variable, int(name), n2)}", x, growth))
+        else:
+            lines.append(figures.Series(name, x, growth))
+    return lines
 
 
-def figure_proxy_scatter(monthly: pl.DataFrame, benchmark: str, proxies: list[str], stem: str | Path, rid: str) -> list[Path]:
-    """Each proxy against the benchmark over security-months (percent of price)."""
+def sort_title(spec: dict | None, labels: dict | None = None) -> tuple[str, str | None]:
+    """Figure title and legend title of a sort's cumulative-value figure."""
+    if not spec:
+        return "Cumulative value of 1 invested", None
+    weight = f"{spec.get('weight', 'equal')}-weighted"
+    var = label_of(spec["variable"], labels)
+    if spec.get("within"):
+        first = label_of(spec["within"], labels)
+        return (f"Cumulative value of 1 invested: {spec.get('within_portfolios', 2)} {first} groups, "
+                f"then {spec.get('portfolios', 3)} {var} groups ({weight})",
+                f"{first} group, {var} group")
+    return f"Cumulative value of 1 invested: {spec.get('portfolios', 5)} {var} groups ({weight})", f"{var} group"
+
+
+def figure_cumulative(
+    series: pl.DataFrame, stem: str | Path, rid: str, *, spec: dict | None = None, labels: dict | None = None,
+    title: str | None = None,
+) -> list[Path]:
+    """Cumulative value of 1 invested in each portfolio of a sort (``month, portfolio, ret``)."""
     from liqpanel import figures
 
-    points = {}
+    default_title, legend_title = sort_title(spec, labels)
+    return figures.line_chart(
+        portfolio_lines(series, spec, labels), stem=stem, title=title or default_title,
+        ylabel="value of 1 invested", rid=rid, legend_title=legend_title, hline=1.0,
+    )
+
+
+def figure_median_spread(
+    monthly: pl.DataFrame, truth: pl.DataFrame | None, measures: list[str], stem: str | Path, rid: str,
+    *, labels: dict | None = None, title: str | None = None,
+) -> list[Path]:
+    """Monthly cross-sectional median of spread measures (and of the truth), percent of price.
+
+    The true spread is drawn as the black benchmark; with the truth absent,
+    the effective spread (the high-frequency benchmark) takes its place.
+    """
+    from liqpanel import figures
+
+    def median(frame: pl.DataFrame, column: str) -> tuple[list, list]:
+        by = frame.group_by("month").agg(pl.col(column).median().alias("v")).sort("month")
+        return by.get_column("month").to_list(), (by.get_column("v") * 100).to_list()
+
+    lines = []
+    if truth is not None:
+        lines.append(figures.Series("true spread", *median(truth, "spread"), benchmark=True))
+    for m in measures:
+        benchmark = truth is None and m == "effective_spread"
+        lines.append(figures.Series(label_of(m, labels), *median(monthly, m), benchmark=benchmark))
+    lines.sort(key=lambda s: not s.benchmark)
+    shown = "the spread estimates" if len(measures) > 1 else label_of(measures[0], labels)
+    return figures.line_chart(
+        lines, stem=stem, rid=rid, ylabel="median spread (% of price)",
+        title=title or f"Median across securities of {shown}, by month"
+        + (", against the true spread" if truth is not None else ""),
+    )
+
+
+def figure_proxy_scatter(
+    monthly: pl.DataFrame, benchmark: str, proxies: list[str], stem: str | Path, rid: str, *, labels: dict | None = None,
+) -> list[Path]:
+    """Each proxy against the benchmark over security-months, one panel each (percent of price)."""
+    from liqpanel import figures
+
+    panels = {}
     for proxy in proxies:
-        both = monthly.select(benchmark, proxy).drop_nulls()
-        points[proxy] = ((both.get_column(benchmark) * 100).to_list(), (both.get_column(proxy) * 100).to_list())
-    return figures.scatter_chart(
-        points, stem=stem, title=f"Spread proxies against {benchmark}",
-        xlabel=f"{benchmark} (% of price)", ylabel="proxy (% of price)", rid=rid,
+        both = monthly.select(benchmark, proxy).drop_nulls().drop_nans()
+        panels[label_of(proxy, labels)] = ((both.get_column(benchmark) * 100).to_list(),
+                                           (both.get_column(proxy) * 100).to_list())
+    bench = label_of(benchmark, labels)
+    return figures.panel_scatter(
+        panels, stem=stem, rid=rid, title=f"Spread proxies against the {bench}, by security-month",
+        xlabel=f"{bench} (% of price)", ylabel="proxy (% of price)",
     )
 
 
@@ -572,6 +764,8 @@ def _git(args: list[str], cwd: Path) -> str | None:
 def git_state() -> dict[str, Any]:
     """Revision of the code that ran and whether it had uncommitted changes."""
     repo = Path(liqpanel.__file__).resolve().parents[2]
+    if not (repo / "src" / "liqpanel").is_dir():  # installed from a wheel: no source tree to ask
+        return {"revision": None, "dirty": None}
     status = _git(["status", "--porcelain", "--untracked-files=no"], repo)
     return {"revision": _git(["rev-parse", "HEAD"], repo), "dirty": bool(status) if status is not None else None}
 
@@ -723,3 +917,11 @@ def point_latest(results_dir: Path, rid: str) -> None:
         tmp.unlink()
     tmp.symlink_to(rid)
     os.replace(tmp, link)
+
+
+def run_folder(config_path: str | Path) -> Path:
+    """``results_dir/<run-id>``: where a run of the config at ``config_path`` is written."""
+    from liqpanel.config import load_config
+
+    config = load_config(config_path)
+    return Path(config["run"]["results_dir"]) / run_id(config)

@@ -1,7 +1,7 @@
 """How a workflow run starts and resumes.
 
 Two things the workflow does before any job runs, both from
-``workflow/rules/common.smk``:
+``liqpanel/workflow/rules/common.smk``:
 
 * It fixes the size of the table engine's thread pool (``run.engine_threads``
   in the config). Polars splits a group-by over its threads and adds the

@@ -1,7 +1,7 @@
 """File-level entry points of the workflow: one function per rule.
 
 Each function reads its input files, calls the stage's logic and writes its
-outputs atomically. The Snakemake rules in ``workflow/rules/`` call these and
+outputs atomically. The Snakemake rules in ``liqpanel/workflow/rules/`` call these and
 nothing else, so every stage can be run and tested without Snakemake.
 """
 
@@ -328,8 +328,9 @@ def report(
     settings = config["report"]
     out = rep.RunFolder(
         build, rid=rid, captions=settings.get("captions"), sample=rep.sample_note(config, monthly),
-        digits=settings.get("digits", 4),
+        digits=settings.get("digits", 3), labels=settings.get("labels"),
     )
+    units = rep.units_note(config, measures)
 
     models = Path(models_dir)
     for entry in json.loads((models / "index.json").read_text()):
@@ -339,18 +340,27 @@ def report(
             frame, display = pl.read_parquet(models / "regressions_long.parquet"), frame
             used = {v for m in config["models"]["regressions"] for v in m["regressors"]}
             in_models = [n for n in measures if used & set(REGISTRY[n].outputs)]
-            notes = rep.join_notes(rep.standard_errors_note(config["models"]["regressions"]), rep.measure_sources(in_models))
-        out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes)
+            notes = rep.join_notes(
+                rep.standard_errors_note(config["models"]["regressions"]),
+                "Dependent variable: the next month's return, in decimals", rep.measure_sources(in_models),
+            )
+        elif "value-weighted" in notes:
+            notes = rep.join_notes(notes, f"Market values in {rep.currency_of(config)}")
+        # a column of different statistics (mean, t-statistic, beta...): decimals follow each row
+        by_row = frame.width == 2 and frame.columns[0] == "statistic"
+        out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes, by_row=by_row)
     panel_frame = pl.read_parquet(panel_path)
     variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
     out.table(
         "panel_coverage", coverage(panel_frame, variables),
         caption="Panel coverage: securities per month and missing share per variable", label="tab:coverage",
-        notes="Month t holds liquidity and characteristics known at t and the return of t+1",
+        notes="Month t holds liquidity and characteristics known at t and the return of t+1; "
+        "missing shares are fractions of the month's securities (1 = none has the variable)",
     )
     out.table(
         "measures_summary", rep.measure_summary(monthly, outputs),
-        caption="Monthly measures: pooled distribution over security-months", label="tab:measures", notes=sources,
+        caption="Monthly measures: pooled distribution over security-months", label="tab:measures",
+        notes=rep.join_notes(units, sources), by_row=True,
     )
     if audit_path:
         audit = pl.read_parquet(audit_path)
@@ -371,10 +381,11 @@ def report(
         )
     if settings["figures"]:
         figures = build / "figures"
+        labels = settings.get("labels") or {}
         if spread_outputs:
             out.figure(
                 "spread_median",
-                rep.figure_median_spread(monthly, truth, spread_outputs, figures / "spread_median", rid),
+                rep.figure_median_spread(monthly, truth, spread_outputs, figures / "spread_median", rid, labels=labels),
                 caption="Cross-sectional median of each spread estimate by month"
                 + (", against the simulator's true spread" if truth is not None else ""),
                 notes="Percent of the price",
@@ -382,17 +393,26 @@ def report(
         if "effective_spread" in monthly.columns:
             out.figure(
                 "effective_spread_median",
-                rep.figure_median_spread(monthly, truth, ["effective_spread"], figures / "effective_spread_median", rid),
+                rep.figure_median_spread(monthly, truth, ["effective_spread"], figures / "effective_spread_median", rid,
+                                         labels=labels),
                 caption="Cross-sectional median effective spread by month"
                 + (", against the simulator's true spread" if truth is not None else ""),
                 notes="Percent of the price",
             )
+        sorts = {f"sort_{s['name']}": s for s in config["models"].get("sorts") or []}
         for series_path in sorted((models / "series").glob("*.parquet")):
             name = f"cumulative_{series_path.stem}"
+            factor = config["models"].get("factor") or {}
+            title = None if series_path.stem in sorts else (
+                f"Cumulative value of 1 invested in the liquidity factor\n(least minus most liquid by "
+                f"{rep.label_of(factor.get('measure', ''), labels)}, within {rep.label_of(factor.get('size', ''), labels)} groups)"
+            )
             out.figure(
-                name, rep.figure_cumulative(pl.read_parquet(series_path), figures / name, rid),
+                name,
+                rep.figure_cumulative(pl.read_parquet(series_path), figures / name, rid, spec=sorts.get(series_path.stem),
+                                      labels=labels, title=title),
                 caption=f"Cumulative value of 1 invested: {series_path.stem.replace('_', ' ')}",
-                notes="Returns earned the month after formation",
+                notes="Returns earned the month after formation; each line starts at 1 at the first formation month",
             )
         val = config["models"].get("validation")
         if val and val["benchmark"] in monthly.columns:
@@ -400,7 +420,8 @@ def report(
             if proxies:
                 out.figure(
                     "proxy_vs_benchmark",
-                    rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid),
+                    rep.figure_proxy_scatter(monthly, val["benchmark"], proxies, figures / "proxy_vs_benchmark", rid,
+                                             labels=labels),
                     caption=f"Spread proxies against the benchmark {val['benchmark']}, by security-month",
                     notes="Percent of the price",
                 )
@@ -499,7 +520,8 @@ def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, starte
 
     build = rep.build_folder(Path(run_dir).parent, Path(run_dir).name)
     settings = config["report"]
-    out = rep.RunFolder(build, rid=rid, captions=settings.get("captions"), digits=settings.get("digits", 4))
+    out = rep.RunFolder(build, rid=rid, captions=settings.get("captions"), digits=settings.get("digits", 3),
+                        labels=settings.get("labels"))
     render_study(study_dir, out, figures=settings["figures"], min_cell=config["study"]["min_cell"])
     identity = rep.check_identity(config, rid)
     rep.write_manifest(

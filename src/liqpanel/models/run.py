@@ -150,8 +150,10 @@ def run_models(
                 pl.DataFrame({"statistic": [r[0] for r in rows], "value": [float(r[1]) for r in rows]}),
                 f"Traded liquidity factor: illiquid-minus-liquid on {fac['measure']} within size groups",
                 f"{fac.get('size_groups', 2)} size groups x {fac.get('liquidity_groups', 3)} liquidity groups "
-                "(dependent sort); returns dated by formation month, earned the month after; "
-                "alphas against the supplied factor returns, Newey & West (1987) t-statistics.",
+                "(dependent sort); returns dated by formation month, earned the month after, in decimals per month; "
+                f"Newey & West (1987) t-statistics, {fac.get('lags', lags)} lags"
+                + (f"; alphas and betas against the factor returns supplied ({', '.join(summary['betas'])})"
+                   if "alpha" in summary else "; no factor returns supplied, so no alpha") + ".",
             )
         )
         out.series["liquidity_factor"] = factor.select("month", pl.lit("factor").alias("portfolio"), pl.col("factor_ret").alias("ret"))

@@ -1,6 +1,7 @@
 # report: everything -> results/<run-id>/ (liqpanel.report)
 # `make report` (snakemake --report) turns the tables and figures marked here
-# into one HTML file; each gets its caption from the run's manifest.
+# into one HTML file; each gets its caption from the run's manifest, and a
+# table shows as printed (tables/<name>.html: caption, table, notes).
 report: "../report/workflow.rst"
 
 
@@ -16,7 +17,7 @@ rule report:
     output:
         report(
             directory(f"{RESULTS}/{RUN_ID}"),
-            patterns=["tables/{table}.csv", "figures/{figure}.png"],
+            patterns=["tables/{table}.html", "figures/{figure}.png"],
             caption="../report/result.rst",
             category=report_category,
             labels=report_labels,

@@ -1,0 +1,57 @@
+"""One line per stage while the workflow runs, everything when it fails.
+
+``liqpanel run`` and ``liqpanel study`` start the workflow engine and read
+its output through :func:`follow`: a line when a stage (a rule) first starts,
+with the jobs done so far, and a last line with the count. The engine's full
+output is still written to its own log (``.snakemake/log/``); when a job
+fails, the lines from the first error on are shown as they come, with the log's
+path, so nothing needed to mend the run is hidden. ``--verbose`` bypasses this.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import IO, Iterable
+
+_RULE = re.compile(r"^\s*(?:local)?rule (\w+):\s*$")
+_STEPS = re.compile(r"^\s*(\d+) of (\d+) steps \(\d+%\) done\s*$")
+_FAILURE = ("Error in rule", "Error:", "WorkflowError", "Exiting because", "Traceback", "MissingInputException",
+            "IncompleteFilesException", "LockException")
+_LOG = re.compile(r"^Complete log: (.+)$")
+
+
+def follow(lines: Iterable[str], out: IO[str], err: IO[str] | None = None) -> dict:
+    """Echo the progress of a workflow run from its output ``lines`` to ``out``.
+
+    The engine's messages on a failure, and liqpanel's own messages (lines
+    starting ``liqpanel:``), go to ``err`` (default ``out``).
+
+    Returns what was seen: ``stages`` (in order of first start), ``done`` and
+    ``total`` jobs, ``failed`` and the engine's ``log`` path.
+    """
+    err = err or out
+    stages: list[str] = []
+    done = total = 0
+    failed = False
+    log = None
+    for line in lines:
+        if m := _STEPS.match(line):
+            done, total = int(m.group(1)), int(m.group(2))
+        elif (m := _RULE.match(line)) and m.group(1) not in stages and m.group(1) != "all":
+            stages.append(m.group(1))
+            out.write(f"  {m.group(1)}" + (f"  ({done} of {total} jobs done)" if total else "") + "\n")
+        elif m := _LOG.match(line.strip()):
+            log = m.group(1)
+        if not failed and line.lstrip().startswith(_FAILURE):
+            failed = True
+        if failed or line.startswith("liqpanel:"):
+            err.write(line if line.endswith("\n") else line + "\n")
+            err.flush()
+        out.flush()
+    if total:
+        out.write(f"  {done} of {total} jobs done\n")
+    elif not failed:
+        out.write("  nothing to run: every output is up to date\n")
+    if failed and log:
+        err.write(f"full log of the run: {log}\n")
+    return {"stages": stages, "done": done, "total": total, "failed": failed, "log": log}
