@@ -18,6 +18,7 @@ _STEPS = re.compile(r"^\s*(\d+) of (\d+) steps \(\d+%\) done\s*$")
 _FAILURE = ("Error in rule", "Error:", "WorkflowError", "Exiting because", "Traceback", "MissingInputException",
             "IncompleteFilesException", "LockException")
 _LOG = re.compile(r"^Complete log: (.+)$")
+_RAISED = re.compile(r'^\w+ in file ".*", line \d+:$')  # an exception raised in a job, printed before its rule
 
 
 def follow(lines: Iterable[str], out: IO[str], err: IO[str] | None = None) -> dict:
@@ -42,7 +43,7 @@ def follow(lines: Iterable[str], out: IO[str], err: IO[str] | None = None) -> di
             out.write(f"  {m.group(1)}" + (f"  ({done} of {total} jobs done)" if total else "") + "\n")
         elif m := _LOG.match(line.strip()):
             log = m.group(1)
-        if not failed and line.lstrip().startswith(_FAILURE):
+        if not failed and (line.lstrip().startswith(_FAILURE) or _RAISED.match(line.rstrip("\n"))):
             failed = True
         if failed or line.startswith("liqpanel:"):
             err.write(line if line.endswith("\n") else line + "\n")
