@@ -100,7 +100,10 @@ def _run_ours(path: str, names: list[str], options: dict | None = None) -> tuple
     from liqpanel.measures import compute_monthly
 
     started = time.perf_counter()
-    out = compute_monthly(pl.scan_parquet(path), {n: (options or {}).get(n) for n in names})
+    from bench.measures_naive import OPTIONS
+
+    options = {**OPTIONS, **(options or {})}
+    out = compute_monthly(pl.scan_parquet(path), {n: options.get(n) for n in names})
     return time.perf_counter() - started, out.height, _peak_bytes()
 
 

@@ -20,7 +20,7 @@ from bench import measures as bench
 from bench import measures_naive as naive
 from bench.measures_data import write_panel
 from liqpanel.contracts import DAILY
-from liqpanel.measures import compute_monthly
+from liqpanel.measures import REGISTRY, compute_monthly
 
 
 @pytest.fixture(scope="module")
@@ -44,13 +44,13 @@ def test_synthetic_panel_follows_the_daily_contract(panel):
 def test_naive_baseline_equals_the_library(panel):
     names = list(naive.FUNCTIONS)
     _, rows, base = naive.time_monthly(panel, names)
-    ours = compute_monthly(pl.scan_parquet(panel), {n: None for n in names}).to_pandas()
+    ours = compute_monthly(pl.scan_parquet(panel), {n: naive.OPTIONS.get(n) for n in names}).to_pandas()
     assert rows == pl.read_parquet(panel).height
     assert list(base["security"]) == list(ours["security"])
     for name in names:
         # Same missing months, same values up to rounding (ps_gamma: a least-squares
         # solve against the library's centred normal equations).
-        a, b = base[name].to_numpy(float), ours[name].to_numpy(float)
+        a, b = base[name].to_numpy(float), ours[REGISTRY[name].outputs[0]].to_numpy(float)
         assert np.isfinite(b).sum() > len(b) // 2, name
         np.testing.assert_allclose(a, b, rtol=1e-8 if name == "ps_gamma" else 1e-11, atol=0, equal_nan=True,
                                    err_msg=name)

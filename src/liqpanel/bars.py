@@ -124,6 +124,7 @@ BAR_OPTIONS = {
     "quote_lag_seconds": 0.0,
     "horizon_minutes": 5.0,
     "past_close": "session_close",
+    "lambda_interval_minutes": 5.0,
     "realized_variance": {"interval_minutes": 5.0, "price": "auto"},
 }
 
@@ -162,7 +163,8 @@ def intraday_bars(
         series = trades.select("security", "ts", "price")
     variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]))
     key = ["security", "date"]
-    out = bars.join(intraday.daily_benchmarks(per_trade), on=key, how="left").join(variance, on=key, how="left")
+    benchmarks = intraday.daily_benchmarks(per_trade, interval_minutes=float(options["lambda_interval_minutes"]))
+    out = bars.join(benchmarks, on=key, how="left").join(variance, on=key, how="left")
     columns = intraday.daily_columns()
     return out.with_columns(
         [pl.col(c).cast(t) for c, t in columns.items()]

@@ -22,6 +22,7 @@ from liqpanel.contracts import DAILY, month_of, require_columns
 from liqpanel.errors import InputError
 from liqpanel.io import previous_month, scan_table, write_parquet, write_text
 from liqpanel.measures import REGISTRY, compute_monthly
+from liqpanel.measures.frames import with_market_settings, with_twelve_month_measures
 from liqpanel.panel import build_panel, coverage, monthly_from_daily, read_monthly_returns, transform_panel
 from liqpanel.partition import stored_window
 from liqpanel.replication import write_replication_files
@@ -150,12 +151,19 @@ def daily_from_file(config: dict, month: str, out: str) -> None:
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
     """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
     previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
-    write_parquet(compute_monthly(pl.scan_parquet(daily_path), config["measures"], previous=previous), out)
+    selection = with_market_settings(config["measures"], load_market(config["market"]).get("tick_size"))
+    write_parquet(compute_monthly(pl.scan_parquet(daily_path), selection, previous=previous), out)
 
 
 def gather(paths: list[str], out: str, sort: list[str]) -> None:
     frames = [pl.scan_parquet(p) for p in paths]
     write_parquet(pl.concat(frames, how="diagonal_relaxed").sort(sort, nulls_last=True), out)
+
+
+def gather_monthly(paths: list[str], out: str) -> None:
+    """The month partitions' measures in one table, with the measures that span twelve months (Liu's LM12)."""
+    frame = pl.concat([pl.scan_parquet(p) for p in paths], how="diagonal_relaxed").sort("security", "month").collect()
+    write_parquet(with_twelve_month_measures(frame), out)
 
 
 def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> None:

@@ -72,6 +72,7 @@ from liqpanel.bars import daily_bars
 from liqpanel.contracts import DAILY, require_columns
 from liqpanel.errors import ConfigError
 from liqpanel.measures import REGISTRY, compute_monthly, get_measure
+from liqpanel.measures.frames import with_market_settings
 from liqpanel.simulate import simulate_security_months
 
 KEY = ["security", "month"]
@@ -722,7 +723,7 @@ def run_study(
     s = check_settings(study)
     market = market or Market()
     market = Market(market.timezone, tuple(market.session), market.tick, float(s["overnight_share"]))
-    selection = estimator_selection(measures, s["measures"])
+    selection = with_market_settings(estimator_selection(measures, s["measures"]), market.tick)
     conditions = draw_conditions(pool, s["draws"], s["seed"])
     daily, truth = simulate_draws(conditions, market, s["seed"])
     monthly = compute_monthly(daily.lazy(), selection).filter(pl.col("month") == WINDOW_MONTH).drop("month")
