@@ -329,4 +329,33 @@ def gibbs_per_month(path: str, securities: list[str], *, months: int, sweeps: in
     return time.perf_counter() - started, done
 
 
-__all__ = ["FUNCTIONS", "OPTIONS", "gibbs_per_month", "monthly", "prepare", "time_monthly"]
+def lot_per_month(path: str, securities: list[str], *, months: int) -> tuple[float, int]:
+    """The LOT fits (both forms) one security-month at a time with scipy's general optimiser: seconds, months fitted.
+
+    The same likelihood as the library (``liqpanel.measures.lot.log_likelihood``, one month as a column),
+    maximised by ``scipy.optimize.minimize`` (BFGS with the analytic gradient) from the same starting values.
+    """
+    from scipy.optimize import minimize
+
+    from liqpanel.measures.lot import FORMS, log_likelihood, regions, starting_values
+
+    daily = prepare(pd.read_parquet(path, columns=["security", "date", "month", "ret"]))
+    daily = daily[daily["security"].isin(securities)].dropna(subset=["ret", "mkt_ret"])
+    groups = [g for _, g in daily.groupby(KEY, sort=True) if len(g) >= 15][:months]
+    started = time.perf_counter()
+    for g in groups:
+        r, x = g["ret"].to_numpy()[:, None], g["mkt_ret"].to_numpy()[:, None]
+        valid = np.ones_like(r, dtype=bool)
+        for form in FORMS:
+            masks = regions(r, x, form)
+
+            def negative(theta, masks=masks, r=r, x=x, valid=valid):
+                ll, grad = log_likelihood(theta[:, None], r, x, masks, valid)
+                return -ll[0], -grad[:, 0]
+
+            with np.errstate(all="ignore"):
+                minimize(negative, starting_values(r, x, valid)[:, 0], jac=True, method="BFGS")
+    return time.perf_counter() - started, len(groups)
+
+
+__all__ = ["FUNCTIONS", "OPTIONS", "lot_per_month", "gibbs_per_month", "monthly", "prepare", "time_monthly"]

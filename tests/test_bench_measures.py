@@ -58,16 +58,17 @@ def test_naive_baseline_equals_the_library(panel):
 
 def test_benchmark_runs_on_a_tiny_panel_and_prints_every_family(tmp_path):
     args = argparse.Namespace(securities=8, years=0.25, baseline_fraction=0.5, gibbs_fraction=0.5, gibbs_months=2,
-                              sweeps=20, repeat=1, workdir=str(tmp_path), seed=3)
+                              sweeps=20, repeat=1, workdir=str(tmp_path), seed=3, lot_fraction=0.5, lot_months=3)
     rows, lines = bench.run(args, echo=lambda text: None, isolate=lambda f, *a: f(*a))
     labels = [r.label for r in rows]
-    assert labels == [*bench._families(), "all daily measures", "gibbs (20 sweeps)"]
+    assert labels == [*bench._families(), "all daily measures", "gibbs (20 sweeps)", "lot (mixed + Y-split)"]
     assert all(r.ours > 0 and r.peak > 0 for r in rows)
-    assert all(r.ratio > 0 for r in rows) and all(r.over_floor > 0 for r in rows[:-1])
-    assert rows[-2].baseline == pytest.approx(sum(r.baseline for r in rows[:-2]))
+    assert all(r.ratio > 0 for r in rows) and all(r.over_floor > 0 for r in rows[:-2])
+    assert rows[-3].baseline == pytest.approx(sum(r.baseline for r in rows[:-3]))
     table = bench.format_table(rows)
     assert all(label in table for label in labels)
-    assert len(lines) == 4 and lines[0].startswith("all daily measures vs naive baseline")
+    assert len(lines) == 5 and lines[0].startswith("all daily measures vs naive baseline")
+    assert lines[-1].startswith("LOT share of the measures stage")
 
 
 def test_timed_steps_run_in_a_fresh_process(panel):

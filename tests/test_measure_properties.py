@@ -21,7 +21,7 @@ from liqpanel.measures.library import MEASURES
 from liqpanel.measures.market import add_market_return
 
 KEY = ["security", "month"]
-FAST = {"gibbs_spread": {"sweeps": 40, "burn": 10}}
+FAST = {"gibbs_spread": {"sweeps": 40, "burn": 10}, "lot_mixed": {"max_iterations": 30}, "lot_ysplit": {"max_iterations": 30}}
 PRICE_FREE = {m.name for m in MEASURES if m.family in ("spread", "volatility")}
 SETTINGS = settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

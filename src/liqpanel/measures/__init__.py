@@ -15,6 +15,7 @@ import polars as pl
 from liqpanel.contracts import check_unique_key
 from liqpanel.errors import ConfigError
 from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
+from liqpanel.measures import blend as _blend  # noqa: F401  (the study's blend of spread estimators)
 from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
 from liqpanel.measures.market import add_market_return
 from liqpanel.measures.neighbours import FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_MARK, month_flags

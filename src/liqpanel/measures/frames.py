@@ -12,7 +12,8 @@ from liqpanel.errors import InputError
 from liqpanel.measures.liu import liu_lm12
 from liqpanel.measures.registry import REGISTRY
 
-SLOW = frozenset({"gibbs_spread", "lot_mixed", "lot_ysplit"})  # iterative estimators: chosen by name only
+# iterative estimators, and the blend (it needs weights): chosen by name only
+BY_NAME_ONLY = frozenset({"gibbs_spread", "lot_mixed", "lot_ysplit", "spread_blend"})
 TICK_MEASURES = ("effective_tick",)
 
 
@@ -93,7 +94,7 @@ def compute(
     ``measures:`` in the config (``liqpanel measures`` lists them); by
     default every registered measure whose columns the frame has, except
     the iterative estimators (``gibbs_spread`` and the LOT estimators), which
-    run when named. ``tick_size``: the market's tick, for the effective tick.
+    run when named, and ``spread_blend``, which needs its weights. ``tick_size``: the market's tick, for the effective tick.
 
     Returns one row per (security, month): ``n_days``, every measure's
     outputs, ``<name>_n`` (observations used) and ``<name>_reason`` (why a
@@ -109,7 +110,7 @@ def compute(
     if measures is None:
         available = set(frame.columns) | {"mkt_ret"}
         selection: dict[str, Any] = {
-            name: None for name, m in REGISTRY.items() if name not in SLOW and set(m.columns) <= available
+            name: None for name, m in REGISTRY.items() if name not in BY_NAME_ONLY and set(m.columns) <= available
         }
     elif isinstance(measures, dict):
         selection = dict(measures)

@@ -33,6 +33,7 @@ from liqpanel.measures.impact import (
     zero_return_share_traded_plan,
 )
 from liqpanel.measures.liu import LM1_DEFLATOR, liu_lm, liu_plan
+from liqpanel.measures.lot import lot_mixed, lot_ysplit
 from liqpanel.measures.registry import Measure, register
 from liqpanel.measures.roll import roll_spread, roll_spread_plan
 from liqpanel.measures.ticks import DECIMAL_MULTIPLES, effective_tick, effective_tick_plan
@@ -167,6 +168,24 @@ MEASURES = (
         options={"calendar": "market"},
         description="2 sigma Phi^-1((1 + z) / 2) from the zero-return share z and the return volatility",
     ),
+    *[
+        Measure(
+            name=f"lot_{form}",
+            function=function,
+            outputs=(f"lot_{form}", f"lot_{form}_converged", f"lot_{form}_iterations"),
+            columns=("ret", "mkt_ret"),
+            source="Lesmond, Ogden & Trzcinka (1999), Review of Financial Studies 12(5); "
+            "Goyenko, Holden & Trzcinka (2009), Journal of Financial Economics 92(2)",
+            family="spread",
+            min_days=MIN_DAYS,
+            options={"max_iterations": 200, "tolerance": 1e-8},
+            description=f"LOT round-trip cost alpha2 - alpha1 by maximum likelihood, {label}; convergence per month",
+        )
+        for form, function, label in (
+            ("mixed", lot_mixed, "regions by the sign of the market return"),
+            ("ysplit", lot_ysplit, "regions by the sign of the security's return"),
+        )
+    ],
     Measure(
         name="effective_tick",
         function=effective_tick,
