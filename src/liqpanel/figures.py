@@ -64,22 +64,34 @@ def line_chart(series: dict, *, stem, title: str, ylabel: str, rid: str, xlabel:
 
 
 def scatter_chart(points: dict, *, stem, title: str, xlabel: str, ylabel: str, rid: str) -> list[Path]:
-    """Scatter of (x, y) pairs keyed by label, with the 45-degree line."""
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(5.5, 5.0))
-        lo, hi = float("inf"), float("-inf")
-        for label, (x, y) in points.items():
-            ax.scatter(x, y, s=8, alpha=0.5, label=label)
-            if x:
-                lo, hi = min(lo, min(x), min(y)), max(hi, max(x), max(y))
-        if lo < hi:
-            ax.plot([lo, hi], [lo, hi], color="#000000", linewidth=0.8, linestyle="--", label="45-degree line")
-        ax.set_title(title)
-        ax.set_xlabel(xlabel)
-        ax.set_ylabel(ylabel)
-        ax.legend(frameon=False)
-        return save(fig, stem, rid)
+    """Scatter of (x, y) pairs keyed by label, one panel per label on shared axes, each with the 45-degree line.
 
+    One panel per series keeps a dozen proxies readable where one crowded
+    panel would repeat the palette's colours; a series without points says so.
+    """
+    import math
+
+    values = [v for x, y in points.values() for v in (*x, *y)]
+    lo, hi = (min(values), max(values)) if values else (0.0, 1.0)
+    n = max(len(points), 1)
+    cols = min(n, 4)
+    rows = math.ceil(n / cols)
+    with plt.rc_context(STYLE):
+        fig, axes = plt.subplots(rows, cols, figsize=(2.9 * cols + 0.6, 2.7 * rows + 0.8), sharex=True, sharey=True,
+                                 squeeze=False)
+        for ax, (label, (x, y)) in zip(axes.flat, points.items()):
+            ax.plot([lo, hi], [lo, hi], color="#000000", linewidth=0.8, linestyle="--")
+            if x:
+                ax.scatter(x, y, s=6, alpha=0.5, color=PALETTE[0])
+            else:
+                ax.text(0.5, 0.5, "no value", transform=ax.transAxes, ha="center", va="center")
+            ax.set_title(label, fontsize=9)
+        for ax in list(axes.flat)[len(points):]:
+            ax.set_visible(False)
+        fig.suptitle(f"{title} (dashed: 45-degree line)")
+        fig.supxlabel(xlabel)
+        fig.supylabel(ylabel)
+        return save(fig, stem, rid)
 
 
 def heat_maps(
