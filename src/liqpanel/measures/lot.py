@@ -27,8 +27,11 @@ buy threshold), so a month without zero returns has the cost 0 rather than
 the negative difference of two free intercepts.
 
 Fit: maximum likelihood for every security-month at once. The months are
-padded to (days x months) arrays with a mask; each iteration computes the
-analytic gradient and Hessian of every month's log-likelihood and a
+padded to (days x months) arrays with a mask and reduced once to what the
+likelihood needs (``LotData``: six sums per region and month for the
+non-zero returns, whose terms are quadratic in the parameters, and the zero
+returns one by one); each iteration computes the analytic gradient and
+Hessian of every month's log-likelihood and a
 Levenberg-Marquardt step per month (a 4 x 4 solve, batched), projected onto
 the bounds, accepted where the likelihood rises (the damping falls) and
 refused elsewhere (the damping rises). A month has converged when its
@@ -38,6 +41,8 @@ iterations only, on the months not yet converged.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 import polars as pl
@@ -69,68 +74,110 @@ def regions(ret: np.ndarray, market: np.ndarray, form: str) -> tuple[np.ndarray,
     return zero, ~zero & below, ~zero & ~below
 
 
-def _zero_terms(a1, a2, fitted, s, zero):
-    """lo, hi and ln D on the zero-return entries only (the normal tail functions are the costly part)."""
-    lo, hi = (a1 - fitted) / s, (a2 - fitted) / s
-    log_d = np.zeros_like(lo)
-    log_d[zero] = _log_interval(lo[zero], hi[zero])
-    return lo, hi, log_d
+@dataclass(frozen=True)
+class LotData:
+    """What the likelihood needs of the months: sums over the non-zero returns of each region, and the zero returns.
+
+    The non-zero returns enter the likelihood through a quadratic in the
+    parameters, so six sums per region and month (count, sum R, sum R_m,
+    sum R^2, sum R R_m, sum R_m^2; ``stats`` of shape (2, 6, months)) replace
+    them; only the zero returns (their market return ``zero_market`` and
+    month ``zero_month``) need the normal distribution at every iteration.
+    """
+
+    stats: np.ndarray
+    zero_market: np.ndarray
+    zero_month: np.ndarray
+
+    @classmethod
+    def build(cls, ret, market, masks, valid) -> "LotData":
+        zero, one, two = (m & valid for m in masks)
+        sums = []
+        for region in (one, two):
+            r, x = np.where(region, ret, 0.0), np.where(region, market, 0.0)
+            sums.append([region.sum(axis=0), r.sum(axis=0), x.sum(axis=0), (r * r).sum(axis=0), (r * x).sum(axis=0),
+                         (x * x).sum(axis=0)])
+        day, month = np.nonzero(zero)
+        return cls(np.asarray(sums, dtype=float), market[day, month], month)
+
+    @property
+    def months(self) -> int:
+        return self.stats.shape[2]
+
+    def subset(self, cols: np.ndarray) -> "LotData":
+        position = np.full(self.months, -1)
+        position[cols] = np.arange(len(cols))
+        where = position[self.zero_month]
+        keep = where >= 0
+        return LotData(self.stats[:, :, cols], self.zero_market[keep], where[keep])
 
 
 def log_likelihood(theta: np.ndarray, ret, market, masks, valid, *, hessian: bool = False):
+    """Each month's log-likelihood, its gradient and (``hessian=True``) its Hessian; see ``evaluate``."""
+    return evaluate(theta, LotData.build(ret, market, masks, valid), hessian=hessian)
+
+
+def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False):
     """Each month's log-likelihood, its gradient and (``hessian=True``) its Hessian in (alpha_1, alpha_2, beta, ln sigma).
 
-    ``theta`` has shape (4, months); the data (days, months); the gradient
-    has shape (4, months), the Hessian (months, 4, 4). With z = (R + alpha_k -
-    beta R_m) / sigma on a non-zero return and, on a zero return, l = (alpha_1
-    - beta R_m) / sigma, h = (alpha_2 - beta R_m) / sigma, D = Phi(h) - Phi(l),
-    u = phi(h) / D, v = phi(l) / D, the derivatives are those of
-    -ln sigma - z^2 / 2 and of ln D (d ln D / dp = u h_p - v l_p, and
-    d^2 ln D / dp dq = -h u h_p h_q + u h_pq + l v l_p l_q - v l_pq - g_p g_q).
+    ``theta`` has shape (4, months); the gradient (4, months), the Hessian
+    (months, 4, 4). Non-zero returns of region k contribute -n_k ln sigma -
+    Q_k / (2 sigma^2) with Q_k = sum (R + alpha_k - beta R_m)^2, expanded in
+    the region's sums. A zero return contributes ln D with l = (alpha_1 -
+    beta R_m) / sigma, h = (alpha_2 - beta R_m) / sigma, D = Phi(h) -
+    Phi(l), u = phi(h) / D, v = phi(l) / D: d ln D / dp = u h_p - v l_p and
+    d^2 ln D / dp dq = -h u h_p h_q + u h_pq + l v l_p l_q - v l_pq - g_p g_q.
     """
     a1, a2, beta, log_s = theta
-    s = np.exp(log_s)
-    zero, one, two = (m & valid for m in masks)
-    moved = one | two
-    fitted = beta * market
-    z = np.where(moved, (ret + np.where(one, a1, a2) - fitted) / s, 0.0)
-    lo, hi, log_d = _zero_terms(a1, a2, fitted, s, zero)
-    ll = np.where(moved, -log_s - 0.5 * z * z - LOG_ROOT_2PI, 0.0) + log_d
-    u = np.where(zero, np.exp(-0.5 * hi * hi - LOG_ROOT_2PI - log_d), 0.0)  # phi(h) / D
-    v = np.where(zero, np.exp(-0.5 * lo * lo - LOG_ROOT_2PI - log_d), 0.0)  # phi(l) / D
+    months = theta.shape[1]
+    var = np.exp(2.0 * log_s)
+    n, sr, sx, srr, srx, sxx = data.stats.transpose(1, 0, 2)  # each (2, months): regions 1 and 2
+    a = np.stack([a1, a2])
+    q = srr + n * a * a + beta * beta * sxx + 2.0 * a * sr - 2.0 * beta * srx - 2.0 * a * beta * sx
+    moved = n.sum(axis=0)
+    ll = -moved * (log_s + LOG_ROOT_2PI) - q.sum(axis=0) / (2.0 * var)
+    d_a = -(n * a + sr - beta * sx) / var  # (2, months)
+    d_b = -(beta * sxx - srx - a * sx).sum(axis=0) / var
+    d_t = -moved + q.sum(axis=0) / var
+    # zero returns, one entry each
+    m, x = data.zero_month, data.zero_market
+    s = np.exp(log_s)[m]
+    lo, hi = (a1[m] - beta[m] * x) / s, (a2[m] - beta[m] * x) / s
+    log_d = _log_interval(lo, hi)
+    u = np.exp(-0.5 * hi * hi - LOG_ROOT_2PI - log_d)
+    v = np.exp(-0.5 * lo * lo - LOG_ROOT_2PI - log_d)
     inv = 1.0 / s
-    # first derivatives of l and h: (d/d alpha_1, d/d alpha_2, d/d beta, d/d ln sigma)
-    zeros = np.zeros_like(ret)
-    l_p = np.stack([zeros + inv, zeros, -market * inv, -lo])
-    h_p = np.stack([zeros, zeros + inv, -market * inv, -hi])
+    zeros = np.zeros_like(x)
+    l_p = np.stack([inv, zeros, -x * inv, -lo])
+    h_p = np.stack([zeros, inv, -x * inv, -hi])
     g_zero = u * h_p - v * l_p
-    g_moved = np.stack([np.where(one, -z * inv, 0.0), np.where(two, -z * inv, 0.0), z * market * inv,
-                        np.where(moved, z * z - 1.0, 0.0)])
-    per_obs = np.where(zero, g_zero, g_moved)
-    grad = np.nan_to_num(per_obs.sum(axis=1), nan=0.0, posinf=0.0, neginf=0.0)
+
+    def total(values: np.ndarray) -> np.ndarray:
+        return np.bincount(m, weights=values, minlength=months)
+
+    ll = ll + total(log_d)
+    grad = np.stack([d_a[0], d_a[1], d_b, d_t]) + np.stack([total(g) for g in g_zero])
+    grad = np.nan_to_num(grad, nan=0.0, posinf=0.0, neginf=0.0)
     if not hessian:
-        return ll.sum(axis=0), grad
-    # non-zero returns: d2 of -z^2 / 2 with dz = (1/s, 1/s by region, -X/s, -z)
-    d_z = np.stack([np.where(one, inv, 0.0), np.where(two, inv, 0.0), np.where(moved, -market * inv, 0.0), -z])
-    h_moved = -np.einsum("idm,jdm->mij", d_z, d_z)
-    # - z d2z/dp dt with d2z/d alpha_k dt = -1/s, d2z/d beta dt = X/s, d2z/dt2 = z
-    t_cross = (np.stack([np.where(one, z, 0.0), np.where(two, z, 0.0), -z * market]) * inv).sum(axis=1).T
-    h_moved[:, 3, :3] += t_cross
-    h_moved[:, :3, 3] += t_cross
-    h_moved[:, 3, 3] -= (z * z).sum(axis=0)
-    # zero returns
-    h_zero = (np.einsum("dm,idm,jdm->mij", -hi * u, h_p, h_p) + np.einsum("dm,idm,jdm->mij", lo * v, l_p, l_p)
-              - np.einsum("idm,jdm->mij", g_zero * zero, g_zero))
+        return ll, grad
+    h = np.zeros((months, 4, 4))
+    h[:, 0, 0], h[:, 1, 1] = -n[0] / var, -n[1] / var
+    h[:, 0, 2], h[:, 1, 2] = sx[0] / var, sx[1] / var
+    h[:, 2, 2] = -sxx.sum(axis=0) / var
+    h[:, 0, 3], h[:, 1, 3], h[:, 2, 3] = -2.0 * d_a[0], -2.0 * d_a[1], -2.0 * d_b
+    h[:, 3, 3] = -2.0 * q.sum(axis=0) / var
+    for i in range(4):
+        for j in range(i, 4):
+            term = -hi * u * h_p[i] * h_p[j] + lo * v * l_p[i] * l_p[j] - g_zero[i] * g_zero[j]
+            h[:, i, j] += total(term)
     # second derivatives of l and h: l_{a1,t} = -1/s, l_{b,t} = X/s, l_{t,t} = l (and h alike with alpha_2)
-    h_zero[:, 0, 3] += (v * inv).sum(axis=0)
-    h_zero[:, 3, 0] += (v * inv).sum(axis=0)
-    h_zero[:, 1, 3] -= (u * inv).sum(axis=0)
-    h_zero[:, 3, 1] -= (u * inv).sum(axis=0)
-    cross_b = (u - v) * market * inv
-    h_zero[:, 2, 3] += cross_b.sum(axis=0)
-    h_zero[:, 3, 2] += cross_b.sum(axis=0)
-    h_zero[:, 3, 3] += (u * hi - v * lo).sum(axis=0)
-    return ll.sum(axis=0), grad, np.nan_to_num(h_moved + h_zero)
+    h[:, 0, 3] += total(v * inv)
+    h[:, 1, 3] -= total(u * inv)
+    h[:, 2, 3] += total((u - v) * x * inv)
+    h[:, 3, 3] += total(u * hi - v * lo)
+    lower = np.tril_indices(4, -1)
+    h[:, lower[0], lower[1]] = h[:, lower[1], lower[0]]
+    return ll, grad, np.nan_to_num(h)
 
 
 def starting_values(ret, market, valid) -> np.ndarray:
@@ -166,12 +213,12 @@ def fit_lot(ret: np.ndarray, market: np.ndarray, valid: np.ndarray, *, form: str
     masks = regions(ret, market, form)
     theta = starting_values(ret, market, valid)
     with np.errstate(all="ignore"):  # trial steps may leave the domain; their likelihood is -inf and they are refused
-        return _iterate(theta, ret, market, masks, valid, max_iterations, tolerance)
+        return _iterate(theta, LotData.build(ret, market, masks, valid), max_iterations, tolerance)
 
 
-def _iterate(theta, ret, market, masks, valid, max_iterations, tolerance) -> dict[str, np.ndarray]:
+def _iterate(theta, all_data: LotData, max_iterations, tolerance) -> dict[str, np.ndarray]:
     months = theta.shape[1]
-    ll, grad = log_likelihood(theta, ret, market, masks, valid)
+    ll, grad = evaluate(theta, all_data)
     damping = np.full(months, 1e-3)
     done = np.zeros(months, dtype=bool)
     iterations = np.zeros(months, dtype=np.int64)
@@ -181,10 +228,10 @@ def _iterate(theta, ret, market, masks, valid, max_iterations, tolerance) -> dic
         if not active.any():
             break
         cols = np.flatnonzero(active)
-        th, data = theta[:, cols], (ret[:, cols], market[:, cols], tuple(m[:, cols] for m in masks), valid[:, cols])
+        th, data = theta[:, cols], (all_data if len(cols) == months else all_data.subset(cols))
         g = grad[:, cols]
         scale = np.stack([np.exp(th[3])] * 2 + [np.ones(len(cols)), np.ones(len(cols))])  # sigma for the alphas
-        hessian = log_likelihood(th, *data, hessian=True)[2]
+        hessian = evaluate(th, data, hessian=True)[2]
         curvature = np.abs(np.diagonal(hessian, axis1=1, axis2=2)) + 1e-12
         system = -hessian + damping[cols, None, None] * curvature[:, :, None] * eye
         # a threshold held at its bound by its gradient stays there: its row and column leave the system
@@ -202,7 +249,7 @@ def _iterate(theta, ret, market, masks, valid, max_iterations, tolerance) -> dic
         candidate[0] = np.minimum(candidate[0], 0.0)  # the bounds of LOT (1999): alpha_1 <= 0 <= alpha_2
         candidate[1] = np.maximum(candidate[1], 0.0)
         step = candidate - th
-        new_ll, new_grad = log_likelihood(candidate, *data)
+        new_ll, new_grad = evaluate(candidate, data)
         better = np.isfinite(new_ll) & (new_ll >= ll[cols])
         iterations[cols] += 1
         size = np.max(np.abs(step) / scale, axis=0)
@@ -297,4 +344,4 @@ def lot_ysplit(daily: pl.LazyFrame, **options) -> pl.LazyFrame:
     return lot_cost(daily, form="ysplit", **options)
 
 
-__all__ = ["FORMS", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values"]
+__all__ = ["FORMS", "LotData", "evaluate", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values"]
