@@ -19,6 +19,10 @@ and the floor: the fastest of ``--repeat`` runs):
   family reads once (a sum per security-month), the least any measure stage
   must do.
 
+The LOT fits (both forms) are timed apart too, on ``--lot-fraction`` of the
+securities, against scipy's optimiser run one security-month at a time on
+``--lot-months`` months, and their share of the stage is printed.
+
 The Gibbs sampler is timed apart, per security-month at ``--sweeps`` sweeps:
 ours on ``--gibbs-fraction`` of the securities, the baseline as a loop that
 runs the same sampler one security-month at a time on ``--gibbs-months``
@@ -48,6 +52,7 @@ TARGET_RATIO = 50.0  # all daily measures together against the naive baseline
 TARGET_FLOOR = 3.0  # ours over the one-pass floor
 TARGET_MEMORY_GB = 4.0  # peak resident memory at the default size
 TARGET_GIBBS_RATIO = 100.0  # vectorised sampler against the per-month loop
+LOT = ("lot_mixed", "lot_ysplit")  # likelihood fits, timed apart like the sampler
 GIB = 1024.0**3
 
 
@@ -55,7 +60,7 @@ def _families() -> dict[str, list[str]]:
     """Registered measures computable from daily bars alone, by family.
 
     Measures that need intraday columns (the high-frequency benchmarks) and
-    the Gibbs sampler (timed apart) are left out.
+    the Gibbs sampler and the LOT fits (timed apart) and the blend (its components are timed) are left out.
     """
     from liqpanel.contracts import DAILY
     from liqpanel.measures import REGISTRY
@@ -63,7 +68,7 @@ def _families() -> dict[str, list[str]]:
     daily_columns = set(DAILY) | {"shares_out", "mkt_ret"}
     families: dict[str, list[str]] = {}
     for name, measure in REGISTRY.items():
-        if name != "gibbs_spread" and set(measure.columns) <= daily_columns:
+        if name not in ("gibbs_spread", "spread_blend") and name not in LOT and set(measure.columns) <= daily_columns:
             families.setdefault(measure.family, []).append(name)
     return families
 
@@ -100,7 +105,10 @@ def _run_ours(path: str, names: list[str], options: dict | None = None) -> tuple
     from liqpanel.measures import compute_monthly
 
     started = time.perf_counter()
-    out = compute_monthly(pl.scan_parquet(path), {n: (options or {}).get(n) for n in names})
+    from bench.measures_naive import OPTIONS
+
+    options = {**OPTIONS, **(options or {})}
+    out = compute_monthly(pl.scan_parquet(path), {n: options.get(n) for n in names})
     return time.perf_counter() - started, out.height, _peak_bytes()
 
 
@@ -116,6 +124,26 @@ def _run_gibbs(path: str, securities: list[str], sweeps: int, burn: int) -> tupl
     seconds = time.perf_counter() - started
     sampled = int((out["gibbs_spread_n"] >= 3).sum())  # the sampler runs on every month with 3 returns or more
     return seconds, sampled, _peak_bytes()
+
+
+def _run_lot(path: str, securities: list[str]) -> tuple[float, int, int]:
+    """Both registered LOT measures on the given securities: seconds, fitted months, peak bytes."""
+    import polars as pl
+
+    from liqpanel.measures import compute_monthly
+
+    lf = pl.scan_parquet(path).filter(pl.col("security").is_in(securities))
+    started = time.perf_counter()
+    out = compute_monthly(lf, {name: None for name in LOT})
+    seconds = time.perf_counter() - started
+    return seconds, int(out["lot_ysplit_converged"].is_not_null().sum()), _peak_bytes()
+
+
+def _run_naive_lot(path: str, securities: list[str], months: int) -> tuple[float, int, int]:
+    from bench.measures_naive import lot_per_month
+
+    seconds, done = lot_per_month(path, securities, months=months)
+    return seconds, done, _peak_bytes()
 
 
 def _run_floor(path: str, columns: list[str]) -> tuple[float, int, int]:
@@ -223,6 +251,9 @@ def _parser() -> argparse.ArgumentParser:
                    help="share of the securities the Gibbs sampler runs on (default 0.05; 0 skips the Gibbs row)")
     p.add_argument("--gibbs-months", type=int, default=40,
                    help="security-months of the per-month Gibbs loop (default 40)")
+    p.add_argument("--lot-fraction", type=float, default=0.05,
+                   help="share of the securities the LOT fits run on (default 0.05; 0 skips the LOT row)")
+    p.add_argument("--lot-months", type=int, default=40, help="security-months of the per-month LOT loop (default 40)")
     p.add_argument("--sweeps", type=int, default=1000, help="Gibbs sweeps (default 1000, 20%% burn-in)")
     p.add_argument("--repeat", type=int, default=3,
                    help="runs of ours and of the floor, the fastest kept (default 3; the baseline runs once)")
@@ -273,8 +304,20 @@ def run(args: argparse.Namespace, echo=print, isolate=in_fresh_process) -> tuple
             loop, loop_months, _ = isolate(_run_naive_gibbs, path, chosen, args.gibbs_months, args.sweeps, burn)
             gibbs = Row(f"gibbs ({args.sweeps} sweeps)", 1, months, ours, loop / loop_months * months, None, peak)
             echo(f"  gibbs: ours {ours:.1f} s for {months} security-months, loop {loop:.1f} s for {loop_months}")
+        lot, lot_lines = None, []
+        if getattr(args, "lot_fraction", 0) > 0:
+            chosen = sorted(rng.choice(names, max(1, round(args.lot_fraction * len(names))), replace=False).tolist())
+            ours, months, peak = fastest(isolate, args.repeat, _run_lot, path, chosen)
+            loop, loop_months, _ = isolate(_run_naive_lot, path, chosen, args.lot_months)
+            lot = Row("lot (mixed + Y-split)", 2, months, ours, loop / max(loop_months, 1) * months, None, peak)
+            echo(f"  lot: ours {ours:.1f} s for {months} security-months, loop {loop:.1f} s for {loop_months}")
+            whole = ours * len(names) / len(chosen)  # scaled by securities to the whole panel
+            lot_lines.append(f"LOT share of the measures stage (all daily measures + both LOT fits, LOT scaled to the "
+                             f"whole panel): {whole / (whole + rows[-1].ours):.0%} ({whole:.1f} s of "
+                             f"{whole + rows[-1].ours:.1f} s)")
         default_size = args.securities == 5000 and args.years == 5.0
-        return rows + ([gibbs] if gibbs else []), verdicts(rows[-1], gibbs, default_size)
+        extra = [r for r in (gibbs, lot) if r is not None]
+        return rows + extra, verdicts(rows[-1], gibbs, default_size) + lot_lines
     finally:
         if args.workdir is None:
             shutil.rmtree(workdir, ignore_errors=True)
@@ -292,7 +335,7 @@ def main(argv: list[str] | None = None) -> int:
     rows, lines = run(args, echo=lambda text: print(text, flush=True))
     print()
     print(format_table(rows))
-    print("rows: daily rows (Gibbs: security-months sampled); ratio: baseline / ours; baseline scaled by rows")
+    print("rows: daily rows (Gibbs, LOT: security-months fitted); ratio: baseline / ours; baseline scaled by rows")
     print()
     print("\n".join(lines))
     names = [n for members in _families().values() for n in members]

@@ -22,8 +22,11 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from scipy.special import ndtri
+
 from liqpanel.measures.gibbs import sample_roll_model
 from liqpanel.measures.library import MEASURES
+from liqpanel.measures.ticks import DECIMAL_MULTIPLES, class_shares
 
 KEY = ["security", "month"]
 LN2 = math.log(2.0)
@@ -176,14 +179,70 @@ def ps_gamma(g: pd.DataFrame) -> float:
     return float(coef[2]) if rank == 3 else np.nan
 
 
+def _no_trade_days(g: pd.DataFrame) -> int:
+    return max(int(g["_market_days"].iloc[0]) - len(g), 0)
+
+
+def fht_spread(g: pd.DataFrame) -> float:
+    r = np.concatenate([g["ret"].dropna().to_numpy(), np.zeros(_no_trade_days(g))])
+    z = np.mean(r == 0) if len(r) else np.nan
+    if len(r) < 2 or z == 1:
+        return np.nan
+    return float(2.0 * np.std(r, ddof=1) * ndtri((1.0 + z) / 2.0))
+
+
+def amivest(g: pd.DataFrame) -> float:
+    ok = (g["dollar_volume"] > 0) & g["ret"].notna() & (g["ret"] != 0)
+    if not ok.any():
+        return np.nan
+    return float((g["dollar_volume"][ok] / g["ret"][ok].abs()).mean() / 1e6)
+
+
+def liu_lm(g: pd.DataFrame) -> float:
+    shares = g["shares_out"] > 0
+    if not shares.any():
+        return np.nan
+    turnover = (g["volume"][shares] / g["shares_out"][shares]).sum()
+    if turnover <= 0:
+        return np.nan
+    zero = int((g["volume"] == 0).sum()) + _no_trade_days(g)
+    return float((zero + (1.0 / turnover) / 11_000.0) * 21.0 / g["_market_days"].iloc[0])
+
+
+TICK = 0.01  # the synthetic panel's tick (bench.measures_data)
+
+
+def effective_tick(g: pd.DataFrame) -> float:
+    close = g["close"][(g["volume"] > 0) & (g["close"] > 0)].to_numpy()
+    units = close / TICK
+    whole = np.round(units)
+    whole = whole[np.abs(units - whole) <= 1e-6].astype(np.int64)
+    close = close[np.abs(units - np.round(units)) <= 1e-6]
+    if len(whole) == 0:
+        return np.nan
+    classes = np.zeros(len(whole), dtype=int)
+    for j, m in enumerate(DECIMAL_MULTIPLES[1:], start=1):
+        classes[whole % m == 0] = j
+    frequency = np.bincount(classes, minlength=len(DECIMAL_MULTIPLES)) / len(whole)
+    shares = class_shares(DECIMAL_MULTIPLES)
+    unconstrained, gamma = [], []
+    for k in range(len(DECIMAL_MULTIPLES)):
+        unconstrained.append((frequency[k] - sum(shares[k, j] * unconstrained[j] for j in range(k))) / shares[k, k])
+        gamma.append(min(max(unconstrained[k], 0.0), 1.0 - sum(gamma)))
+    return float(sum(gm * m * TICK for gm, m in zip(gamma, DECIMAL_MULTIPLES)) / close.mean())
+
+
 FUNCTIONS: dict[str, Callable[[pd.DataFrame], float]] = {
     "roll_spread": roll, "amihud": amihud, "cs_spread": cs_spread, "ar_spread_2day": ar_spread_2day,
     "ar_spread_monthly": ar_spread_monthly, "edge_spread": edge_spread, "vol_close": vol_close,
     "vol_parkinson": vol_parkinson, "vol_garman_klass": vol_garman_klass,
     "vol_rogers_satchell": vol_rogers_satchell, "vol_yang_zhang": vol_yang_zhang,
     "zero_return_share": zero_return_share, "zero_return_share_traded": zero_return_share_traded,
-    "turnover": turnover, "ps_gamma": ps_gamma,
+    "turnover": turnover, "ps_gamma": ps_gamma, "fht_spread": fht_spread, "amivest": amivest, "liu_lm": liu_lm,
+    "effective_tick": effective_tick,
 }
+# Options the library needs to compute what the baseline computes on the synthetic panel.
+OPTIONS: dict[str, dict] = {"effective_tick": {"tick_size": TICK}}
 MIN_DAYS = {m.name: m.min_days for m in MEASURES}
 # The library counts, for each measure, the observations its minimum applies to.
 N_OBS: dict[str, Callable[[pd.DataFrame], int]] = {
@@ -194,6 +253,10 @@ N_OBS: dict[str, Callable[[pd.DataFrame], int]] = {
     "zero_return_share": lambda g: int(g["_market_days"].iloc[0] - g["ret"].isna().sum()),
     "zero_return_share_traded": lambda g: int(g["_market_days"].iloc[0] - g["ret"].isna().sum()),
     "ps_gamma": lambda g: _ps_pairs(g),
+    "fht_spread": lambda g: int(g["_market_days"].iloc[0] - g["ret"].isna().sum()),
+    "amivest": lambda g: int(((g["dollar_volume"] > 0) & g["ret"].notna() & (g["ret"] != 0)).sum()),
+    "liu_lm": lambda g: int(g["_market_days"].iloc[0]),
+    "effective_tick": lambda g: int((g["volume"] > 0).sum()),
 }
 
 
@@ -266,4 +329,33 @@ def gibbs_per_month(path: str, securities: list[str], *, months: int, sweeps: in
     return time.perf_counter() - started, done
 
 
-__all__ = ["FUNCTIONS", "gibbs_per_month", "monthly", "prepare", "time_monthly"]
+def lot_per_month(path: str, securities: list[str], *, months: int) -> tuple[float, int]:
+    """The LOT fits (both forms) one security-month at a time with scipy's general optimiser: seconds, months fitted.
+
+    The same likelihood as the library (``liqpanel.measures.lot.log_likelihood``, one month as a column),
+    maximised by ``scipy.optimize.minimize`` (BFGS with the analytic gradient) from the same starting values.
+    """
+    from scipy.optimize import minimize
+
+    from liqpanel.measures.lot import FORMS, log_likelihood, regions, starting_values
+
+    daily = prepare(pd.read_parquet(path, columns=["security", "date", "month", "ret"]))
+    daily = daily[daily["security"].isin(securities)].dropna(subset=["ret", "mkt_ret"])
+    groups = [g for _, g in daily.groupby(KEY, sort=True) if len(g) >= 15][:months]
+    started = time.perf_counter()
+    for g in groups:
+        r, x = g["ret"].to_numpy()[:, None], g["mkt_ret"].to_numpy()[:, None]
+        valid = np.ones_like(r, dtype=bool)
+        for form in FORMS:
+            masks = regions(r, x, form)
+
+            def negative(theta, masks=masks, r=r, x=x, valid=valid):
+                ll, grad = log_likelihood(theta[:, None], r, x, masks, valid)
+                return -ll[0], -grad[:, 0]
+
+            with np.errstate(all="ignore"):
+                minimize(negative, starting_values(r, x, valid)[:, 0], jac=True, method="BFGS")
+    return time.perf_counter() - started, len(groups)
+
+
+__all__ = ["FUNCTIONS", "OPTIONS", "lot_per_month", "gibbs_per_month", "monthly", "prepare", "time_monthly"]

@@ -20,7 +20,7 @@ from bench import measures as bench
 from bench import measures_naive as naive
 from bench.measures_data import write_panel
 from liqpanel.contracts import DAILY
-from liqpanel.measures import compute_monthly
+from liqpanel.measures import REGISTRY, compute_monthly
 
 
 @pytest.fixture(scope="module")
@@ -44,13 +44,13 @@ def test_synthetic_panel_follows_the_daily_contract(panel):
 def test_naive_baseline_equals_the_library(panel):
     names = list(naive.FUNCTIONS)
     _, rows, base = naive.time_monthly(panel, names)
-    ours = compute_monthly(pl.scan_parquet(panel), {n: None for n in names}).to_pandas()
+    ours = compute_monthly(pl.scan_parquet(panel), {n: naive.OPTIONS.get(n) for n in names}).to_pandas()
     assert rows == pl.read_parquet(panel).height
     assert list(base["security"]) == list(ours["security"])
     for name in names:
         # Same missing months, same values up to rounding (ps_gamma: a least-squares
         # solve against the library's centred normal equations).
-        a, b = base[name].to_numpy(float), ours[name].to_numpy(float)
+        a, b = base[name].to_numpy(float), ours[REGISTRY[name].outputs[0]].to_numpy(float)
         assert np.isfinite(b).sum() > len(b) // 2, name
         np.testing.assert_allclose(a, b, rtol=1e-8 if name == "ps_gamma" else 1e-11, atol=0, equal_nan=True,
                                    err_msg=name)
@@ -58,16 +58,17 @@ def test_naive_baseline_equals_the_library(panel):
 
 def test_benchmark_runs_on_a_tiny_panel_and_prints_every_family(tmp_path):
     args = argparse.Namespace(securities=8, years=0.25, baseline_fraction=0.5, gibbs_fraction=0.5, gibbs_months=2,
-                              sweeps=20, repeat=1, workdir=str(tmp_path), seed=3)
+                              sweeps=20, repeat=1, workdir=str(tmp_path), seed=3, lot_fraction=0.5, lot_months=3)
     rows, lines = bench.run(args, echo=lambda text: None, isolate=lambda f, *a: f(*a))
     labels = [r.label for r in rows]
-    assert labels == [*bench._families(), "all daily measures", "gibbs (20 sweeps)"]
+    assert labels == [*bench._families(), "all daily measures", "gibbs (20 sweeps)", "lot (mixed + Y-split)"]
     assert all(r.ours > 0 and r.peak > 0 for r in rows)
-    assert all(r.ratio > 0 for r in rows) and all(r.over_floor > 0 for r in rows[:-1])
-    assert rows[-2].baseline == pytest.approx(sum(r.baseline for r in rows[:-2]))
+    assert all(r.ratio > 0 for r in rows) and all(r.over_floor > 0 for r in rows[:-2])
+    assert rows[-3].baseline == pytest.approx(sum(r.baseline for r in rows[:-3]))
     table = bench.format_table(rows)
     assert all(label in table for label in labels)
-    assert len(lines) == 4 and lines[0].startswith("all daily measures vs naive baseline")
+    assert len(lines) == 5 and lines[0].startswith("all daily measures vs naive baseline")
+    assert lines[-1].startswith("LOT share of the measures stage")
 
 
 def test_timed_steps_run_in_a_fresh_process(panel):

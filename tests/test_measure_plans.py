@@ -50,8 +50,9 @@ def plan_of(name: str) -> plans.Plan:
 def test_every_daily_measure_except_the_sampler_has_a_plan():
     columns = set(DAILY) | {"shares_out", "mkt_ret"}
     without = sorted(n for n, m in REGISTRY.items() if m.plan is None and set(m.columns) <= columns)
-    assert without == ["gibbs_spread"]  # a Markov chain, not a sum over days
-    assert len(daily_measures()) == 15
+    # a Markov chain, likelihood fits, and a combination of other measures: not sums over days
+    assert without == ["gibbs_spread", "lot_mixed", "lot_ysplit", "spread_blend"]
+    assert len(daily_measures()) == 19
 
 
 def test_slices_give_exactly_the_one_pass_result(daily, monkeypatch):

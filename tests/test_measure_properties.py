@@ -21,7 +21,7 @@ from liqpanel.measures.library import MEASURES
 from liqpanel.measures.market import add_market_return
 
 KEY = ["security", "month"]
-FAST = {"gibbs_spread": {"sweeps": 40, "burn": 10}}
+FAST = {"gibbs_spread": {"sweeps": 40, "burn": 10}, "lot_mixed": {"max_iterations": 30}, "lot_ysplit": {"max_iterations": 30}}
 PRICE_FREE = {m.name for m in MEASURES if m.family in ("spread", "volatility")}
 SETTINGS = settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -83,12 +83,14 @@ def daily_tables(draw):
         (pl.col("volume") * pl.col("close")).alias("dollar_volume"),
         pl.col("volume").cast(pl.Int64).alias("n_trades"),
         pl.lit(1e6).alias("shares_out"),
+        (pl.col("close") - tick / 200).alias("close_bid"),  # a closing quote half a price step either side
+        (pl.col("close") + tick / 200).alias("close_ask"),
     )
     return add_market_return(frame.lazy()).collect()
 
 
 def scale_prices(frame: pl.DataFrame, factor: float) -> pl.DataFrame:
-    return frame.with_columns(pl.col("open", "high", "low", "close") * factor)
+    return frame.with_columns(pl.col("open", "high", "low", "close", "close_bid", "close_ask") * factor)
 
 
 @SETTINGS
@@ -127,8 +129,9 @@ def test_missing_days_never_raise_and_the_contract_holds(daily):
         assert all(out[c].dtype == pl.Float64 for c in measure.outputs), measure.name
         assert out["n_obs"].dtype == pl.Int64 and out["reason"].dtype == pl.String, measure.name
         checked = out.join(rows, on=KEY).join(market_days, on="month")
-        # Zero-return shares count the market's days (days without a trade included).
-        limit = "market_days" if measure.name.startswith("zero_return") else "len"
+        # Zero-return shares, FHT and Liu count the market's days (days without a trade included).
+        on_calendar = measure.name.startswith("zero_return") or measure.name in ("fht_spread", "liu_lm")
+        limit = "market_days" if on_calendar else "len"
         assert (checked["n_obs"] <= checked[limit]).all(), measure.name
         first = pl.col(measure.outputs[0])
         assert out.filter(first.is_null() != pl.col("reason").is_not_null()).height == 0, measure.name
@@ -141,7 +144,8 @@ def test_empty_table_gives_empty_output():
     empty = pl.DataFrame(
         schema={"security": pl.String, "date": pl.Date, "month": pl.Date, "open": pl.Float64, "high": pl.Float64,
                 "low": pl.Float64, "close": pl.Float64, "volume": pl.Float64, "dollar_volume": pl.Float64,
-                "n_trades": pl.Int64, "ret": pl.Float64, "shares_out": pl.Float64, "mkt_ret": pl.Float64}
+                "n_trades": pl.Int64, "ret": pl.Float64, "shares_out": pl.Float64, "mkt_ret": pl.Float64,
+                "close_bid": pl.Float64, "close_ask": pl.Float64}
     )
     for measure in MEASURES:
         out = run(measure, empty)

@@ -130,6 +130,7 @@ BAR_OPTIONS = {
     "quote_lag_seconds": 0.0,
     "horizon_minutes": 5.0,
     "past_close": "session_close",
+    "lambda_interval_minutes": 5.0,
     "realized_variance": {"interval_minutes": 5.0, "price": "auto"},
 }
 
@@ -177,7 +178,8 @@ def intraday_bars(
             horizon_minutes=float(options["horizon_minutes"]),
             past_close=options["past_close"],
         )
-        bars = bars.join(intraday.daily_benchmarks(per_trade), on=key, how="left")
+        benchmarks = intraday.daily_benchmarks(per_trade, interval_minutes=float(options["lambda_interval_minutes"]))
+        bars = bars.join(benchmarks, on=key, how="left")
     if "variance" in groups:
         price = rv_options["price"]
         has_quotes = quotes.select(pl.len()).collect().item() > 0

@@ -27,6 +27,21 @@ equal weights and with trade-size weights (``<measure>_size_weighted``).
 ``n_quoted`` counts the trades matched to a prevailing quote and
 ``n_signed`` those that also got a sign.
 
+Closing quote: ``close_bid`` and ``close_ask``, the quote prevailing at the
+day's last trade matched to a quote (for the closing percent quoted spread
+of Chung & Zhang 2014).
+
+Kyle's lambda (daily; Kyle 1985, in the form of Goyenko, Holden & Trzcinka
+2009, from memory): the slope of the OLS regression, with an intercept, of
+r_n = ln(m_n / m_{n-1}) on S_n = sum_k q_k sqrt(p_k x size_k) over the
+day's intervals n of ``interval_minutes`` (default 5, clock intervals of the
+trade time stamps), where m_n is the midpoint prevailing at the last quoted
+trade of interval n, m_{n-1} that of the previous interval with one, and
+the sum runs over the signed trades of interval n. Units: log midpoint
+change per square root of a unit of currency traded; missing with fewer than
+``MIN_INTERVALS`` intervals or without variation in S. ``kyle_lambda_n``
+counts the intervals used.
+
 Realized variance (daily, squared log-return units): on the grid open,
 open + interval, ..., close of each session, previous-tick sampling (the
 price at a grid point is the last price at or before it), the sum of squared
@@ -46,6 +61,7 @@ from liqpanel.signing import trade_sign
 
 BY = ["security", "date"]
 SPREAD_MEASURES = ("quoted_spread", "effective_spread", "realized_spread", "price_impact")
+MIN_INTERVALS = 5  # fewest intervals of a day's Kyle's lambda regression (convention of this project)
 PAST_CLOSE = ("session_close", "exclude")
 
 
@@ -55,6 +71,10 @@ def benchmark_columns() -> dict[str, pl.DataType]:
     for name in SPREAD_MEASURES:
         columns[name] = pl.Float64
         columns[f"{name}_size_weighted"] = pl.Float64
+    columns["close_bid"] = pl.Float64
+    columns["close_ask"] = pl.Float64
+    columns["kyle_lambda"] = pl.Float64
+    columns["kyle_lambda_n"] = pl.Int64
     return columns
 
 
@@ -139,14 +159,53 @@ def _size_weighted(x: pl.Expr, size: pl.Expr) -> pl.Expr:
     return (x * size).filter(defined).sum() / size.filter(defined).sum()
 
 
-def daily_benchmarks(per_trade: pl.LazyFrame) -> pl.LazyFrame:
-    """Equal- and size-weighted daily means of the per-trade measures."""
+def daily_benchmarks(per_trade: pl.LazyFrame, *, interval_minutes: float = 5.0) -> pl.LazyFrame:
+    """Equal- and size-weighted daily means of the per-trade measures, the closing quote and Kyle's lambda."""
     size = pl.col("size")
-    return per_trade.group_by(BY).agg(
-        pl.col("mid").is_not_null().sum().cast(pl.Int64).alias("n_quoted"),
-        (pl.col("mid").is_not_null() & pl.col("sign").is_not_null()).sum().cast(pl.Int64).alias("n_signed"),
+    quoted = pl.col("mid").is_not_null()
+    means = per_trade.group_by(BY).agg(
+        quoted.sum().cast(pl.Int64).alias("n_quoted"),
+        (quoted & pl.col("sign").is_not_null()).sum().cast(pl.Int64).alias("n_signed"),
         *[pl.col(m).mean().alias(m) for m in SPREAD_MEASURES],
         *[_size_weighted(pl.col(m), size).alias(f"{m}_size_weighted") for m in SPREAD_MEASURES],
+        pl.col("bid").sort_by("ts").filter(quoted.sort_by("ts")).last().alias("close_bid"),
+        pl.col("ask").sort_by("ts").filter(quoted.sort_by("ts")).last().alias("close_ask"),
+    )
+    return means.join(kyle_lambda(per_trade, interval_minutes=interval_minutes), on=BY, how="left")
+
+
+def kyle_lambda(per_trade: pl.LazyFrame, *, interval_minutes: float = 5.0) -> pl.LazyFrame:
+    """Kyle's lambda per security-day from signed trades and their prevailing midpoints (module docstring).
+
+    ``per_trade`` has ``security``, ``date``, ``ts``, ``price``, ``size``,
+    ``mid`` and ``sign`` (``trade_benchmarks``). Returns one row per
+    security-day with a quoted trade: ``kyle_lambda`` and ``kyle_lambda_n``.
+    """
+    if not interval_minutes > 0:
+        raise ValueError(f"Kyle's lambda: interval_minutes must be positive, got {interval_minutes}")
+    every = f"{round(interval_minutes * 60e6)}us"
+    signed = pl.col("sign").cast(pl.Float64) * (pl.col("price") * pl.col("size")).sqrt()
+    intervals = (
+        per_trade.filter(pl.col("mid").is_not_null() & (pl.col("mid") > 0))
+        .with_columns(pl.col("ts").dt.truncate(every).alias("_interval"))
+        .sort(*BY, "ts")
+        .group_by(*BY, "_interval")
+        .agg(pl.col("mid").last().log().alias("_log_mid"), signed.fill_null(0.0).sum().alias("_flow"))
+        .sort(*BY, "_interval")
+    )
+    r = (pl.col("_log_mid") - pl.col("_log_mid").shift(1)).over(BY)
+    pairs = intervals.with_columns(r.alias("_r")).filter(pl.col("_r").is_not_null())
+    x, y = pl.col("_flow"), pl.col("_r")
+    n = pl.len()
+    sxx = (x * x).sum() - x.sum() * x.sum() / n
+    sxy = (x * y).sum() - x.sum() * y.sum() / n
+    days = per_trade.filter(pl.col("mid").is_not_null()).select(BY).unique()
+    per_day = pairs.group_by(BY).agg(n.cast(pl.Int64).alias("kyle_lambda_n"), sxx.alias("_sxx"), sxy.alias("_sxy"))
+    usable = (pl.col("kyle_lambda_n") >= MIN_INTERVALS) & (pl.col("_sxx") > 0)
+    return days.join(per_day, on=BY, how="left").select(
+        *BY,
+        pl.when(usable).then(pl.col("_sxy") / pl.col("_sxx")).alias("kyle_lambda"),
+        pl.col("kyle_lambda_n").fill_null(0),
     )
 
 

@@ -232,14 +232,24 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
     """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
     from liqpanel.measures import compute_monthly
+    from liqpanel.measures.frames import with_market_settings
 
     previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
-    write_parquet(compute_monthly(pl.scan_parquet(daily_path), config["measures"], previous=previous), out)
+    selection = with_market_settings(config["measures"], load_market(config["market"]).get("tick_size"))
+    write_parquet(compute_monthly(pl.scan_parquet(daily_path), selection, previous=previous), out)
 
 
 def gather(paths: list[str], out: str, sort: list[str]) -> None:
     frames = [pl.scan_parquet(p) for p in paths]
     write_parquet(pl.concat(frames, how="diagonal_relaxed").sort(sort, nulls_last=True), out)
+
+
+def gather_monthly(paths: list[str], out: str) -> None:
+    """The month partitions' measures in one table, with the measures that span twelve months (Liu's LM12)."""
+    from liqpanel.measures.frames import with_twelve_month_measures
+
+    frame = pl.concat([pl.scan_parquet(p) for p in paths], how="diagonal_relaxed").sort("security", "month").collect()
+    write_parquet(with_twelve_month_measures(frame), out)
 
 
 def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> None:

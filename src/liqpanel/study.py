@@ -72,6 +72,8 @@ from liqpanel.bars import daily_bars
 from liqpanel.contracts import DAILY, require_columns
 from liqpanel.errors import ConfigError
 from liqpanel.measures import REGISTRY, compute_monthly, get_measure
+from liqpanel.measures.blend import NAME as BLEND
+from liqpanel.measures.frames import with_market_settings
 from liqpanel.simulate import SECURITY_PREFIX, simulate_security_months
 
 KEY = ["security", "month"]
@@ -102,6 +104,7 @@ DEFAULTS: dict[str, Any] = {
     "spread_vol_edges": None,
     "intensity_edges": None,
     "min_cell": 20,
+    "blend_max_missing": 0.05,
 }
 
 
@@ -164,7 +167,7 @@ def estimator_selection(measures: dict[str, Any] | None, names: list[str] | None
     """
     measures = measures or {}
     if names is None:
-        names = sorted(n for n, m in REGISTRY.items() if m.family in KINDS and _from_daily_bars(m))
+        names = sorted(n for n, m in REGISTRY.items() if m.family in KINDS and _from_daily_bars(m) and n != BLEND)
     return {name: measures.get(name) for name in names}
 
 
@@ -677,6 +680,76 @@ def ranking(overall: pl.DataFrame, kind: str) -> pl.DataFrame:
     )
 
 
+# ---------------------------------------------------------------- the calibrated blend
+
+
+@dataclass(frozen=True)
+class Blend:
+    """The blend of spread estimators the study proposes: its weights and its out-of-sample comparison."""
+
+    weights: dict[str, float]
+    table: pl.DataFrame  # estimator, weight, rmse_fit, rmse_out_of_sample, mean_bias_out_of_sample, n_fit, n_scored
+
+
+def blend_weights(estimates: np.ndarray, truth: np.ndarray) -> np.ndarray:
+    """Non-negative weights summing to one that minimise sum (estimates @ w - truth)^2.
+
+    Non-negative least squares (``scipy.optimize.nnls``) on the rows
+    augmented with the constraint row penalty x (1, ..., 1) = penalty, which
+    holds the sum at one to about 1e-9 of the scale; the weights are then
+    divided by their sum.
+    """
+    from scipy.optimize import nnls
+
+    scale = max(float(np.sqrt(np.mean(truth**2))), 1e-12)
+    penalty = 1e6 * scale * np.sqrt(len(truth))
+    design = np.vstack([estimates, np.full((1, estimates.shape[1]), penalty)])
+    target = np.append(truth, penalty)
+    weights, _ = nnls(design, target, maxiter=50 * estimates.shape[1])
+    return weights / weights.sum() if weights.sum() > 0 else np.full(estimates.shape[1], 1.0 / estimates.shape[1])
+
+
+def fit_blend(long: pl.DataFrame, overall: pl.DataFrame, max_missing: float) -> Blend | None:
+    """Weights of the spread estimators that minimise the simulated RMSE, fitted on half the draws, scored on the other.
+
+    Components: the spread estimators missing in at most ``max_missing`` of
+    the draws. Draws with every component present; even draw numbers fit
+    the weights (``blend_weights``), odd ones score them: the RMSE of the
+    blend and of each component over the same scored draws. None when fewer
+    than two estimators qualify or a half is empty. A measurement on data
+    simulated under the Roll model with the market's calibrated conditions,
+    not a published method.
+    """
+    eligible = (overall.filter((pl.col("kind") == "spread") & (pl.col("missing_share") <= max_missing)
+                               & pl.col("rmse").is_not_null())
+                .get_column("estimator").to_list())
+    if len(eligible) < 2:
+        return None
+    wide = (long.filter(pl.col("estimator").is_in(eligible))
+            .pivot(on="estimator", index=["draw", "truth"], values="estimate")
+            .drop_nulls().sort("draw"))
+    fit_rows, score_rows = wide.filter(pl.col("draw") % 2 == 0), wide.filter(pl.col("draw") % 2 == 1)
+    if fit_rows.height == 0 or score_rows.height == 0:
+        return None
+    weights = blend_weights(fit_rows.select(eligible).to_numpy(), fit_rows.get_column("truth").to_numpy())
+
+    def errors(rows: pl.DataFrame, column: np.ndarray) -> tuple[float, float]:
+        e = column - rows.get_column("truth").to_numpy()
+        return float(np.sqrt(np.mean(e**2))), float(np.mean(e))
+
+    columns = {name: (fit_rows.get_column(name).to_numpy(), score_rows.get_column(name).to_numpy()) for name in eligible}
+    columns[BLEND] = (fit_rows.select(eligible).to_numpy() @ weights, score_rows.select(eligible).to_numpy() @ weights)
+    rows = []
+    for name, (fitted, scored) in columns.items():
+        rmse_fit, _ = errors(fit_rows, fitted)
+        rmse_out, bias_out = errors(score_rows, scored)
+        rows.append({"estimator": name, "weight": 1.0 if name == BLEND else float(weights[eligible.index(name)]),
+                     "rmse_fit": rmse_fit, "rmse_out_of_sample": rmse_out, "mean_bias_out_of_sample": bias_out,
+                     "n_fit": fit_rows.height, "n_scored": score_rows.height})
+    table = pl.DataFrame(rows, schema_overrides={"n_fit": pl.Int64, "n_scored": pl.Int64})
+    return Blend(weights={n: float(w) for n, w in zip(eligible, weights)}, table=table)
+
+
 # ---------------------------------------------------------------- the whole study
 
 
@@ -688,7 +761,7 @@ class StudyResult:
     ``by_intensity``, ``by_cell``: the statistics overall and by bins;
     ``truth``: the simulated security-months with their bins; ``conditions``:
     the draws; ``settings``: the settings as run; ``info``: counts for the
-    summary.
+    summary; ``blend``: the proposed blend of spread estimators (``fit_blend``).
     """
 
     long: pl.DataFrame
@@ -700,6 +773,7 @@ class StudyResult:
     conditions: pl.DataFrame
     settings: dict[str, Any]
     info: dict[str, Any] = field(default_factory=dict)
+    blend: Blend | None = None
 
 
 def run_study(
@@ -722,7 +796,7 @@ def run_study(
     s = check_settings(study)
     market = market or Market()
     market = Market(market.timezone, tuple(market.session), market.tick, float(s["overnight_share"]))
-    selection = estimator_selection(measures, s["measures"])
+    selection = with_market_settings(estimator_selection(measures, s["measures"]), market.tick)
     conditions = draw_conditions(pool, s["draws"], s["seed"])
     daily, truth = simulate_draws(conditions, market, s["seed"])
     monthly = compute_monthly(daily.lazy(), selection).filter(pl.col("month") == WINDOW_MONTH).drop("month")
@@ -738,9 +812,11 @@ def run_study(
         "trades_source": _shares(pool, "trades_source"),
         "market": market,
     }
+    overall = summarise(long)
     return StudyResult(
         long=long,
-        overall=summarise(long),
+        overall=overall,
+        blend=fit_blend(long, overall, float(s["blend_max_missing"])),
         by_spread_vol=summarise(long, ["spread_vol_bin", "spread_vol_range"]),
         by_intensity=summarise(long, ["intensity_bin", "intensity_range"]),
         by_cell=summarise(long, ["spread_vol_bin", "spread_vol_range", "intensity_bin", "intensity_range"]),
@@ -814,6 +890,20 @@ def summary_text(result: StudyResult) -> str:
             line += (f"; highest correlation with the true spread across security-months: "
                      f"{closest.item(0, 'estimator')} ({closest.item(0, 'correlation'):.2f})")
         lines += [line + ".", ""]
+    if result.blend is not None:
+        table = result.blend.table
+        blend_row = table.filter(pl.col("estimator") == BLEND).row(0, named=True)
+        best_single = table.filter(pl.col("estimator") != BLEND).sort("rmse_out_of_sample").row(0, named=True)
+        weights = ", ".join(f"{n}: {w:.3f}" for n, w in result.blend.weights.items() if w > 0)
+        lines += [
+            f"Calibrated blend of the spread estimators (weights fitted on {blend_row['n_fit']} draws, scored on "
+            f"{blend_row['n_scored']} others): {weights}. Out-of-sample RMSE {blend_row['rmse_out_of_sample'] * 100:.3f} "
+            f"against {best_single['rmse_out_of_sample'] * 100:.3f} for the best single estimator "
+            f"({best_single['estimator']}) on the same draws. Select it in a later run with "
+            f"`measures: {BLEND}: {{weights: {{...}}}}` (table study_blend); it is a measurement on simulated data "
+            "under the model's assumptions, not a published method.",
+            "",
+        ]
     covered = result.overall.filter(pl.col("coverage").is_not_null())
     for row in covered.iter_rows(named=True):
         lines.append(f"Coverage of the {row['estimator']} interval: {row['coverage']:.1%} of {row['n_estimates']} months "
@@ -860,6 +950,15 @@ def result_tables(result: StudyResult, pool: pl.DataFrame | None = None, audit: 
         StudyTable("study_by_cell", result.by_cell, "Estimators against the truth by spread / volatility and trades per day",
                    f"{where} {bins} {units}"),
     ]
+    if result.blend is not None:
+        tables.append(StudyTable(
+            "study_blend", result.blend.table,
+            "A calibrated blend of the spread estimators: weights and out-of-sample RMSE beside each estimator",
+            f"{where} Non-negative weights summing to one, minimising the RMSE against the true spread on the even "
+            "draws with every component estimated (components: spread estimators missing in at most "
+            f"{result.settings['blend_max_missing']:.0%} of the draws); RMSE and bias scored on the odd draws. A "
+            f"measurement on simulated data under the model's assumptions; select it with `measures: {BLEND}`. {units}",
+        ))
     if pool is not None and "spread" in pool.columns:
         tables.append(StudyTable(
             "study_calibration", describe_conditions(pool), "Calibrated conditions of this market: distribution over security-months",
@@ -922,7 +1021,7 @@ def _fmt(x: float | None) -> str:
 
 
 __all__ = [
-    "DEFAULTS", "Estimate", "Market", "StudyResult", "add_bins", "calibrate", "check_settings", "describe_conditions",
+    "Blend", "DEFAULTS", "Estimate", "Market", "blend_weights", "fit_blend", "StudyResult", "add_bins", "calibrate", "check_settings", "describe_conditions",
     "draw_conditions", "estimates_of", "estimator_selection", "long_estimates", "ranking", "run_study", "settings",
     "simulate_draws", "summarise", "summary_text",
 ]

@@ -15,6 +15,7 @@ import polars as pl
 from liqpanel.contracts import check_unique_key
 from liqpanel.errors import ConfigError
 from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
+from liqpanel.measures import blend as _blend  # noqa: F401  (the study's blend of spread estimators)
 from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
 from liqpanel.measures.market import add_market_return
 from liqpanel.measures.neighbours import FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_MARK, month_flags
@@ -37,7 +38,7 @@ def _finish(frame: pl.LazyFrame, measure: Measure, min_days: int) -> pl.LazyFram
     return frame.select(
         *[pl.when(too_few).then(None).otherwise(pl.col(o)).cast(pl.Float64).alias(o) for o in measure.outputs],
         pl.col("n_obs").cast(pl.Int64).alias(f"{measure.name}_n"),
-        pl.when(too_few)
+        pl.when(too_few & ~((pl.col("n_obs") == 0) & pl.col("reason").is_not_null()))  # nothing counted: the measure says why
         .then(pl.format("too_few_days ({} < {})", pl.col("n_obs"), pl.lit(min_days)))
         .otherwise(pl.col("reason"))
         .alias(f"{measure.name}_reason"),
@@ -53,7 +54,8 @@ def compute_monthly(
     """Compute every selected measure per security-month.
 
     A measure whose ``n_obs`` is below its minimum gets a missing value and
-    the reason ``too_few_days``; a value missing for another reason keeps the
+    the reason ``too_few_days`` (or its own reason when it counted nothing,
+    e.g. ``no_tick_size``); a value missing for another reason keeps the
     measure's own reason.
 
     A measure that lists ``from_previous_month`` among its required columns
@@ -110,4 +112,6 @@ def compute_monthly(
     return check_unique_key(out, KEY, table="monthly measures")
 
 
-__all__ = ["REGISTRY", "Measure", "compute_monthly", "get_measure", "register", "resolve_options"]
+from liqpanel.measures.frames import compute  # noqa: E402  (the notebook entry point uses compute_monthly)
+
+__all__ = ["REGISTRY", "Measure", "compute", "compute_monthly", "get_measure", "register", "resolve_options"]

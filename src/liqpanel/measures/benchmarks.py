@@ -102,6 +102,21 @@ def realized_variance(daily: pl.LazyFrame, **_) -> pl.LazyFrame:
     return _mean_of_days(daily, "realized_variance", ("realized_variance_returns",))
 
 
+def kyle_lambda(daily: pl.LazyFrame, **_) -> pl.LazyFrame:
+    """Kyle's lambda: monthly mean of the daily slopes of midpoint returns on signed order flow.
+
+    Daily (``liqpanel.intraday.kyle_lambda``): OLS slope of r_n = ln(m_n /
+    m_{n-1}) on S_n = sum_k q_k sqrt(p_k size_k) over the day's 5-minute
+    intervals (``bars.lambda_interval_minutes``). Units: log midpoint change
+    per square root of a unit of currency; higher is less liquid. The
+    high-frequency price-impact benchmark of Goyenko, Holden & Trzcinka
+    (2009, from memory); Kyle, A. S. (1985), "Continuous auctions and
+    insider trading", Econometrica 53(6), 1315-1335. Output
+    ``kyle_lambda``; ``n_obs`` days with a slope.
+    """
+    return run_plan(daily, mean_of_days_plan("kyle_lambda", weighted=False))
+
+
 HUANG_STOLL = "Huang & Stoll (1996), Journal of Financial Economics 41(3) (from memory)"
 
 
@@ -134,5 +149,19 @@ register(
         family="volatility",
         min_days=15,
         description="sum of squared intraday log returns on a regular grid, monthly mean of days",
+    )
+)
+
+register(
+    Measure(
+        name="kyle_lambda",
+        function=kyle_lambda,
+        plan=partial(mean_of_days_plan, "kyle_lambda", weighted=False),
+        outputs=("kyle_lambda",),
+        columns=("kyle_lambda",),
+        source="Kyle (1985), Econometrica 53(6); daily regression as in Goyenko, Holden & Trzcinka (2009) (from memory)",
+        family="impact",
+        min_days=15,
+        description="slope of interval midpoint returns on signed square-root dollar volume, monthly mean of days",
     )
 )

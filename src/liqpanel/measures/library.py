@@ -10,7 +10,8 @@ so a month needs one trading day more than the minimum.
 
 from __future__ import annotations
 
-from liqpanel.measures.activity import amihud_illiquidity, amihud_plan
+from liqpanel.measures.activity import amihud_illiquidity, amihud_plan, amivest_liquidity, amivest_plan
+from liqpanel.measures.closing import closing_spread, closing_spread_plan
 from liqpanel.measures.edge import edge_plan, edge_spread
 from liqpanel.measures.gibbs import DEFAULT_PRIOR, gibbs_spread
 from liqpanel.measures.highlow import (
@@ -31,8 +32,11 @@ from liqpanel.measures.impact import (
     zero_return_share_traded,
     zero_return_share_traded_plan,
 )
+from liqpanel.measures.liu import LM1_DEFLATOR, liu_lm, liu_plan
+from liqpanel.measures.lot import lot_mixed, lot_ysplit
 from liqpanel.measures.registry import Measure, register
 from liqpanel.measures.roll import roll_spread, roll_spread_plan
+from liqpanel.measures.ticks import DECIMAL_MULTIPLES, effective_tick, effective_tick_plan
 from liqpanel.measures.volatility import (
     close_to_close_plan,
     close_to_close_volatility,
@@ -45,11 +49,11 @@ from liqpanel.measures.volatility import (
     yang_zhang_plan,
     yang_zhang_volatility,
 )
+from liqpanel.measures.zeros import fht_plan, fht_spread
 
 MIN_DAYS = 15  # common practice for monthly estimates from daily data
 VOLATILITY_OPTIONS = {"annualise": False, "trading_days": 252}
 OHLC = ("open", "high", "low", "close")
-
 
 
 def _volatility(name, function, plan, columns, source, description) -> Measure:
@@ -151,6 +155,86 @@ MEASURES = (
         min_days=MIN_DAYS,
         options={"signed": False},
         description="efficient open-high-low-close spread estimator (EDGE)",
+    ),
+    Measure(
+        name="fht_spread",
+        function=fht_spread,
+        plan=fht_plan,
+        outputs=("fht_spread", "fht_zero_share"),
+        columns=("ret",),
+        source="Fong, Holden & Trzcinka (2017), Review of Finance 21(4)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={"calendar": "market"},
+        description="2 sigma Phi^-1((1 + z) / 2) from the zero-return share z and the return volatility",
+    ),
+    *[
+        Measure(
+            name=f"lot_{form}",
+            function=function,
+            outputs=(f"lot_{form}", f"lot_{form}_converged", f"lot_{form}_iterations"),
+            columns=("ret", "mkt_ret"),
+            source="Lesmond, Ogden & Trzcinka (1999), Review of Financial Studies 12(5); "
+            "Goyenko, Holden & Trzcinka (2009), Journal of Financial Economics 92(2)",
+            family="spread",
+            min_days=MIN_DAYS,
+            options={"max_iterations": 200, "tolerance": 1e-8},
+            description=f"LOT round-trip cost alpha2 - alpha1 by maximum likelihood, {label}; convergence per month",
+        )
+        for form, function, label in (
+            ("mixed", lot_mixed, "regions by the sign of the market return"),
+            ("ysplit", lot_ysplit, "regions by the sign of the security's return"),
+        )
+    ],
+    Measure(
+        name="effective_tick",
+        function=effective_tick,
+        plan=effective_tick_plan,
+        outputs=("effective_tick",),
+        columns=("close", "volume"),
+        source="Holden (2009), Journal of Financial Markets 12(4); "
+        "Goyenko, Holden & Trzcinka (2009), Journal of Financial Economics 92(2)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={"tick_size": None, "multiples": list(DECIMAL_MULTIPLES)},
+        description="spread implied by the clustering of closing prices on the tick grid (tick from the market profile)",
+    ),
+    Measure(
+        name="closing_spread",
+        function=closing_spread,
+        plan=closing_spread_plan,
+        outputs=("closing_spread",),
+        columns=("close_bid", "close_ask"),
+        source="Chung & Zhang (2014), Journal of Financial Markets 17; Fong, Holden & Trzcinka (2017)",
+        family="spread",
+        min_days=MIN_DAYS,
+        options={"max_spread": 0.5},
+        description="closing percent quoted spread (ask - bid) / midpoint, monthly mean of days",
+    ),
+    Measure(
+        name="amivest",
+        function=amivest_liquidity,
+        plan=amivest_plan,
+        outputs=("amivest",),
+        columns=("ret", "dollar_volume"),
+        source="Cooper, Groth & Avera (1985), Journal of Economics and Business 37(1); "
+        "Goyenko, Holden & Trzcinka (2009)",
+        family="impact",
+        min_days=MIN_DAYS,
+        options={"form": "mean_of_ratios", "unit": 1e6},
+        description="Amivest liquidity ratio: dollar volume (millions) per unit absolute return, days with a price move",
+    ),
+    Measure(
+        name="liu_lm",
+        function=liu_lm,
+        plan=liu_plan,
+        outputs=("liu_lm1", "liu_zero_days", "liu_turnover", "liu_days"),
+        columns=("volume", "shares_out"),
+        source="Liu (2006), Journal of Financial Economics 82(3)",
+        family="activity",
+        min_days=1,  # defined from the calendar: a month without trades has 21 standardised zero-volume days
+        options={"deflator": LM1_DEFLATOR, "calendar": "market"},
+        description="LM1: standardised turnover-adjusted zero-volume days; LM12 summed over 12 months after the stage",
     ),
     _volatility("vol_close", close_to_close_volatility, close_to_close_plan, ("ret",),
                 "common practice (sample standard deviation of daily log returns)",

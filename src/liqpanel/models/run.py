@@ -160,15 +160,21 @@ def run_models(
 
     val = models.get("validation")
     if val and monthly is not None:
-        proxies = [p for p in val["proxies"] if p in monthly.columns]
-        if val["benchmark"] in monthly.columns and proxies:
-            out.tables.append(
-                ResultTable(
-                    "proxy_validation",
-                    validate_proxies(monthly, val["benchmark"], proxies),
-                    f"Low-frequency proxies against the high-frequency benchmark {val['benchmark']}",
-                    "In the spirit of Goyenko, Holden & Trzcinka (2009): mean monthly cross-sectional correlations, "
-                    "time-series correlation of market-wide averages, pooled bias and RMSE.",
+        tables = [("proxy_validation", val, "Low-frequency proxies", "pooled bias and RMSE.")]
+        if val.get("price_impact"):
+            tables.append(("impact_validation", val["price_impact"], "Low-frequency price-impact proxies",
+                           "bias and RMSE only where proxy and benchmark share a unit (correlations are unitless; a "
+                           "depth measure such as the Amivest ratio correlates negatively)."))
+        for name, spec, label, errors in tables:
+            proxies = [p for p in spec["proxies"] if p in monthly.columns]
+            if spec["benchmark"] in monthly.columns and proxies:
+                out.tables.append(
+                    ResultTable(
+                        name,
+                        validate_proxies(monthly, spec["benchmark"], proxies),
+                        f"{label} against the high-frequency benchmark {spec['benchmark']}",
+                        "In the spirit of Goyenko, Holden & Trzcinka (2009): mean monthly cross-sectional "
+                        f"correlations, time-series correlation of market-wide averages, {errors}",
+                    )
                 )
-            )
     return out

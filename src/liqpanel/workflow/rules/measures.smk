@@ -23,4 +23,4 @@ rule monthly:
     output:
         f"{WORK}/monthly.parquet",
     run:
-        stages.gather(list(input), output[0], ["security", "month"])
+        stages.gather_monthly(list(input), output[0])
