@@ -10,6 +10,7 @@ rule report:
         panel=f"{WORK}/panel.parquet",
         audit=[f"{WORK}/audit.parquet"] if FROM_TRADES else [],
         models=f"{WORK}/models",
+        factors=f"{WORK}/factors",
         truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
         study=[f"{WORK}/study"] if CONFIG["study"]["in_report"] else [],
     output:
@@ -29,6 +30,7 @@ rule report:
             panel_path=input.panel,
             audit_path=input.audit[0] if input.audit else None,
             models_dir=input.models,
+            factors_dir=input.factors,
             started=STARTED,
             command=COMMAND,
             study_dir=input.study[0] if input.study else None,

@@ -1,0 +1,237 @@
+"""The factors stage: market liquidity, its innovations, liquidity betas, traded factor, commonality.
+
+``run_factors`` takes the analysis panel and the ``factors:`` section of
+the config and returns named result tables (rendered by the report stage
+like the models' tables), series for the figures, and the factor series
+themselves: one row per calendar month, one column per factor, ready to be
+merged into another project's regressions (see :data:`FACTOR_UNITS`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import polars as pl
+
+from liqpanel.errors import InputError
+from liqpanel.factors.aggregate import INNOVATION_SCALE, aggregate_liquidity, liquidity_innovations
+from liqpanel.factors.betas import (
+    LIQ, formation_betas, liquidity_betas, monthly_returns, post_ranking_betas, value_weighted_market,
+)
+from liqpanel.factors.commonality import commonality_regressions, commonality_summary, liquidity_changes
+from liqpanel.factors.ols import grouped_ols
+from liqpanel.models.factor import factor_summary, summary_table
+from liqpanel.models.run import ResultTable
+from liqpanel.models.sorts import sort_portfolios
+
+PS = "Pastor & Stambaugh (2003), Journal of Political Economy 111(3)"
+CRS = "Chordia, Roll & Subrahmanyam (2000), Journal of Financial Economics 56(1)"
+
+FACTOR_UNITS = {
+    "liq_level": "market liquidity level (m_t/m_1) x mean gamma, return per unit of signed dollar volume "
+                 "(the ps_gamma unit, millions by default); month t",
+    "liq_innovation": "innovation L_t = AR residual / 100, same unit / 100; month t",
+    "liq_traded": "traded liquidity factor: high-minus-low liquidity-beta portfolio return, decimal per month, "
+                  "earned in month t",
+}
+
+
+@dataclass
+class FactorOutputs:
+    tables: list[ResultTable] = field(default_factory=list)
+    aggregate: pl.DataFrame | None = None   # month, level, change, innovation
+    deciles: pl.DataFrame | None = None     # portfolio, mean_ret, post-ranking beta
+    factors: pl.DataFrame | None = None     # month, one column per factor
+
+
+def _market(panel: pl.DataFrame, supplied: pl.DataFrame | None, settings: dict) -> tuple[pl.DataFrame, str]:
+    """``month``, ``mkt`` (+ controls, risk-free) dated by the month earned, and a note on its source."""
+    market = settings.get("market")
+    controls = list(settings.get("controls", []))
+    rf = settings.get("risk_free")
+    wanted = [c for c in (market, *controls, rf) if c]
+    if supplied is not None and wanted:
+        missing = [c for c in wanted if c not in supplied.columns]
+        if missing:
+            raise InputError(f"factors: the supplied factor file has no column(s) {missing}; it has {supplied.columns}",
+                             column=missing[0])
+    if market and supplied is None:
+        raise InputError(f"factors: market column '{market}' named, but no factor file is given (inputs.factors)")
+    if market:
+        frame = supplied.select("month", pl.col(market).alias("mkt"), *controls, *([rf] if rf else []))
+        return frame, f"market factor: supplied column '{market}'"
+    if controls or rf:
+        raise InputError("factors: controls and risk_free need a supplied factor file (inputs.factors)")
+    size = settings.get("size", "market_cap")
+    return value_weighted_market(panel, size=size), f"market factor: the panel's {size}-weighted return"
+
+
+def _aggregate_tables(agg: pl.DataFrame, scaled: bool) -> list[ResultTable]:
+    design = agg.sort("month").with_columns(
+        pl.col("change").shift(1).alias("change_lag"), pl.col("level").shift(1).alias("level_lag"),
+        (pl.col("month").shift(1) == pl.col("month").dt.offset_by("-1mo")).alias("_consecutive"),
+    ).filter(pl.col("_consecutive"))
+    fit = grouped_ols(design.with_columns(pl.lit("all").alias("_g")), "change", ["change_lag", "level_lag"], "_g",
+                      min_obs=4)
+    names = {"intercept": "a (intercept)", "change_lag": "b (change, t-1)", "level_lag": "c (scaled level, t-1)"}
+    coef = pl.DataFrame({
+        "term": list(names.values()),
+        "coef": [fit.get_column(f"coef_{n}").item() for n in names],
+        "std_error": [fit.get_column(f"se_{n}").item() for n in names],
+        "tstat": [fit.get_column(f"tstat_{n}").item() for n in names],
+        "n_months": [int(fit.get_column("n_obs").item())] * 3,
+        "r2": [fit.get_column("r2").item()] * 3,
+    })
+    scale_note = ("scaled by m_t/m_1, the market value at the end of t-1 of the securities in the month's average "
+                  "over that of the first month" if scaled else "unscaled (no market value column in the panel)")
+    return [
+        ResultTable(
+            "liquidity_aggregate",
+            agg.select("month", "n_securities", "scale", "level", "change", "innovation"),
+            "Market-wide liquidity: level, change and innovation by month",
+            f"{PS}: securities with ps_gamma in both the month and the month before; level and change "
+            f"{scale_note}; innovation = residual of the AR regression / {INNOVATION_SCALE:g}. "
+            "Units: return per unit of signed dollar volume (ps_gamma's unit).",
+        ),
+        ResultTable(
+            "liquidity_innovation_regression",
+            coef,
+            "AR regression of the change in market liquidity (innovations are its residuals)",
+            f"{PS}: change_t = a + b change_t-1 + c level_t-1 + u_t, OLS; plain standard errors.",
+        ),
+    ]
+
+
+def run_factors(
+    panel: pl.DataFrame, settings: dict[str, Any], *, supplied: pl.DataFrame | None = None, lags: int | None = 6
+) -> FactorOutputs:
+    """Every factor the ``factors:`` config section selects (see the schema for the keys)."""
+    out = FactorOutputs()
+    series: list[pl.DataFrame] = []
+    agg_settings = settings.get("aggregate")
+    innovations = None
+    if agg_settings is not None:
+        size = agg_settings.get("size", "market_cap")
+        scaled = bool(size) and size in panel.columns
+        agg = liquidity_innovations(
+            aggregate_liquidity(panel, gamma=agg_settings.get("gamma", "ps_gamma"), size=size if scaled else None)
+        )
+        out.aggregate = agg
+        out.tables += _aggregate_tables(agg, scaled)
+        innovations = agg.select("month", pl.col("innovation").alias(LIQ)).filter(pl.col(LIQ).is_not_null())
+        series.append(agg.select("month", pl.col("level").alias("liq_level"), pl.col("innovation").alias(LIQ)))
+
+    beta_settings = settings.get("betas")
+    if beta_settings is not None:
+        if innovations is None:
+            raise InputError("factors.betas needs factors.aggregate (the innovation series L_t)")
+        table, deciles, traded = _beta_sort(panel, beta_settings, innovations, supplied, lags)
+        out.tables += table
+        out.deciles = deciles
+        series.append(traded)
+
+    com = settings.get("commonality")
+    if com is not None:
+        out.tables.append(_commonality_table(panel, com, supplied))
+
+    if series:
+        merged = series[0]
+        for s in series[1:]:
+            merged = merged.join(s, on="month", how="full", coalesce=True)
+        out.factors = merged.sort("month").with_columns(pl.col(pl.Float64).fill_nan(None))
+    return out
+
+
+def _beta_sort(panel, settings, innovations, supplied, lags):
+    market, market_note = _market(panel, supplied, settings)
+    rf = settings.get("risk_free")
+    regressors = market.join(innovations, on="month", how="inner").sort("month")
+    window, min_months = settings.get("window", 60), settings.get("min_months", 36)
+    betas = liquidity_betas(monthly_returns(panel), regressors, window=window, min_months=min_months, risk_free=rf)
+    rebalance = settings.get("rebalance", "annual")
+    formed = formation_betas(betas, rebalance)
+    weight = settings.get("weight", "value")
+    weight_col = None if weight == "equal" else ("market_cap" if weight == "value" else weight)
+    n = settings.get("portfolios", 10)
+    lags = settings.get("lags", lags)
+    res = sort_portfolios(
+        panel.join(formed, on=["security", "month"], how="left"), on="liq_beta", n=n, weight=weight_col,
+        min_securities=settings.get("min_securities", 5), characteristics=["liq_beta"], lags=lags,
+    )
+    post_input = pl.concat([
+        res.returns.select("month", pl.col("portfolio").cast(pl.String), "ret"),
+        res.hml_returns.select("month", pl.lit("high-low").alias("portfolio"), "ret"),
+    ])
+    post = post_ranking_betas(post_input, regressors, risk_free=rf).select(
+        "portfolio", pl.col(f"coef_{LIQ}").alias("post_liq_beta"), pl.col(f"tstat_{LIQ}").alias("post_liq_beta_tstat")
+    )
+    summary = pl.concat([
+        res.summary.with_columns(pl.col("portfolio").cast(pl.String)),
+        pl.DataFrame([{"portfolio": "high-low", "mean_ret": res.hml.mean, "std_error": res.hml.std_error,
+                       "tstat": res.hml.tstat, "n_months": res.hml.n_months}]),
+    ], how="diagonal_relaxed").join(post, on="portfolio", how="left", maintain_order="left")
+    summary = summary.rename({"liq_beta": "pre_liq_beta"}) if "liq_beta" in summary.columns else summary
+    scheme = "value-weighted (market value at the end of the formation month)" if weight_col else "equal-weighted"
+    when = "each December, held twelve months" if rebalance == "annual" else "every month"
+    common_note = (
+        f"{PS}: betas from OLS over the trailing {window} months (at least {min_months}) of excess returns on the "
+        f"market factor{', ' + ', '.join(settings.get('controls', [])) if settings.get('controls') else ''} and "
+        f"L_t; {market_note}."
+    )
+    traded = res.hml_returns.select("month", pl.col("ret").alias("factor_ret"))
+    supplied_factors = None
+    if supplied is not None and settings.get("market"):
+        supplied_factors = supplied.select("month", settings["market"], *settings.get("controls", []))
+    perf = factor_summary(traded, supplied_factors, lags=lags)
+    tables = [
+        ResultTable(
+            "liquidity_beta_portfolios",
+            summary,
+            f"Portfolios sorted on historical liquidity beta ({n} groups): post-formation returns and betas",
+            f"{common_note} Formed {when}; {scheme}; returns earned the month after formation; pre_liq_beta: "
+            "mean formation beta; post_liq_beta: full-sample slope of the portfolio's excess return on L_t with the "
+            f"same factors; high-low t-statistic Newey & West (1987), {res.hml.lags} lags; decimal returns per month.",
+        ),
+        ResultTable(
+            "liquidity_traded_factor",
+            summary_table(perf),
+            "Traded liquidity factor: high minus low liquidity-beta portfolio",
+            f"{common_note} Mean and alpha t-statistics Newey & West (1987); alphas against the supplied factors "
+            "(matched by the month the return is earned); decimal returns per month.",
+        ),
+    ]
+    deciles = summary.filter(pl.col("portfolio") != "high-low").select(
+        "portfolio", "mean_ret", "post_liq_beta", *(["pre_liq_beta"] if "pre_liq_beta" in summary.columns else [])
+    )
+    series = traded.select(pl.col("month").dt.offset_by("1mo"), pl.col("factor_ret").alias("liq_traded"))
+    return tables, deciles, series
+
+
+def _commonality_table(panel, settings, supplied) -> ResultTable:
+    market = None
+    if settings.get("market_return", True):
+        market, _ = _market(panel, supplied, {k: settings[k] for k in ("market", "size") if k in settings})
+    rows = []
+    change = settings.get("change", "proportional")
+    for measure in settings.get("measures", []):
+        fits = commonality_regressions(
+            liquidity_changes(panel, measure, change), market, min_months=settings.get("min_months", 12)
+        )
+        rows.append({"measure": measure, **commonality_summary(fits)})
+    columns = ["measure", "n_securities", "mean_months", "mean_concurrent", "tstat_concurrent", "share_positive",
+               "share_positive_significant", "mean_lag", "mean_lead", "mean_sum", "mean_adj_r2"]
+    frame = pl.DataFrame(rows, schema_overrides={"n_securities": pl.Int64}).select(
+        [c for c in columns if c in (rows[0] if rows else {})]
+    ) if rows else pl.DataFrame({"measure": []}, schema={"measure": pl.String})
+    return ResultTable(
+        "liquidity_commonality",
+        frame,
+        "Commonality in liquidity: each security's liquidity change on the market's",
+        f"{CRS}: per security, OLS of the {change} monthly change in the measure on the equal-weighted mean change "
+        "of the other securities in months t-1, t, t+1"
+        + (" and the market return in t-1, t, t+1" if market is not None else "")
+        + "; cross-sectional means of the slopes, t-statistic of the concurrent mean from the cross-section "
+        "(ignores correlation across securities), share positive and positive with t above the two-sided 5% "
+        "critical value, mean adjusted R-squared.",
+    )

@@ -1,0 +1,12 @@
+# factors: panel -> market liquidity, innovations, liquidity betas, traded factor, commonality (liqpanel.factors)
+rule factors:
+    input:
+        panel=f"{WORK}/panel.parquet",
+        factors=[CONFIG["inputs"]["factors"]] if CONFIG["inputs"]["factors"] else [],
+    output:
+        directory(f"{WORK}/factors"),
+    params:
+        factors=CONFIG["factors"],
+        lags=CONFIG["models"].get("lags"),
+    run:
+        stages.factors(CONFIG, input.panel, output[0])
