@@ -15,6 +15,7 @@ from typing import Any
 import polars as pl
 
 from liqpanel.errors import InputError
+from liqpanel.factors import acharya_pedersen as ap
 from liqpanel.factors.aggregate import INNOVATION_SCALE, aggregate_liquidity, liquidity_innovations
 from liqpanel.factors.betas import (
     LIQ, formation_betas, liquidity_betas, monthly_returns, post_ranking_betas, value_weighted_market,
@@ -26,6 +27,7 @@ from liqpanel.models.run import ResultTable
 from liqpanel.models.sorts import sort_portfolios
 
 PS = "Pastor & Stambaugh (2003), Journal of Political Economy 111(3)"
+AP = "Acharya & Pedersen (2005), Journal of Financial Economics 77(2)"
 CRS = "Chordia, Roll & Subrahmanyam (2000), Journal of Financial Economics 56(1)"
 
 FACTOR_UNITS = {
@@ -34,6 +36,9 @@ FACTOR_UNITS = {
     "liq_innovation": "innovation L_t = AR residual / 100, same unit / 100; month t",
     "liq_traded": "traded liquidity factor: high-minus-low liquidity-beta portfolio return, decimal per month, "
                   "earned in month t",
+    "illiq_market": "market illiquidity c_M: value-weighted normalised Amihud illiquidity, percent of the price; "
+                    "month t",
+    "illiq_innovation": "innovation in market illiquidity from the AR(2) regression, percent of the price; month t",
 }
 
 
@@ -135,6 +140,12 @@ def run_factors(
     if com is not None:
         out.tables.append(_commonality_table(panel, com, supplied))
 
+    ap_settings = settings.get("acharya_pedersen")
+    if ap_settings is not None:
+        tables, market_series = _acharya_pedersen(panel, ap_settings, supplied, lags)
+        out.tables += tables
+        series.append(market_series)
+
     if series:
         merged = series[0]
         for s in series[1:]:
@@ -235,3 +246,75 @@ def _commonality_table(panel, settings, supplied) -> ResultTable:
         "(ignores correlation across securities), share positive and positive with t above the two-sided 5% "
         "critical value, mean adjusted R-squared.",
     )
+
+
+def _vw(column: str, weight: str = "weight") -> pl.Expr:
+    ok = pl.col(column).is_finite() & pl.col(weight).is_finite() & (pl.col(weight) > 0)
+    return ((pl.col(column) * pl.col(weight)).filter(ok).sum() / pl.col(weight).filter(ok).sum()).alias(column)
+
+
+def _acharya_pedersen(panel, settings, supplied, lags) -> tuple[list[ResultTable], pl.DataFrame]:
+    illiq, size = settings.get("illiquidity", "amihud"), settings.get("size", "market_cap")
+    sort_on, n = settings.get("sort_on") or illiq, settings.get("portfolios", 25)
+    lags = settings.get("lags", lags)
+    norm = ap.normalised_illiquidity(panel, illiq, size)
+    market_c = norm.group_by("month").agg(_vw("illiq_norm"), _vw("illiq_trunc"), pl.col("market_ratio").first())
+    market_c = ap.illiquidity_innovations(market_c.sort("month"))
+    mkt, market_note = _market(panel, supplied, {k: settings[k] for k in ("market", "size") if k in settings})
+    market_r = ap.return_innovations(mkt.select("month", pl.col("mkt").alias("ret")))
+    market = market_c.select("month", "c_innovation").join(market_r.select("month", "r_innovation"), on="month")
+
+    # portfolios formed at the end of t on sort_on; returns and illiquidity of t + 1 weighted by size at t
+    if sort_on not in panel.columns:
+        raise InputError(f"factors.acharya_pedersen: the panel has no column '{sort_on}' to sort on", column=sort_on)
+    usable = panel.filter(pl.col(sort_on).is_finite() & pl.col(size).is_finite() & (pl.col(size) > 0))
+    members = usable.select("security", "month", pl.col(size).alias("_size_t"), pl.col(sort_on)).with_columns(
+        ap.rank_groups(usable, sort_on, n).alias("portfolio")
+    )
+    earned = members.select("security", pl.col("month").dt.offset_by("1mo"), "portfolio").join(
+        norm, on=["security", "month"], how="inner"
+    ).join(monthly_returns(panel), on=["security", "month"], how="left")
+    port = earned.group_by("portfolio", "month").agg(
+        _vw("ret"), _vw("illiq_norm"), _vw("illiq_trunc"), pl.col("market_ratio").first()
+    ).sort("portfolio", "month")
+    port = ap.illiquidity_innovations(port, by="portfolio")
+    betas = ap.ap_betas(port, market)
+    summary = port.group_by("portfolio").agg(
+        pl.col("ret").mean().alias("mean_ret"), pl.col("illiq_norm").mean().alias("mean_illiq"),
+    ).join(betas, on="portfolio", how="left").sort("portfolio")
+
+    # Fama-MacBeth: next month's portfolio return on the portfolio's illiquidity at formation and its betas
+    at_formation = members.join(norm.select("security", "month", "illiq_norm"), on=["security", "month"], how="inner")
+    expected = at_formation.with_columns(pl.col("_size_t").alias("weight")).group_by("portfolio", "month").agg(
+        _vw("illiq_norm")
+    ).select("portfolio", "month", (pl.col("illiq_norm") / 100).alias("exp_illiq"))
+    cs = expected.join(
+        port.select("portfolio", pl.col("month").dt.offset_by("-1mo"), pl.col("ret").alias("ret_next")),
+        on=["portfolio", "month"], how="inner",
+    ).join(betas, on="portfolio", how="inner").with_columns(pl.col("portfolio").cast(pl.String).alias("security"))
+    long, used_lags = ap.cross_section_tests(cs, lags)
+    source = (f"{AP}: c = min(0.25 + 0.30 ILLIQ P_t-1, 30) in percent with ILLIQ the {illiq} column, P_t-1 the "
+              f"market's capitalisation at t-1 over the first month's; AR(2) innovations; {market_note}.")
+    tables = [
+        ResultTable(
+            "liquidity_adjusted_betas",
+            summary,
+            f"Liquidity-adjusted CAPM betas of {n} portfolios sorted on {sort_on}",
+            f"{source} Portfolios formed each month by rank of {sort_on}, value-weighted by {size}; mean_ret: "
+            "decimal per month; mean_illiq: percent; beta1 = cov(r_p, r_M)/D, beta2 = cov(c_p, c_M)/D, "
+            "beta3 = cov(r_p, c_M)/D, beta4 = cov(c_p, r_M)/D, D = var(r_M - c_M) of the innovations (c in "
+            "decimals); beta_net = beta1 + beta2 - beta3 - beta4.",
+        ),
+        ResultTable(
+            "liquidity_adjusted_capm",
+            long,
+            "Fama-MacBeth regressions of portfolio returns on expected illiquidity and liquidity-adjusted betas",
+            f"{source} Next month's portfolio return (decimal) on the portfolio's normalised illiquidity at "
+            f"formation (exp_illiq, decimal) and its full-sample betas; Fama & MacBeth (1973) with Newey & West "
+            f"(1987) standard errors, {used_lags} lags; r2 is the average cross-sectional R-squared.",
+        ),
+    ]
+    market_series = market_c.select(
+        "month", pl.col("illiq_norm").alias("illiq_market"), pl.col("c_innovation").alias("illiq_innovation")
+    )
+    return tables, market_series
