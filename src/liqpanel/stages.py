@@ -215,9 +215,13 @@ def factors(config: dict, panel_path: str, out_dir: str) -> None:
     """
     from liqpanel.factors.run import FACTOR_UNITS, run_factors
 
+    truth_path = config["inputs"].get("truth")
+    measures = [o for name in config["measures"] if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
+    measures += [o for o in ("effective_spread", "quoted_spread", "amihud") if o in config["measures"]]
     result = run_factors(
         pl.read_parquet(panel_path), config.get("factors", {}), supplied=_supplied_factors(config),
-        lags=config["models"].get("lags", 6),
+        lags=config["models"].get("lags", 6), truth=pl.read_parquet(truth_path) if truth_path else None,
+        recovery_measures=measures,
     )
     out = Path(out_dir)
     index = []

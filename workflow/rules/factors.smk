@@ -3,6 +3,7 @@ rule factors:
     input:
         panel=f"{WORK}/panel.parquet",
         factors=[CONFIG["inputs"]["factors"]] if CONFIG["inputs"]["factors"] else [],
+        truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
     output:
         directory(f"{WORK}/factors"),
     params:

@@ -109,9 +109,15 @@ def _aggregate_tables(agg: pl.DataFrame, scaled: bool) -> list[ResultTable]:
 
 
 def run_factors(
-    panel: pl.DataFrame, settings: dict[str, Any], *, supplied: pl.DataFrame | None = None, lags: int | None = 6
+    panel: pl.DataFrame, settings: dict[str, Any], *, supplied: pl.DataFrame | None = None, lags: int | None = 6,
+    truth: pl.DataFrame | None = None, recovery_measures: list[str] = (),
 ) -> FactorOutputs:
-    """Every factor the ``factors:`` config section selects (see the schema for the keys)."""
+    """Every factor the ``factors:`` config section selects (see the schema for the keys).
+
+    With a simulator's ``truth`` that carries a planted liquidity shock, also
+    the table ``liquidity_shock_recovery`` (:mod:`liqpanel.factors.recovery`)
+    over ``recovery_measures`` and the factor series built here.
+    """
     out = FactorOutputs()
     series: list[pl.DataFrame] = []
     agg_settings = settings.get("aggregate")
@@ -131,7 +137,7 @@ def run_factors(
     if beta_settings is not None:
         if innovations is None:
             raise InputError("factors.betas needs factors.aggregate (the innovation series L_t)")
-        table, deciles, traded = _beta_sort(panel, beta_settings, innovations, supplied, lags)
+        table, deciles, traded, betas = _beta_sort(panel, beta_settings, innovations, supplied, lags)
         out.tables += table
         out.deciles = deciles
         series.append(traded)
@@ -145,6 +151,10 @@ def run_factors(
         tables, market_series = _acharya_pedersen(panel, ap_settings, supplied, lags)
         out.tables += tables
         series.append(market_series)
+
+    if truth is not None and "liquidity_shock" in truth.columns:
+        out.tables.append(_recovery_table(panel, truth, list(recovery_measures), series,
+                                          betas if beta_settings is not None else None))
 
     if series:
         merged = series[0]
@@ -216,7 +226,7 @@ def _beta_sort(panel, settings, innovations, supplied, lags):
         "portfolio", "mean_ret", "post_liq_beta", *(["pre_liq_beta"] if "pre_liq_beta" in summary.columns else [])
     )
     series = traded.select(pl.col("month").dt.offset_by("1mo"), pl.col("factor_ret").alias("liq_traded"))
-    return tables, deciles, series
+    return tables, deciles, series, betas
 
 
 def _commonality_table(panel, settings, supplied) -> ResultTable:
@@ -245,6 +255,29 @@ def _commonality_table(panel, settings, supplied) -> ResultTable:
         + "; cross-sectional means of the slopes, t-statistic of the concurrent mean from the cross-section "
         "(ignores correlation across securities), share positive and positive with t above the two-sided 5% "
         "critical value, mean adjusted R-squared.",
+    )
+
+
+def _recovery_table(panel, truth, measures, series, betas) -> ResultTable:
+    from liqpanel.factors.recovery import beta_recovery, shock_recovery
+
+    built = {}
+    for frame in series:
+        if "liq_innovation" in frame.columns:
+            built["liq_innovation (Pastor-Stambaugh L_t)"] = frame.select("month", pl.col("liq_innovation").alias("value"))
+        if "illiq_innovation" in frame.columns:
+            built["-illiq_innovation (Acharya-Pedersen)"] = frame.select("month", (-pl.col("illiq_innovation")).alias("value"))
+    table = shock_recovery(panel, truth, measures, built)
+    if betas is not None and "liquidity_beta" in truth.columns:
+        table = pl.concat([table, beta_recovery(betas, truth)])
+    return ResultTable(
+        "liquidity_shock_recovery",
+        table,
+        "Recovery of the simulator's planted market-wide liquidity shock and liquidity betas",
+        "Simulated market only. Monthly series: minus the cross-sectional mean log change of each measure over "
+        "securities present in both months (positive = more liquid), and the factor series built here, each "
+        "correlated (Pearson) with the planted innovation; betas: each security's latest rolling liquidity beta "
+        "against its planted return loading.",
     )
 
 
