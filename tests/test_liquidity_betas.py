@@ -155,3 +155,5 @@ def test_run_factors_builds_the_factor_file():
         run_factors(panel, {"aggregate": {}, "betas": {"market": "nope"}}, supplied=supplied)
     with pytest.raises(InputError, match="needs factors.aggregate"):
         run_factors(panel, {"betas": {}}, supplied=supplied)
+    with pytest.raises(InputError, match="needs factors.acharya_pedersen"):
+        run_factors(panel, {"aggregate": {}, "betas": {"innovation": "market_illiquidity"}}, supplied=supplied)

@@ -133,11 +133,25 @@ def run_factors(
         innovations = agg.select("month", pl.col("innovation").alias(LIQ)).filter(pl.col(LIQ).is_not_null())
         series.append(agg.select("month", pl.col("level").alias("liq_level"), pl.col("innovation").alias(LIQ)))
 
+    ap_settings = settings.get("acharya_pedersen")
+    illiq_innovations = None
+    if ap_settings is not None:
+        tables, market_series = _acharya_pedersen(panel, ap_settings, supplied, lags)
+        out.tables += tables
+        series.append(market_series)
+        # as an L_t: positive = more liquid, in decimals of the price
+        illiq_innovations = market_series.select("month", (-pl.col("illiq_innovation") / 100).alias(LIQ)).filter(
+            pl.col(LIQ).is_not_null()
+        )
+
     beta_settings = settings.get("betas")
     if beta_settings is not None:
-        if innovations is None:
-            raise InputError("factors.betas needs factors.aggregate (the innovation series L_t)")
-        table, deciles, traded, betas = _beta_sort(panel, beta_settings, innovations, supplied, lags)
+        source = beta_settings.get("innovation", "pastor_stambaugh")
+        chosen = innovations if source == "pastor_stambaugh" else illiq_innovations
+        if chosen is None:
+            needed = "aggregate" if source == "pastor_stambaugh" else "acharya_pedersen"
+            raise InputError(f"factors.betas with innovation '{source}' needs factors.{needed} (the series L_t)")
+        table, deciles, traded, betas = _beta_sort(panel, beta_settings, chosen, supplied, lags)
         out.tables += table
         out.deciles = deciles
         series.append(traded)
@@ -145,12 +159,6 @@ def run_factors(
     com = settings.get("commonality")
     if com is not None:
         out.tables.append(_commonality_table(panel, com, supplied))
-
-    ap_settings = settings.get("acharya_pedersen")
-    if ap_settings is not None:
-        tables, market_series = _acharya_pedersen(panel, ap_settings, supplied, lags)
-        out.tables += tables
-        series.append(market_series)
 
     if truth is not None and "liquidity_shock" in truth.columns:
         out.tables.append(_recovery_table(panel, truth, list(recovery_measures), series,
@@ -195,10 +203,13 @@ def _beta_sort(panel, settings, innovations, supplied, lags):
     summary = summary.rename({"liq_beta": "pre_liq_beta"}) if "liq_beta" in summary.columns else summary
     scheme = "value-weighted (market value at the end of the formation month)" if weight_col else "equal-weighted"
     when = "each December, held twelve months" if rebalance == "annual" else "every month"
+    source = settings.get("innovation", "pastor_stambaugh")
+    what = ("L_t, the innovation in Pastor-Stambaugh market liquidity" if source == "pastor_stambaugh" else
+            f"L_t = minus the innovation in Acharya-Pedersen market illiquidity / 100 ({AP})")
     common_note = (
         f"{PS}: betas from OLS over the trailing {window} months (at least {min_months}) of excess returns on the "
         f"market factor{', ' + ', '.join(settings.get('controls', [])) if settings.get('controls') else ''} and "
-        f"L_t; {market_note}."
+        f"{what}; {market_note}."
     )
     traded = res.hml_returns.select("month", pl.col("ret").alias("factor_ret"))
     supplied_factors = None
