@@ -150,6 +150,15 @@ def test_run_factors_builds_the_factor_file():
     assert [t.name for t in out.tables] == ["liquidity_aggregate", "liquidity_innovation_regression",
                                             "liquidity_beta_portfolios", "liquidity_traded_factor"]
     assert out.factors.columns == ["month", "liq_level", "liq_innovation", "liq_traded"]
+    # every section at once, the betas on the market illiquidity innovation
+    rich = panel.with_columns(pl.Series("amihud", rng.uniform(0.1, 5.0, panel.height)))
+    every = run_factors(rich, {"aggregate": {}, "acharya_pedersen": {"portfolios": 5, "market": "mkt"},
+                               "betas": {"innovation": "market_illiquidity", "market": "mkt", "portfolios": 5},
+                               "commonality": {"measures": ["amihud"], "market": "mkt"}}, supplied=supplied, lags=4)
+    assert {t.name for t in every.tables} >= {"liquidity_adjusted_betas", "liquidity_adjusted_capm",
+                                               "liquidity_commonality", "liquidity_traded_factor"}
+    assert every.factors.columns == ["month", "liq_level", "liq_innovation", "illiq_market", "illiq_innovation",
+                                     "liq_traded"]
     assert out.factors.get_column("month").is_sorted() and out.factors.get_column("month").is_unique().all()
     with pytest.raises(InputError, match="no column"):
         run_factors(panel, {"aggregate": {}, "betas": {"market": "nope"}}, supplied=supplied)

@@ -87,3 +87,31 @@ def test_planted_commonality_is_recovered():
     assert summary["share_positive"] == 1.0
     assert summary["share_positive_significant"] > 0.9
     assert summary["n_securities"] == 120
+
+
+def test_daily_changes_step_over_the_weekend():
+    # Daily changes are from the previous trading day in the table (Friday before Monday),
+    # not the previous calendar day (Chordia, Roll & Subrahmanyam 2000 use trading days).
+    fri, mon, tue = dt.date(2021, 3, 5), dt.date(2021, 3, 8), dt.date(2021, 3, 9)
+    daily = pl.DataFrame({
+        "security": ["A", "A", "A", "B", "B"],
+        "date": [fri, mon, tue, fri, tue],
+        "effective_spread": [0.010, 0.015, 0.012, 0.020, 0.030],
+    })
+    got = liquidity_changes(daily, "effective_spread", time="date")
+    # A: Mon 0.015/0.010 - 1 = 0.5, Tue 0.012/0.015 - 1 = -0.2; B has no Monday, so no Tuesday change
+    assert got.select("security", "date").rows() == [("A", mon), ("A", tue)]
+    assert got.get_column("d").to_list() == pytest.approx([0.5, -0.2], abs=1e-12)
+
+
+def test_daily_regressions_equal_the_monthly_ones_on_the_same_numbers():
+    # The same numbers dated by trading day or by month give the same fits (the period
+    # numbering is the only difference between the two paths).
+    changes, _, _ = _planted(n_sec=6, n_months=30)
+    days = pl.date_range(dt.date(2021, 1, 1), dt.date(2021, 12, 31), "1d", eager=True).filter(
+        pl.date_range(dt.date(2021, 1, 1), dt.date(2021, 12, 31), "1d", eager=True).dt.weekday() <= 5
+    ).head(30)
+    as_days = changes.join(pl.DataFrame({"month": MONTHS[:30], "date": days}), on="month").drop("month")
+    monthly = commonality_regressions(changes, None, min_months=20)
+    daily = commonality_regressions(as_days, None, min_months=20, time="date")
+    np.testing.assert_allclose(daily["coef_dm"].to_numpy(), monthly["coef_dm"].to_numpy(), rtol=0, atol=1e-12)

@@ -206,7 +206,7 @@ def _supplied_factors(config: dict) -> pl.DataFrame | None:
     return factors.with_columns(month_of(pl.col("month").cast(pl.Date)).alias("month"))
 
 
-def factors(config: dict, panel_path: str, out_dir: str) -> None:
+def factors(config: dict, panel_path: str, out_dir: str, daily_paths: list[str] = ()) -> None:
     """Build the liquidity factors the ``factors:`` section selects; write tables, series and an index.
 
     Writes ``<out_dir>/<table>.parquet`` for each table, ``index.json``,
@@ -222,6 +222,8 @@ def factors(config: dict, panel_path: str, out_dir: str) -> None:
         pl.read_parquet(panel_path), config.get("factors", {}), supplied=_supplied_factors(config),
         lags=config["models"].get("lags", 6), truth=pl.read_parquet(truth_path) if truth_path else None,
         recovery_measures=measures,
+        daily=pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed").collect()
+        if daily_paths and config.get("factors", {}).get("commonality", {}).get("daily_measures") else None,
     )
     out = Path(out_dir)
     index = []
@@ -383,6 +385,8 @@ def render_factors(factors_dir: str | Path, out: "rep.RunFolder", *, figures: bo
     if (source / "aggregate.parquet").exists():
         aggregate = pl.read_parquet(source / "aggregate.parquet")
         for column, what, unit in (("level", "level (scaled by m_t/m_1)", ""), ("innovation", "innovation L_t", " / 100")):
+            if aggregate.get_column(column).drop_nulls().len() < 2:
+                continue
             name = f"market_liquidity_{column}"
             out.figure(
                 name, rep.figure_market_liquidity(aggregate, column, what, folder / name, out.rid),
@@ -392,6 +396,8 @@ def render_factors(factors_dir: str | Path, out: "rep.RunFolder", *, figures: bo
     if (source / "deciles.parquet").exists():
         deciles = pl.read_parquet(source / "deciles.parquet")
         for column, what in (("post_liq_beta", "post-formation liquidity beta"), ("mean_ret", "mean return")):
+            if deciles.get_column(column).drop_nulls().len() < 2:
+                continue  # too few months for the statistic: no figure rather than an empty one
             name = f"liquidity_beta_portfolios_{column}"
             out.figure(
                 name, rep.figure_beta_portfolios(deciles, column, what, folder / name, out.rid),

@@ -2,6 +2,7 @@
 rule factors:
     input:
         panel=f"{WORK}/panel.parquet",
+        daily=expand(f"{WORK}/daily/month={{month}}/daily.parquet", month=MONTHS),
         factors=[CONFIG["inputs"]["factors"]] if CONFIG["inputs"]["factors"] else [],
         truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
     output:
@@ -10,4 +11,4 @@ rule factors:
         factors=CONFIG["factors"],
         lags=CONFIG["models"].get("lags"),
     run:
-        stages.factors(CONFIG, input.panel, output[0])
+        stages.factors(CONFIG, input.panel, output[0], list(input.daily))

@@ -31,6 +31,7 @@ import polars as pl
 
 from liqpanel.errors import InputError
 from liqpanel.factors.ols import grouped_ols
+from liqpanel.stable import ordered_mean, ordered_sum
 
 INTERCEPT, SLOPE, CAP = 0.25, 0.30, 30.0  # Acharya & Pedersen (2005), percent (from memory)
 
@@ -47,7 +48,9 @@ def normalised_illiquidity(panel: pl.DataFrame, illiq: str = "amihud", size: str
     for column in ("security", "month", illiq, size):
         if column not in panel.columns:
             raise InputError(f"Acharya-Pedersen betas need a panel column '{column}'", column=column)
-    totals = panel.group_by("month").agg(pl.col(size).filter(pl.col(size) > 0).sum().alias("_total")).sort("month")
+    totals = panel.group_by("month").agg(
+        ordered_sum(pl.when(pl.col(size) > 0).then(pl.col(size).cast(pl.Float64))).alias("_total")
+    ).sort("month")
     ratio = totals.select(
         pl.col("month").dt.offset_by("1mo"), (pl.col("_total") / pl.col("_total").first()).alias("market_ratio")
     )
@@ -104,7 +107,7 @@ def return_innovations(series: pl.DataFrame, ret: str = "ret", by: str | None = 
 def _ar_residuals(design: pl.DataFrame, y: str, xs: list[str], keys: list[str], name: str) -> pl.DataFrame:
     group = keys or ["_all"]
     frame = design if keys else design.with_columns(pl.lit(1).alias("_all"))
-    fits = grouped_ols(frame, y, xs, group, min_obs=len(xs) + 3)
+    fits = grouped_ols(frame, y, xs, group, min_obs=len(xs) + 3, order="month")
     coef = fits.select(*group, *[pl.col(f"coef_{c}") for c in ("intercept", *xs)])
     fitted = pl.col("coef_intercept")
     for x in xs:  # a missing lag leaves the fitted value (and the innovation) missing
@@ -125,19 +128,27 @@ def ap_betas(portfolio: pl.DataFrame, market: pl.DataFrame) -> pl.DataFrame:
     joined = portfolio.select("portfolio", "month", "ret", (pl.col("c_innovation") / 100).alias("_cp")).join(
         m, on="month", how="inner"
     ).drop_nulls()
-    denom = (pl.col("_rm") - pl.col("_cm")).var()
+    joined = joined.with_columns((pl.col("_rm") - pl.col("_cm")).alias("_net"))
+    denom = _cov("_net", "_net")
     return (
         joined.group_by("portfolio")
         .agg(
-            (pl.cov("ret", "_rm") / denom).alias("beta1"),
-            (pl.cov("_cp", "_cm") / denom).alias("beta2"),
-            (pl.cov("ret", "_cm") / denom).alias("beta3"),
-            (pl.cov("_cp", "_rm") / denom).alias("beta4"),
+            (_cov("ret", "_rm") / denom).alias("beta1"),
+            (_cov("_cp", "_cm") / denom).alias("beta2"),
+            (_cov("ret", "_cm") / denom).alias("beta3"),
+            (_cov("_cp", "_rm") / denom).alias("beta4"),
             pl.len().cast(pl.Int64).alias("n_months_beta"),
         )
         .with_columns((pl.col("beta1") + pl.col("beta2") - pl.col("beta3") - pl.col("beta4")).alias("beta_net"))
         .sort("portfolio")
     )
+
+
+def _cov(a: str, b: str) -> pl.Expr:
+    """Sample covariance (ddof 1) added in month order (:mod:`liqpanel.stable`)."""
+    da = pl.col(a) - ordered_mean(pl.col(a), "month")
+    db = pl.col(b) - ordered_mean(pl.col(b), "month")
+    return ordered_sum(da * db, "month") / (pl.len() - 1)
 
 
 def rank_groups(frame: pl.DataFrame, on: str, n: int) -> pl.Expr:

@@ -31,6 +31,7 @@ import numpy as np
 import polars as pl
 
 from liqpanel.errors import InputError
+from liqpanel.stable import ordered_mean, ordered_sum
 
 INNOVATION_SCALE = 100.0  # Pastor & Stambaugh (2003): L_t = u_t / 100 (from memory)
 
@@ -71,9 +72,9 @@ def aggregate_liquidity(
         both.group_by("month")
         .agg(
             pl.len().alias("n_securities"),
-            pl.col("_gamma").mean().alias("mean_gamma"),
-            (pl.col("_gamma") - pl.col("_gamma_prev")).mean().alias("_mean_change"),
-            pl.col("_size_prev").sum().alias("_m"),
+            ordered_mean(pl.col("_gamma")).alias("mean_gamma"),
+            ordered_mean(pl.col("_gamma") - pl.col("_gamma_prev")).alias("_mean_change"),
+            ordered_sum(pl.col("_size_prev")).alias("_m"),
         )
         .sort("month")
     )

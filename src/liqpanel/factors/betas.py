@@ -19,6 +19,7 @@ import polars as pl
 
 from liqpanel.errors import InputError
 from liqpanel.factors.ols import grouped_ols, rolling_ols
+from liqpanel.stable import ordered_sum
 
 LIQ = "liq_innovation"
 
@@ -43,7 +44,7 @@ def value_weighted_market(panel: pl.DataFrame, size: str = "market_cap", ret: st
     return (
         panel.filter(ok)
         .group_by("month")
-        .agg(((pl.col(ret) * pl.col(size)).sum() / pl.col(size).sum()).alias("mkt"))
+        .agg((ordered_sum(pl.col(ret) * pl.col(size)) / ordered_sum(pl.col(size))).alias("mkt"))
         .select(pl.col("month").dt.offset_by("1mo"), "mkt")
         .sort("month")
     )
@@ -134,4 +135,4 @@ def post_ranking_betas(portfolio_returns: pl.DataFrame, regressors: pl.DataFrame
     )
     excess = pl.col("ret") - (pl.col(risk_free) if risk_free else pl.lit(0.0))
     return grouped_ols(joined.with_columns(excess.alias("_excess")), "_excess", [*factors, LIQ], "portfolio",
-                       min_obs=len(factors) + 3)
+                       min_obs=len(factors) + 3, order="_earned")

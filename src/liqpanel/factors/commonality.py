@@ -32,67 +32,89 @@ import polars as pl
 from scipy import stats
 
 from liqpanel.errors import InputError
-from liqpanel.factors.betas import calendar_months
 from liqpanel.factors.ols import grouped_ols
+from liqpanel.stable import ordered_sum
 
 CHANGES = ("proportional", "difference")
 
 
-def liquidity_changes(panel: pl.DataFrame, measure: str, change: str = "proportional") -> pl.DataFrame:
-    """``security``, ``month``, ``d``: each security's month-on-month change in ``measure``."""
+TIMES = ("month", "date")
+
+
+def _period(time: str, dates: pl.Expr | None = None) -> pl.Expr:
+    """A consecutive integer per period: calendar months for ``month``; for ``date``, trading days
+    numbered in order over the days present in the table (so the day before Monday is Friday)."""
+    if time == "month":
+        return pl.col("month").dt.year().cast(pl.Int64) * 12 + pl.col("month").dt.month().cast(pl.Int64)
+    return pl.col("date").rank("dense").cast(pl.Int64)
+
+
+def liquidity_changes(
+    panel: pl.DataFrame, measure: str, change: str = "proportional", time: str = "month"
+) -> pl.DataFrame:
+    """``security``, ``<time>``, ``_t`` (period number), ``d``: each security's change in ``measure``
+    from the period before (the calendar month, or the previous trading day of the table)."""
     if change not in CHANGES:
         raise InputError(f"commonality: change must be one of {list(CHANGES)}, got {change!r}")
+    if time not in TIMES:
+        raise InputError(f"commonality: time must be one of {list(TIMES)}, got {time!r}")
     if measure not in panel.columns:
-        raise InputError(f"commonality: the panel has no measure '{measure}'", column=measure)
-    prev = panel.select("security", pl.col("month").dt.offset_by("1mo"), pl.col(measure).alias("_prev"))
+        raise InputError(f"commonality: the {'panel' if time == 'month' else 'daily table'} has no measure "
+                         f"'{measure}'", column=measure)
+    frame = panel.select("security", time, measure).with_columns(_period(time).alias("_t"))
+    prev = frame.select("security", (pl.col("_t") + 1).alias("_t"), pl.col(measure).alias("_prev"))
     cur, before = pl.col(measure).cast(pl.Float64), pl.col("_prev").cast(pl.Float64)
     d = cur / before - 1.0 if change == "proportional" else cur - before
     ok = cur.is_finite() & before.is_finite() & ((before != 0) if change == "proportional" else pl.lit(True))
     return (
-        panel.select("security", "month", measure)
-        .join(prev, on=["security", "month"], how="inner")
+        frame.join(prev, on=["security", "_t"], how="inner")
         .filter(ok)
-        .select("security", "month", d.alias("d"))
-        .sort("security", "month")
+        .select("security", time, "_t", d.alias("d"))
+        .sort("security", "_t")
     )
 
 
 def commonality_regressions(
-    changes: pl.DataFrame, market_return: pl.DataFrame | None = None, *, min_months: int = 12
+    changes: pl.DataFrame, market_return: pl.DataFrame | None = None, *, min_months: int = 12, time: str = "month"
 ) -> pl.DataFrame:
     """One regression per security (formula in the module docstring).
 
-    ``changes`` as from :func:`liquidity_changes`; ``market_return``
-    (``month``, ``mkt``, dated by the month earned) adds the market-return
-    terms. Returns one row per security with ``n_obs``, ``coef_*``,
-    ``se_*``, ``tstat_*`` for ``dm_lag``, ``dm``, ``dm_lead`` (and ``mkt_lag``,
-    ``mkt``, ``mkt_lead``), ``r2``, ``adj_r2``.
+    ``changes`` as from :func:`liquidity_changes` (same ``time``);
+    ``market_return`` (``<time>``, ``mkt``, dated by the period earned) adds
+    the market-return terms. ``min_months``: periods a security's regression
+    needs. Returns one row per security with ``n_obs``, ``coef_*``,
+    ``se_*``, ``tstat_*`` for ``dm_lag``, ``dm``, ``dm_lead`` (and
+    ``mkt_lag``, ``mkt``, ``mkt_lead``), ``r2``, ``adj_r2``.
     """
-    totals = changes.group_by("month").agg(pl.col("d").sum().alias("_sum"), pl.len().alias("_count"))
-    months = calendar_months(changes)
+    # one numbering of the periods for the changes and the market return
+    times = [changes.select(time)] + ([market_return.select(time)] if market_return is not None else [])
+    calendar = pl.concat(times).unique().with_columns(_period(time).alias("_t"))
+    changes = changes.drop("_t", strict=False).join(calendar, on=time, how="left")
+    totals = changes.group_by("_t").agg(ordered_sum(pl.col("d")).alias("_sum"), pl.len().alias("_count"))
+    periods = pl.DataFrame({"_t": pl.int_range(changes["_t"].min(), changes["_t"].max() + 1, eager=True)})
     grid = (
-        changes.select("security").unique().join(months, how="cross")
-        .join(changes, on=["security", "month"], how="left")
-        .join(totals, on="month", how="left")
+        changes.select("security").unique().join(periods, how="cross")
+        .join(changes.drop(time), on=["security", "_t"], how="left")
+        .join(totals, on="_t", how="left")
     )
-    # the market's change without the security (all others when it has no change that month)
+    # the market's change without the security (all others when it has no change that period)
     own = pl.col("d").fill_null(0.0)
     others = pl.col("_count") - pl.col("d").is_not_null().cast(pl.Int64)
     grid = grid.with_columns(
         pl.when(others > 0).then((pl.col("_sum") - own) / others).alias("dm")
-    ).sort("security", "month").with_columns(
+    ).sort("security", "_t").with_columns(
         pl.col("dm").shift(1).over("security").alias("dm_lag"),
         pl.col("dm").shift(-1).over("security").alias("dm_lead"),
     )
     xs = ["dm_lag", "dm", "dm_lead"]
     if market_return is not None:
-        mkt = market_return.select("month", pl.col("mkt").cast(pl.Float64))
-        grid = grid.join(mkt, on="month", how="left").sort("security", "month").with_columns(
+        mkt = market_return.select(time, pl.col("mkt").cast(pl.Float64)).join(calendar, on=time, how="inner")
+        grid = grid.join(mkt.drop(time), on="_t", how="left").sort("security", "_t").with_columns(
             pl.col("mkt").shift(1).over("security").alias("mkt_lag"),
             pl.col("mkt").shift(-1).over("security").alias("mkt_lead"),
         )
         xs += ["mkt_lag", "mkt", "mkt_lead"]
-    return grouped_ols(grid, "d", xs, "security", min_obs=min_months)
+    return grouped_ols(grid, "d", xs, "security", min_obs=min_months, order="_t")
 
 
 def commonality_summary(fits: pl.DataFrame, level: float = 0.05) -> dict[str, float]:
@@ -115,7 +137,7 @@ def commonality_summary(fits: pl.DataFrame, level: float = 0.05) -> dict[str, fl
         pl.col("coef_dm_lead").mean().alias("mean_lead"),
         (pl.col("coef_dm_lag") + pl.col("coef_dm") + pl.col("coef_dm_lead")).mean().alias("mean_sum"),
         pl.col("adj_r2").mean().alias("mean_adj_r2"),
-        pl.col("n_obs").mean().alias("mean_months"),
+        pl.col("n_obs").mean().alias("mean_months"),  # periods: months or trading days
     ).row(0, named=True)
     row["tstat_concurrent"] = row["mean_concurrent"] / (sd / math.sqrt(n)) if n > 1 and sd and sd > 0 else float("nan")
     row["n_securities"] = n

@@ -21,6 +21,8 @@ from __future__ import annotations
 import numpy as np
 import polars as pl
 
+from liqpanel.stable import ordered_sum
+
 RCOND = 1e-10
 
 
@@ -103,8 +105,13 @@ def solve_sums(sums: pl.DataFrame, k: int, min_obs: int) -> dict[str, np.ndarray
     }
 
 
-def grouped_ols(frame: pl.DataFrame, y: str, xs: list[str], by: str | list[str], min_obs: int) -> pl.DataFrame:
+def grouped_ols(
+    frame: pl.DataFrame, y: str, xs: list[str], by: str | list[str], min_obs: int, order: str = "month"
+) -> pl.DataFrame:
     """One OLS of ``y`` on an intercept and ``xs`` per group of ``by``.
+
+    The cross products are added in the order of ``order`` within each group
+    (:mod:`liqpanel.stable`), so the fits do not depend on row order.
 
     Returns the groups (sorted) with ``n_obs``, ``coef_<name>``,
     ``se_<name>``, ``tstat_<name>`` for ``intercept`` and each ``x``,
@@ -115,9 +122,9 @@ def grouped_ols(frame: pl.DataFrame, y: str, xs: list[str], by: str | list[str],
     k = len(xs) + 1
     sums = (
         frame.lazy()
-        .select(*by, *product_columns(y, xs))
+        .select(*by, order, *product_columns(y, xs))
         .group_by(by)
-        .agg(pl.col(product_names(k)).sum())
+        .agg([ordered_sum(pl.col(c), order).alias(c) for c in product_names(k)])
         .sort(by)
         .collect()
     )

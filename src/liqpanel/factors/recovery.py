@@ -16,6 +16,8 @@ from __future__ import annotations
 
 import polars as pl
 
+from liqpanel.stable import ordered_mean
+
 
 def market_log_change(panel: pl.DataFrame, measure: str) -> pl.DataFrame:
     """``month``, ``value``: minus the mean log change of ``measure`` over securities present in both months."""
@@ -26,7 +28,7 @@ def market_log_change(panel: pl.DataFrame, measure: str) -> pl.DataFrame:
         .join(prev, on=["security", "month"], how="inner")
         .filter(ok)
         .group_by("month")
-        .agg((-(pl.col(measure).log() - pl.col("_prev").log()).mean()).alias("value"))
+        .agg((-ordered_mean(pl.col(measure).log() - pl.col("_prev").log())).alias("value"))
         .sort("month")
     )
 
@@ -43,7 +45,7 @@ def shock_recovery(
     candidates.update(series or {})
     rows = []
     for name, frame in candidates.items():
-        joined = frame.join(shock, on="month", how="inner").drop_nulls()
+        joined = frame.join(shock, on="month", how="inner").drop_nulls().sort("month")
         corr = joined.select(pl.corr("value", "liquidity_shock")).item() if joined.height > 2 else None
         rows.append({"comparison": "monthly series vs planted shock", "series": name, "n": joined.height,
                      "correlation": corr})
@@ -57,7 +59,7 @@ def beta_recovery(betas: pl.DataFrame, truth: pl.DataFrame) -> pl.DataFrame:
     """Cross-sectional correlation of each security's latest estimated liquidity beta with the planted one."""
     planted = truth.group_by("security").agg(pl.col("liquidity_beta").first())
     latest = betas.sort("month").group_by("security").agg(pl.col("liq_beta").last())
-    joined = latest.join(planted, on="security", how="inner").drop_nulls()
+    joined = latest.join(planted, on="security", how="inner").drop_nulls().sort("security")
     corr = joined.select(pl.corr("liq_beta", "liquidity_beta")).item() if joined.height > 2 else None
     return pl.DataFrame([{"comparison": "latest beta vs planted beta, across securities", "series": "liq_beta",
                           "n": joined.height, "correlation": corr}], schema=SCHEMA)

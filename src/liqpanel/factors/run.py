@@ -25,6 +25,7 @@ from liqpanel.factors.ols import grouped_ols
 from liqpanel.models.factor import factor_summary, summary_table
 from liqpanel.models.run import ResultTable
 from liqpanel.models.sorts import sort_portfolios
+from liqpanel.stable import ordered_mean, ordered_sum
 
 PS = "Pastor & Stambaugh (2003), Journal of Political Economy 111(3)"
 AP = "Acharya & Pedersen (2005), Journal of Financial Economics 77(2)"
@@ -110,13 +111,14 @@ def _aggregate_tables(agg: pl.DataFrame, scaled: bool) -> list[ResultTable]:
 
 def run_factors(
     panel: pl.DataFrame, settings: dict[str, Any], *, supplied: pl.DataFrame | None = None, lags: int | None = 6,
-    truth: pl.DataFrame | None = None, recovery_measures: list[str] = (),
+    truth: pl.DataFrame | None = None, recovery_measures: list[str] = (), daily: pl.DataFrame | None = None,
 ) -> FactorOutputs:
     """Every factor the ``factors:`` config section selects (see the schema for the keys).
 
     With a simulator's ``truth`` that carries a planted liquidity shock, also
     the table ``liquidity_shock_recovery`` (:mod:`liqpanel.factors.recovery`)
-    over ``recovery_measures`` and the factor series built here.
+    over ``recovery_measures`` and the factor series built here. ``daily``
+    (the daily table) serves the daily commonality regressions.
     """
     out = FactorOutputs()
     series: list[pl.DataFrame] = []
@@ -158,7 +160,7 @@ def run_factors(
 
     com = settings.get("commonality")
     if com is not None:
-        out.tables.append(_commonality_table(panel, com, supplied))
+        out.tables.append(_commonality_table(panel, com, supplied, daily))
 
     if truth is not None and "liquidity_shock" in truth.columns:
         out.tables.append(_recovery_table(panel, truth, list(recovery_measures), series,
@@ -180,6 +182,8 @@ def _beta_sort(panel, settings, innovations, supplied, lags):
     betas = liquidity_betas(monthly_returns(panel), regressors, window=window, min_months=min_months, risk_free=rf)
     rebalance = settings.get("rebalance", "annual")
     formed = formation_betas(betas, rebalance)
+    if formed.height == 0:
+        return _no_betas(window, min_months), None, pl.DataFrame(schema={"month": pl.Date, "liq_traded": pl.Float64}), betas
     weight = settings.get("weight", "value")
     weight_col = None if weight == "equal" else ("market_cap" if weight == "value" else weight)
     n = settings.get("portfolios", 10)
@@ -215,7 +219,10 @@ def _beta_sort(panel, settings, innovations, supplied, lags):
     supplied_factors = None
     if supplied is not None and settings.get("market"):
         supplied_factors = supplied.select("month", settings["market"], *settings.get("controls", []))
-    perf = factor_summary(traded, supplied_factors, lags=lags)
+    usable = traded.filter(pl.col("factor_ret").is_finite()).height
+    if supplied_factors is not None and usable < supplied_factors.width + 3:
+        supplied_factors = None  # too few months for the alpha regression: mean and t only
+    perf = factor_summary(traded, supplied_factors, lags=lags) if usable >= 2 else None
     tables = [
         ResultTable(
             "liquidity_beta_portfolios",
@@ -227,7 +234,7 @@ def _beta_sort(panel, settings, innovations, supplied, lags):
         ),
         ResultTable(
             "liquidity_traded_factor",
-            summary_table(perf),
+            summary_table(perf) if perf is not None else _EMPTY_SUMMARY,
             "Traded liquidity factor: high minus low liquidity-beta portfolio",
             f"{common_note} Mean and alpha t-statistics Newey & West (1987); alphas against the supplied factors "
             "(matched by the month the return is earned); decimal returns per month.",
@@ -240,7 +247,21 @@ def _beta_sort(panel, settings, innovations, supplied, lags):
     return tables, deciles, series, betas
 
 
-def _commonality_table(panel, settings, supplied) -> ResultTable:
+_EMPTY_SUMMARY = pl.DataFrame(schema={"statistic": pl.String, "value": pl.Float64})
+
+
+def _no_betas(window: int, min_months: int) -> list[ResultTable]:
+    note = (f"{PS}: no security has {min_months} months of returns within a {window}-month window in this sample, "
+            "so no liquidity beta, portfolio or traded factor could be formed.")
+    return [
+        ResultTable("liquidity_beta_portfolios", pl.DataFrame(schema={"portfolio": pl.String, "mean_ret": pl.Float64}),
+                    "Portfolios sorted on historical liquidity beta: none formed", note),
+        ResultTable("liquidity_traded_factor", _EMPTY_SUMMARY,
+                    "Traded liquidity factor: high minus low liquidity-beta portfolio (none formed)", note),
+    ]
+
+
+def _commonality_table(panel, settings, supplied, daily=None) -> ResultTable:
     market = None
     if settings.get("market_return", True):
         market, _ = _market(panel, supplied, {k: settings[k] for k in ("market", "size") if k in settings})
@@ -250,22 +271,41 @@ def _commonality_table(panel, settings, supplied) -> ResultTable:
         fits = commonality_regressions(
             liquidity_changes(panel, measure, change), market, min_months=settings.get("min_months", 12)
         )
-        rows.append({"measure": measure, **commonality_summary(fits)})
-    columns = ["measure", "n_securities", "mean_months", "mean_concurrent", "tstat_concurrent", "share_positive",
-               "share_positive_significant", "mean_lag", "mean_lead", "mean_sum", "mean_adj_r2"]
-    frame = pl.DataFrame(rows, schema_overrides={"n_securities": pl.Int64}).select(
-        [c for c in columns if c in (rows[0] if rows else {})]
-    ) if rows else pl.DataFrame({"measure": []}, schema={"measure": pl.String})
+        rows.append({"measure": measure, "frequency": "monthly", **commonality_summary(fits)})
+    daily_measures = settings.get("daily_measures", [])
+    if daily_measures:
+        if daily is None:
+            raise InputError("factors.commonality.daily_measures needs the daily table")
+        day_market = None
+        if settings.get("market_return", True):
+            # equal-weighted mean daily return of the securities (common practice)
+            day_market = daily.group_by("date").agg(
+                ordered_mean(pl.when(pl.col("ret").is_finite()).then(pl.col("ret"))).alias("mkt")
+            )
+        for measure in daily_measures:
+            fits = commonality_regressions(
+                liquidity_changes(daily, measure, change, time="date"), day_market,
+                min_months=settings.get("min_days", 60), time="date",
+            )
+            rows.append({"measure": measure, "frequency": "daily", **commonality_summary(fits)})
+    columns = ["measure", "frequency", "n_securities", "mean_months", "mean_concurrent", "tstat_concurrent",
+               "share_positive", "share_positive_significant", "mean_lag", "mean_lead", "mean_sum", "mean_adj_r2"]
+    frame = pl.DataFrame(rows, schema_overrides={"n_securities": pl.Int64}, infer_schema_length=None).select(
+        [c for c in columns if any(c in r for r in rows)]
+    ).rename({"mean_months": "mean_periods"}, strict=False) if rows else pl.DataFrame(
+        {"measure": []}, schema={"measure": pl.String})
     return ResultTable(
         "liquidity_commonality",
         frame,
         "Commonality in liquidity: each security's liquidity change on the market's",
-        f"{CRS}: per security, OLS of the {change} monthly change in the measure on the equal-weighted mean change "
-        "of the other securities in months t-1, t, t+1"
-        + (" and the market return in t-1, t, t+1" if market is not None else "")
+        f"{CRS}: per security, OLS of the {change} change in the measure (monthly: from the calendar month before; "
+        "daily: from the trading day before) on the equal-weighted mean change of the other securities in "
+        "periods t-1, t, t+1"
+        + (" and the market return in t-1, t, t+1 (daily: the securities' equal-weighted mean return)"
+           if market is not None else "")
         + "; cross-sectional means of the slopes, t-statistic of the concurrent mean from the cross-section "
         "(ignores correlation across securities), share positive and positive with t above the two-sided 5% "
-        "critical value, mean adjusted R-squared.",
+        "critical value, mean adjusted R-squared; mean_periods: periods per regression.",
     )
 
 
@@ -293,8 +333,10 @@ def _recovery_table(panel, truth, measures, series, betas) -> ResultTable:
 
 
 def _vw(column: str, weight: str = "weight") -> pl.Expr:
+    """Weighted mean, added in security order (:mod:`liqpanel.stable`)."""
     ok = pl.col(column).is_finite() & pl.col(weight).is_finite() & (pl.col(weight) > 0)
-    return ((pl.col(column) * pl.col(weight)).filter(ok).sum() / pl.col(weight).filter(ok).sum()).alias(column)
+    num = ordered_sum(pl.when(ok).then(pl.col(column) * pl.col(weight)))
+    return (num / ordered_sum(pl.when(ok).then(pl.col(weight)))).alias(column)
 
 
 def _acharya_pedersen(panel, settings, supplied, lags) -> tuple[list[ResultTable], pl.DataFrame]:
@@ -324,7 +366,8 @@ def _acharya_pedersen(panel, settings, supplied, lags) -> tuple[list[ResultTable
     port = ap.illiquidity_innovations(port, by="portfolio")
     betas = ap.ap_betas(port, market)
     summary = port.group_by("portfolio").agg(
-        pl.col("ret").mean().alias("mean_ret"), pl.col("illiq_norm").mean().alias("mean_illiq"),
+        ordered_mean(pl.col("ret"), "month").alias("mean_ret"),
+        ordered_mean(pl.col("illiq_norm"), "month").alias("mean_illiq"),
     ).join(betas, on="portfolio", how="left").sort("portfolio")
 
     # Fama-MacBeth: next month's portfolio return on the portfolio's illiquidity at formation and its betas
