@@ -8,7 +8,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 CORES ?= 2
 
-.PHONY: demo test study bench bench-measures bench-scale cluster-test clean-work report expected verify
+.PHONY: demo test study bench bench-measures bench-scale bench-factors cluster-test clean-work report expected verify
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -35,7 +35,7 @@ $(VENV)/.installed-cluster: $(STAMP)
 cluster-test: $(VENV)/.installed-cluster
 	bash .ci/cluster-test.sh
 
-bench: bench-measures bench-scale
+bench: bench-measures bench-scale bench-factors
 
 # Measures stage against a naive pandas baseline and a one-pass floor (a few minutes);
 # smaller: make bench-measures BENCH_MEASURES_ARGS="--securities 500 --years 2"
@@ -45,6 +45,10 @@ bench-measures: $(STAMP)
 # Month partitions of 1x, 4x and 16x a base market beside a pandas script (about two minutes)
 bench-scale: $(STAMP)
 	$(BIN)/python -m bench.scale $(BENCH_SCALE_ARGS)
+
+# Rolling liquidity betas: stacked fits against a loop over securities and windows (under a minute)
+bench-factors: $(STAMP)
+	$(BIN)/python -m bench.factors $(BENCH_FACTORS_ARGS)
 
 clean-work:
 	rm -rf work .snakemake

@@ -69,7 +69,7 @@ def solve_sums(sums: pl.DataFrame, k: int, min_obs: int) -> dict[str, np.ndarray
     m = sums.height
     n = sums.get_column("_n").to_numpy().astype(float)
     xx = np.zeros((m, k, k))
-    for i, j in _pairs(k):
+    for i, j in _pairs(k):  # k(k+1)/2 columns, not rows
         v = sums.get_column(f"_xx_{i}_{j}").to_numpy()
         xx[:, i, j] = v
         xx[:, j, i] = v
@@ -84,8 +84,8 @@ def solve_sums(sums: pl.DataFrame, k: int, min_obs: int) -> dict[str, np.ndarray
     usable &= eig[:, 0] > RCOND * eig[:, -1]
     safe = np.where(usable[:, None, None], xx, np.eye(k))
     inv = np.linalg.inv(safe)
-    coef = np.einsum("rij,rj->ri", inv, np.where(usable[:, None], xy, 0.0))
-    ssr = np.maximum(yy - np.einsum("ri,ri->r", coef, xy), 0.0)
+    coef = np.matmul(inv, np.where(usable[:, None], xy, 0.0)[:, :, None])[:, :, 0]
+    ssr = np.maximum(yy - (coef * xy).sum(axis=1), 0.0)
     dof = np.where(usable, n - k, 1.0)
     resid_var = ssr / dof
     se = np.sqrt(np.maximum(np.diagonal(inv, axis1=1, axis2=2), 0.0) * resid_var[:, None])
