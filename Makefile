@@ -12,7 +12,7 @@ DEMO_CONFIG := config/config.yaml
 # results/latest, which follows whatever ran last). Expanded in the shell.
 DEMO_RUN = $$($(BIN)/python -c 'from liqpanel.report import run_folder; print(run_folder("$(DEMO_CONFIG)"))')
 
-.PHONY: demo test study bench bench-measures bench-scale bench-daily bench-rules cluster-test clean-work report expected verify lock wheel-test
+.PHONY: demo test study bench bench-measures bench-scale bench-daily bench-rules bench-factors cluster-test clean-work report expected verify lock wheel-test
 
 # Exact versions from requirements.lock (made by `make lock`), then liqpanel itself.
 $(STAMP): pyproject.toml requirements.lock
@@ -50,7 +50,7 @@ cluster-test: $(VENV)/.installed-cluster
 wheel-test:
 	PYTHON=$(PYTHON) bash .ci/wheel-test.sh
 
-bench: bench-measures bench-scale bench-daily bench-rules
+bench: bench-measures bench-scale bench-daily bench-rules bench-factors
 
 # Measures stage against a naive pandas baseline and a one-pass floor (a few minutes);
 # smaller: make bench-measures BENCH_MEASURES_ARGS="--securities 500 --years 2"
@@ -68,6 +68,10 @@ bench-scale: $(STAMP)
 # Clean + bars of the demo with every rule, this code against the commit before span jobs (about a minute)
 bench-rules: $(STAMP)
 	$(BIN)/python -m bench.rules $(BENCH_RULES_ARGS)
+
+# Rolling liquidity betas: stacked fits against a loop over securities and windows (under a minute)
+bench-factors: $(STAMP)
+	$(BIN)/python -m bench.factors $(BENCH_FACTORS_ARGS)
 
 clean-work:
 	rm -rf work .snakemake

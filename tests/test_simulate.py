@@ -530,3 +530,37 @@ def test_market_factor_is_the_value_weighted_return():
     both = rets.join(caps, on="security")
     expected = (both["ret"] * both["market_cap"]).sum() / both["market_cap"].sum()
     assert factors["mkt"][0] == pytest.approx(expected, rel=1e-12)
+
+
+# --------------------------------------------------------------------------
+# planted market-wide liquidity factor
+
+
+def test_planted_liquidity_factor_moves_every_spread_and_return():
+    # The model of this module: log c_it gains F_t, F_t = rho F_t-1 + eta_t; the
+    # month's efficient log return gains b_i (-eta_t). The factor's draws come from
+    # their own stream, so the same seed without the factor is the same market
+    # apart from it, and the differences isolate the planted terms.
+    kw = dict(n_securities=400, n_months=6, seed=17, trades_per_day=20.0, half_spread_range=(1e-6, 0.5))
+    on = simulate_market(liquidity_shock_sd=0.25, liquidity_persistence=0.5, liquidity_beta_mean=0.1,
+                         liquidity_beta_sd=0.3, **kw)
+    off = simulate_market(**kw)
+    truth = on.truth.sort("security", "month")
+    assert set(off.truth.columns) == set(truth.columns) - {"liquidity_shock", "liquidity_factor", "liquidity_beta"}
+    both = truth.join(off.truth.select("security", "month", pl.col("half_spread").alias("off")), on=["security", "month"])
+    # every security's log half-spread moves by the same F_t (no clipping in this range)
+    np.testing.assert_allclose((both["half_spread"].log() - both["off"].log()).to_numpy(),
+                               both["liquidity_factor"].to_numpy(), rtol=0, atol=1e-12)
+    factor = truth.group_by("month").agg(pl.col("liquidity_factor", "liquidity_shock").first()).sort("month")
+    f, shock = factor["liquidity_factor"].to_numpy(), factor["liquidity_shock"].to_numpy()
+    np.testing.assert_allclose(f[1:] - 0.5 * f[:-1], -shock[1:], rtol=0, atol=1e-12)
+    # returns: per month, the cross-sectional slope of the log-return difference on b_i is the
+    # planted shock; the spread bounce at the month-end trades adds noise of about c (0.004),
+    # so the slope's error is about 0.01 / (0.3 sqrt(400)) = 0.0017; bound 0.01.
+    r = on.returns.join(off.returns.rename({"ret": "ret_off"}), on=["security", "month"]).drop_nulls()
+    r = r.join(truth.select("security", "month", "liquidity_beta", "liquidity_shock"), on=["security", "month"])
+    r = r.with_columns(((pl.col("ret") + 1).log() - (pl.col("ret_off") + 1).log()).alias("d"))
+    slopes = r.group_by("month").agg(
+        (pl.cov("d", "liquidity_beta") / pl.col("liquidity_beta").var()).alias("slope"), pl.col("liquidity_shock").first()
+    ).sort("month")
+    np.testing.assert_allclose(slopes["slope"].to_numpy(), slopes["liquidity_shock"].to_numpy(), rtol=0, atol=0.01)

@@ -31,6 +31,7 @@ def _config(data: Path) -> dict:
         "quotes": str(data / "quotes.parquet"),
         "returns": str(data / "returns.parquet"),
         "truth": str(data / "truth.parquet"),
+        "factors": str(data / "factors.parquet"),
         "characteristics": [
             {
                 "name": "market_data",
@@ -107,6 +108,13 @@ def test_workflow_end_to_end_is_reproducible(tmp_path, tiny_market):
     effective = truth.filter(pl.col("measure") == "effective_spread").row(0, named=True)
     assert abs(effective["mean_bias"]) < 1e-3 * effective["mean_truth"] + 1e-5  # 2 tanh(c) against 2c
     assert (first / "tables" / "regressions.tex").read_text().count(r"\toprule") == 1
+    # the factors stage: its tables and the factor series, one row per month, months unique
+    assert (first / "tables" / "liquidity_aggregate.csv").exists()
+    stored = pl.read_parquet(first / "factors.parquet")
+    factors = pl.read_csv(first / "factors.csv", schema=stored.schema)
+    assert factors.columns[0] == "month" and "liq_innovation" in factors.columns
+    assert factors.equals(stored)  # the CSV holds the same numbers, full precision
+    assert factors.get_column("month").is_unique().all() and factors.get_column("month").is_sorted()
     audit = pl.read_csv(first / "tables" / "cleaning_audit.csv")
     assert set(audit["table"]) == {"trades", "quotes"}
     for table in ("trades", "quotes"):

@@ -36,7 +36,8 @@ def _simulate(args: argparse.Namespace) -> int:
 
     spec = SimulationSpec(
         n_securities=args.securities, n_months=args.months, seed=args.seed, start=args.start,
-        bad_row_share=args.bad_row_share,
+        bad_row_share=args.bad_row_share, liquidity_shock_sd=args.liquidity_shock_sd,
+        liquidity_beta_mean=args.liquidity_beta_mean, liquidity_beta_sd=args.liquidity_beta_sd,
     )
     paths = write_market(simulate_market(spec), args.out)
     for name, path in sorted(paths.items()):
@@ -278,6 +279,12 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--start", default="2021-01", help="first month, YYYY-MM (default 2021-01)")
     p.add_argument("--bad-row-share", type=float, default=0.002,
                    help="share of planted bad rows for the cleaning audit (default 0.002)")
+    p.add_argument("--liquidity-shock-sd", type=float, default=0.25,
+                   help="monthly shock sd of the common factor in log half-spreads (0: none)")
+    p.add_argument("--liquidity-beta-mean", type=float, default=0.1,
+                   help="mean return loading on the planted liquidity innovation")
+    p.add_argument("--liquidity-beta-sd", type=float, default=0.3,
+                   help="cross-sectional sd of that loading")
     p.add_argument("--out", required=True, help="folder to write the market's files into")
 
     p = sub.add_parser("measures", help="list the registered measures with their sources")

@@ -645,6 +645,39 @@ def portfolio_lines(series: pl.DataFrame, spec: dict | None, labels: dict | None
     return lines
 
 
+def figure_market_liquidity(aggregate: pl.DataFrame, column: str, what: str, stem: str | Path, rid: str) -> list[Path]:
+    """One series of the market's liquidity (``level`` or ``innovation``) by month, with a zero line."""
+    from liqpanel import figures
+
+    frame = aggregate.filter(pl.col(column).is_not_null()).sort("month")
+    months = frame.get_column("month").to_list()
+    return figures.line_chart(
+        {f"market liquidity {what}": (months, frame.get_column(column).to_list())},
+        stem=stem, title=f"Market-wide liquidity: {what}", ylabel="return per unit of signed dollar volume", rid=rid,
+        hline=0.0,
+    )
+
+
+def figure_beta_portfolios(deciles: pl.DataFrame, column: str, what: str, stem: str | Path, rid: str) -> list[Path]:
+    """A statistic of the portfolios sorted on liquidity beta, by portfolio (1 = lowest beta)."""
+    from liqpanel import figures
+
+    frame = deciles.with_columns(pl.col("portfolio").cast(pl.Int64)).sort("portfolio")
+    scale, unit = (100.0, "% per month") if column == "mean_ret" else (1.0, "per unit of L_t")
+    return figures.line_chart(
+        {what: (frame.get_column("portfolio").to_list(), (frame.get_column(column) * scale).to_list())},
+        stem=stem, title=f"Portfolios on liquidity beta: {what}", ylabel=f"{what} ({unit})",
+        xlabel="portfolio (1 = lowest liquidity beta)", rid=rid,
+    )
+
+
+def factor_columns_text(units: dict[str, str]) -> str:
+    """A short Markdown description of ``factors.csv`` / ``factors.parquet``: one line per column."""
+    lines = ["# Factor series", "", "One row per calendar month (`month`, the first day of the month).", ""]
+    lines += [f"- `{name}`: {text}" for name, text in units.items()]
+    return "\n".join(lines) + "\n"
+
+
 def sort_title(spec: dict | None, labels: dict | None = None) -> tuple[str, str | None]:
     """Figure title and legend title of a sort's cumulative-value figure."""
     if not spec:

@@ -83,6 +83,21 @@ with this module) gave a positive slope in 200 of 200 seeds, a mean slope of
 1.98 and a t-statistic above 2 in 170 of 200 (mean 3.1; plain Fama-MacBeth
 standard errors). The default seed 20240101 gives slope 1.78, t = 2.26.
 
+Planted market-wide liquidity (off by default; the demo turns it on). A
+common monthly factor F_t in every security's log half-spread,
+    log c_it += F_t,  F_t = ``liquidity_persistence`` F_t-1 + eta_t,
+    eta_t ~ N(0, ``liquidity_shock_sd``^2)
+(F stationary from the first month), moves all spreads together; c is
+clipped after the factor is added. Returns load on the unexpected part:
+the month's efficient log return gains b_i x (-eta_t), b_i ~
+N(``liquidity_beta_mean``, ``liquidity_beta_sd``^2), so a security with
+b_i > 0 falls when spreads widen unexpectedly (liquidity improves when
+-eta_t > 0). The truth keeps ``liquidity_shock`` (-eta_t: the planted
+liquidity innovation, positive = more liquid), ``liquidity_factor`` (F_t)
+and ``liquidity_beta`` (b_i). These draws come from their own stream
+(seeded by ``seed``), so switching the factor on or off leaves every other
+draw unchanged, and with both scales at zero the market is the one without it.
+
 Characteristics (one row per security and month, dated the last business
 day): market_cap = month-end close x shares_out; log_size = ln(market_cap)
 (currency units); book_to_market log-normal (median ``bm_median``, log
@@ -196,6 +211,11 @@ class SimulationSpec:
     # planted premium: expected monthly return = premium_base + premium_slope * previous spread
     premium_base: float = 0.005
     premium_slope: float = 2.0
+    # planted market-wide liquidity: common AR(1) factor in log half-spreads, return exposure to its shocks
+    liquidity_shock_sd: float = 0.0  # monthly innovation sd of the common log half-spread factor
+    liquidity_persistence: float = 0.5  # its monthly AR(1) coefficient
+    liquidity_beta_mean: float = 0.0  # mean return loading on the liquidity innovation (-eta)
+    liquidity_beta_sd: float = 0.0  # cross-sectional sd of that loading
     # book-to-market
     bm_median: float = 0.6
     bm_dispersion: float = 0.6
@@ -234,7 +254,10 @@ class SimulationSpec:
             lo, hi = getattr(self, name)
             if not 0 < lo <= hi:
                 raise bad(name, "expected (low, high) with 0 < low <= high")
-        for name in ("spread_persistence", "bm_persistence"):
+        for name in ("liquidity_shock_sd", "liquidity_beta_sd"):
+            if not getattr(self, name) >= 0:
+                raise bad(name, "expected a non-negative number")
+        for name in ("spread_persistence", "bm_persistence", "liquidity_persistence"):
             if not -1 < getattr(self, name) < 1:
                 raise bad(name, "expected a value strictly between -1 and 1")
         for name in ("overnight_share", "max_market_share"):
@@ -362,6 +385,9 @@ class _Population:
     half_spread: np.ndarray  # (n, months)
     expected_ret: np.ndarray  # (n, months)
     book_to_market: np.ndarray | None  # (n, months)
+    liquidity_shock: np.ndarray | None = None  # (months,) planted liquidity innovation -eta_t
+    liquidity_factor: np.ndarray | None = None  # (months,) F_t
+    liquidity_beta: np.ndarray | None = None  # (n,) b_i
 
 
 @dataclass(frozen=True)
@@ -412,6 +438,8 @@ def _run(rng: np.random.Generator, pop: _Population, cal: _Calendar, how: _Tradi
     overnight = np.sqrt(share) * (pop.beta[:, None] * factor[0][None, :] + idio[0])
     n_t = days_in_month[cal.month_of_day][None, :]
     drift = (np.log1p(pop.expected_ret[:, cal.month_of_day]) - n_t * variance[:, None] / 2.0) / n_t
+    if pop.liquidity_beta is not None:  # the month's log return gains b_i x (-eta_t), spread over its days
+        drift = drift + (pop.liquidity_beta[:, None] * pop.liquidity_shock[None, :])[:, cal.month_of_day] / n_t
     session_move = np.sqrt(1.0 - share) * (pop.beta[:, None] * factor[1][None, :] + idio[1]) + drift
     close_m = np.log(pop.price0)[:, None] + np.cumsum(overnight + session_move, axis=1)
     open_m = close_m - session_move
@@ -487,6 +515,14 @@ def _run(rng: np.random.Generator, pop: _Population, cal: _Calendar, how: _Tradi
             "n_trades": trades_month.ravel().astype(np.int64),
             "n_days_traded": days_traded.ravel().astype(np.int64),
             "expected_ret": pop.expected_ret.ravel(),
+            **(
+                {
+                    "liquidity_shock": np.tile(pop.liquidity_shock, n),
+                    "liquidity_factor": np.tile(pop.liquidity_factor, n),
+                    "liquidity_beta": np.repeat(pop.liquidity_beta, n_months),
+                }
+                if pop.liquidity_beta is not None else {}
+            ),
         }
     )
     ret = np.full((n, n_months), np.nan)
@@ -663,8 +699,10 @@ def _population(rng: np.random.Generator, spec: SimulationSpec, cal: _Calendar) 
     path[:, 0] = sd * shocks[:, 0]
     for t in range(1, n_months):
         path[:, t] = rho * path[:, t - 1] + sd * np.sqrt(1.0 - rho**2) * shocks[:, t]
+    common, shock, liq_beta = _liquidity_factor(spec, n, n_months)
     half = np.clip(
-        np.exp(np.log(spec.spread_level) - spec.spread_size_slope * z[:, None] + path), *spec.half_spread_range
+        np.exp(np.log(spec.spread_level) - spec.spread_size_slope * z[:, None] + path + common[None, :]),
+        *spec.half_spread_range,
     )
     # book-to-market: yearly AR(1) in logs, new value each January
     year = cal.months.astype("datetime64[Y]").astype(np.int64)
@@ -702,7 +740,29 @@ def _population(rng: np.random.Generator, spec: SimulationSpec, cal: _Calendar) 
         half_spread=half[order],
         expected_ret=expected[order],
         book_to_market=book_to_market[order],
+        liquidity_shock=shock if liq_beta is not None else None,
+        liquidity_factor=common if liq_beta is not None else None,
+        liquidity_beta=liq_beta[order] if liq_beta is not None else None,
     )
+
+
+def _liquidity_factor(spec: SimulationSpec, n: int, n_months: int):
+    """The planted common liquidity factor F_t, the innovation -eta_t and the loadings b_i.
+
+    From a stream of its own (so the rest of the market's draws do not move);
+    all zeros and ``None`` loadings when the factor is off.
+    """
+    if spec.liquidity_shock_sd == 0 and spec.liquidity_beta_mean == 0 and spec.liquidity_beta_sd == 0:
+        return np.zeros(n_months), np.zeros(n_months), None
+    rng = np.random.default_rng([spec.seed, 2003])
+    rho, sd = spec.liquidity_persistence, spec.liquidity_shock_sd
+    eta = rng.standard_normal(n_months) * sd
+    common = np.empty(n_months)
+    common[0] = eta[0] / np.sqrt(1.0 - rho**2)  # stationary start
+    for t in range(1, n_months):
+        common[t] = rho * common[t - 1] + eta[t]
+    beta = spec.liquidity_beta_mean + spec.liquidity_beta_sd * rng.standard_normal(n)
+    return common, -eta, beta
 
 
 def simulate_market(spec: SimulationSpec | None = None, **overrides) -> Market:

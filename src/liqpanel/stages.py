@@ -279,12 +279,7 @@ def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> No
     from liqpanel.measures import REGISTRY
     from liqpanel.models.run import run_models
 
-    factors = None
-    if config["inputs"].get("factors"):
-        factors = ingest.read_checked(
-            ingest.layout_of(config, "factors"), ingest.Spec("factor file", text=(), months=("month",), other_numeric=True),
-            key=("month",),
-        )
+    factors = _supplied_factors(config)
     sources = "; ".join(f"{name}: {REGISTRY[name].source}" for name in config["measures"])
     result = run_models(
         pl.read_parquet(panel_path), config["models"], monthly=pl.read_parquet(monthly_path), factors=factors,
@@ -302,6 +297,49 @@ def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> No
     write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
 
 
+def _supplied_factors(config: dict) -> pl.DataFrame | None:
+    """The user's factor file (``inputs.factors``) with ``month`` as the first day of the month, or None."""
+    if not config["inputs"].get("factors"):
+        return None
+    return ingest.read_checked(
+        ingest.layout_of(config, "factors"), ingest.Spec("factor file", text=(), months=("month",), other_numeric=True),
+        key=("month",),
+    )
+
+
+def factors(config: dict, panel_path: str, out_dir: str, daily_paths: list[str] = ()) -> None:
+    """Build the liquidity factors the ``factors:`` section selects; write tables, series and an index.
+
+    Writes ``<out_dir>/<table>.parquet`` for each table, ``index.json``,
+    ``aggregate.parquet`` and ``deciles.parquet`` (for the figures, when
+    built) and ``factors.parquet`` (month, one column per factor).
+    """
+    from liqpanel.factors.run import FACTOR_UNITS, run_factors
+    from liqpanel.measures import REGISTRY
+
+    truth_path = config["inputs"].get("truth")
+    measures = [o for name in config["measures"] if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
+    measures += [o for o in ("effective_spread", "quoted_spread", "amihud") if o in config["measures"]]
+    result = run_factors(
+        pl.read_parquet(panel_path), config.get("factors", {}), supplied=_supplied_factors(config),
+        lags=config["models"].get("lags", 6), truth=read_truth(config) if truth_path else None,
+        recovery_measures=measures,
+        daily=pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed").collect()
+        if daily_paths and config.get("factors", {}).get("commonality", {}).get("daily_measures") else None,
+    )
+    out = Path(out_dir)
+    index = []
+    for table in result.tables:
+        write_parquet(table.frame, out / f"{table.name}.parquet")
+        index.append({"name": table.name, "caption": table.caption, "notes": table.notes})
+    for name in ("aggregate", "deciles", "factors"):
+        frame = getattr(result, name)
+        if frame is not None:
+            write_parquet(frame, out / f"{name}.parquet")
+    units = {c: FACTOR_UNITS[c] for c in (result.factors.columns if result.factors is not None else []) if c != "month"}
+    write_text(json.dumps({"tables": index, "units": units}, indent=2) + "\n", out / "index.json")
+
+
 def report(
     config: dict,
     rid: str,
@@ -315,6 +353,7 @@ def report(
     started: str,
     command: str,
     study_dir: str | None = None,
+    factors_dir: str | None = None,
 ) -> None:
     """Write ``results/<run-id>/``: tables, figures, data, README, manifest.
 
@@ -359,6 +398,8 @@ def report(
         # a column of different statistics (mean, t-statistic, beta...): decimals follow each row
         by_row = frame.width == 2 and frame.columns[0] == "statistic"
         out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes, by_row=by_row)
+    if factors_dir:
+        render_factors(factors_dir, out, figures=settings["figures"])
     panel_frame = pl.read_parquet(panel_path)
     variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
     out.table(
@@ -476,6 +517,47 @@ def _daily_audit_tables(out: "rep.RunFolder", audit_path: str, splits_path: str)
             notes="A return within 3% of a split's price ratio with a matching jump in volume; give the split in "
             "`inputs.adjustments` (liqpanel.dailyfile.suspected_splits)",
         )
+
+
+def render_factors(factors_dir: str | Path, out: "rep.RunFolder", *, figures: bool = True) -> None:
+    """Put the factors stage's output into a run folder: tables, figures, ``factors.csv``/``.parquet``."""
+    from liqpanel import report as rep
+
+    source = Path(factors_dir)
+    index = json.loads((source / "index.json").read_text())
+    for entry in index["tables"]:
+        out.table(entry["name"], pl.read_parquet(source / f"{entry['name']}.parquet"),
+                  caption=entry["caption"], notes=entry["notes"])
+    if (source / "factors.parquet").exists():
+        series = pl.read_parquet(source / "factors.parquet")
+        write_parquet(series, out.path / "factors.parquet")
+        write_text(series.write_csv(float_precision=None), out.path / "factors.csv")
+        write_text(rep.factor_columns_text(index["units"]), out.path / "factors.md")
+    if not figures:
+        return
+    folder = out.path / "figures"
+    if (source / "aggregate.parquet").exists():
+        aggregate = pl.read_parquet(source / "aggregate.parquet")
+        for column, what, unit in (("level", "level (scaled by m_t/m_1)", ""), ("innovation", "innovation L_t", " / 100")):
+            if aggregate.get_column(column).drop_nulls().len() < 2:
+                continue
+            name = f"market_liquidity_{column}"
+            out.figure(
+                name, rep.figure_market_liquidity(aggregate, column, what, folder / name, out.rid),
+                caption=f"Market-wide liquidity by month: the {what}",
+                notes=f"Pastor & Stambaugh (2003); return per unit of signed dollar volume{unit}",
+            )
+    if (source / "deciles.parquet").exists():
+        deciles = pl.read_parquet(source / "deciles.parquet")
+        for column, what in (("post_liq_beta", "post-formation liquidity beta"), ("mean_ret", "mean return")):
+            if deciles.get_column(column).drop_nulls().len() < 2:
+                continue  # too few months for the statistic: no figure rather than an empty one
+            name = f"liquidity_beta_portfolios_{column}"
+            out.figure(
+                name, rep.figure_beta_portfolios(deciles, column, what, folder / name, out.rid),
+                caption=f"Portfolios sorted on historical liquidity beta: {what}",
+                notes="Pastor & Stambaugh (2003); returns earned the month after formation",
+            )
 
 
 def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_dir: str) -> None:

@@ -176,3 +176,16 @@ def factor_summary(
         }
     )
     return out
+
+
+def summary_table(summary: dict) -> pl.DataFrame:
+    """The statistics of :func:`factor_summary` as a two-column table: ``statistic``, ``value``."""
+    rows = [
+        ("mean (per month)", summary["mean"]), ("t-statistic (Newey-West)", summary["tstat"]),
+        ("Sharpe ratio (annualised)", summary["sharpe_annual"]), ("months", float(summary["n_months"])),
+    ]
+    if "alpha" in summary:
+        rows += [("alpha (per month)", summary["alpha"]), ("alpha t-statistic", summary["alpha_tstat"])]
+        rows += [(f"beta {k}", v) for k, v in summary["betas"].items()]
+        rows += [("R-squared", summary["r2"])]
+    return pl.DataFrame({"statistic": [r[0] for r in rows], "value": [float(r[1]) for r in rows]})

@@ -12,7 +12,7 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.models.factor import factor_summary, liquidity_factor
+from liqpanel.models.factor import factor_summary, liquidity_factor, summary_table
 from liqpanel.models.regressions import ModelSpec, fit_model, regression_table
 from liqpanel.models.sorts import double_sort, sort_portfolios
 from liqpanel.models.validation import validate_proxies
@@ -136,18 +136,10 @@ def run_models(
             min_securities=fac.get("min_securities", 5), high_is_illiquid=fac.get("high_is_illiquid", True),
         )
         summary = factor_summary(factor, factors, lags=fac.get("lags", lags))
-        rows = [
-            ("mean (per month)", summary["mean"]), ("t-statistic (Newey-West)", summary["tstat"]),
-            ("Sharpe ratio (annualised)", summary["sharpe_annual"]), ("months", float(summary["n_months"])),
-        ]
-        if "alpha" in summary:
-            rows += [("alpha (per month)", summary["alpha"]), ("alpha t-statistic", summary["alpha_tstat"])]
-            rows += [(f"beta {k}", v) for k, v in summary["betas"].items()]
-            rows += [("R-squared", summary["r2"])]
         out.tables.append(
             ResultTable(
                 "liquidity_factor",
-                pl.DataFrame({"statistic": [r[0] for r in rows], "value": [float(r[1]) for r in rows]}),
+                summary_table(summary),
                 f"Traded liquidity factor: illiquid-minus-liquid on {fac['measure']} within size groups",
                 f"{fac.get('size_groups', 2)} size groups x {fac.get('liquidity_groups', 3)} liquidity groups "
                 "(dependent sort); returns dated by formation month, earned the month after, in decimals per month; "

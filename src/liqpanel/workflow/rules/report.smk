@@ -12,6 +12,7 @@ rule report:
         audit=[f"{WORK}/audit.parquet"] if FROM_TRADES else [],
         daily_audit=[] if FROM_TRADES else [f"{WORK}/daily_audit.parquet", f"{WORK}/daily_splits.parquet"],
         models=f"{WORK}/models",
+        factors=f"{WORK}/factors",
         truth=[CONFIG["inputs"]["truth"]] if CONFIG["inputs"]["truth"] else [],
         study=[f"{WORK}/study"] if CONFIG["study"]["in_report"] else [],
     output:
@@ -32,6 +33,7 @@ rule report:
             audit_path=input.audit[0] if input.audit else None,
             daily_audit_paths=list(input.daily_audit) or None,
             models_dir=input.models,
+            factors_dir=input.factors,
             started=STARTED,
             command=COMMAND,
             study_dir=input.study[0] if input.study else None,
