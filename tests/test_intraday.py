@@ -194,7 +194,8 @@ def test_bars_without_quotes_keep_every_benchmark_column_missing(roll_market):
         ({"roll_spread": None, "amihud": None}, []),
         ({"realized_variance": None}, ["realized_variance", "realized_variance_returns"]),
         ({"price_impact": None, "roll_spread": None},
-         ["n_quoted", "n_signed", *SPREAD_MEASURES, *[f"{m}_size_weighted" for m in SPREAD_MEASURES]]),
+         ["n_quoted", "n_signed", *SPREAD_MEASURES, *[f"{m}_size_weighted" for m in SPREAD_MEASURES],
+          "close_bid", "close_ask", "kyle_lambda", "kyle_lambda_n"]),
     ],
 )
 def test_bars_compute_only_the_columns_the_selected_measures_read(roll_market, measures, expected):

@@ -180,8 +180,9 @@ def test_html_report_shows_each_formatted_table_in_a_browser(tmp_path, whole_run
         assert entry["caption"] in text, name
         assert entry["notes"] in text, name
         md = (whole_run / "tables" / f"{name}.md").read_text().splitlines()
-        first_row = next(line for line in md if line.startswith("| ") and not line.startswith("|---")
-                         and line != md[2])  # the first body row of the pipe table
+        rows = [line for line in md if line.startswith("| ") and not line.startswith("|---")]
+        first_row = rows[1] if len(rows) > 1 else rows[0]  # the first body row of the pipe table (a table
+        # with no row, e.g. a factor the tiny market has too few months for, shows its header)
         cells = [c.strip() for c in first_row.strip("|").split("|")]
         assert "\t".join(c for c in cells) in text.replace(" \t", "\t"), (name, cells)
     # the regressions as printed: t-statistics in parentheses, whole-number counts

@@ -155,8 +155,9 @@ def test_workflow_stops_on_bad_rows_naming_file_column_and_row(tmp_path, tiny_ma
     cfg = _config(tiny_market)
     cfg["inputs"]["trades"] = str(bad)
     cfg["inputs"]["quotes"] = None
-    for name in ("effective_spread", "quoted_spread", "realized_spread", "price_impact"):  # these need quotes
-        del cfg["measures"][name]
+    for name in ("effective_spread", "quoted_spread", "realized_spread", "price_impact", "closing_spread",
+                 "kyle_lambda"):  # these need quotes
+        cfg["measures"].pop(name, None)
     del cfg["models"]["validation"]
     cfg["columns"] = {"trades": {"sym": "security", "when": "ts", "px": "price", "qty": "size"}}
     stderr = _failed_run(tmp_path, cfg)

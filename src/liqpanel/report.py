@@ -663,7 +663,7 @@ def figure_beta_portfolios(deciles: pl.DataFrame, column: str, what: str, stem: 
     from liqpanel import figures
 
     frame = deciles.with_columns(pl.col("portfolio").cast(pl.Int64)).sort("portfolio")
-    scale, unit = (100.0, "% per month") if column == "mean_ret" else (1.0, "per unit of L_t")
+    scale, unit = (100.0, "% per month") if column == "mean_ret" else (1.0, "per unit of the liquidity innovation")
     return figures.line_chart(
         {what: (frame.get_column("portfolio").to_list(), (frame.get_column(column) * scale).to_list())},
         stem=stem, title=f"Portfolios on liquidity beta: {what}", ylabel=f"{what} ({unit})",

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import polars as pl
-from scipy.special import ndtri
 
 from liqpanel.errors import ConfigError
 from liqpanel.measures.impact import CALENDARS
@@ -26,7 +25,7 @@ def no_trade_days(calendar: str, measure: str) -> pl.Expr:
 def normal_quantile(p: pl.Expr) -> pl.Expr:
     """Phi^{-1}(p) of the standard normal distribution (scipy's ``ndtri``) over a whole monthly column."""
     return p.map_batches(
-        lambda s: pl.Series(s.name, ndtri(s.cast(pl.Float64).to_numpy()), nan_to_null=True), return_dtype=pl.Float64
+        lambda s: pl.Series(s.name, _ndtri(s.cast(pl.Float64).to_numpy()), nan_to_null=True), return_dtype=pl.Float64
     )
 
 
@@ -88,3 +87,11 @@ def fht_spread(daily: pl.LazyFrame, *, calendar: str = "market") -> pl.LazyFrame
 
 
 __all__ = ["fht_plan", "fht_spread", "no_trade_days", "normal_quantile"]
+
+
+def _ndtri(p):
+    """scipy's inverse normal distribution function, imported only when a month is evaluated
+    (a clean or bars job reads the registry without loading scipy)."""
+    from scipy.special import ndtri
+
+    return ndtri(p)
