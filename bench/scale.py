@@ -215,7 +215,7 @@ def pandas_monthly(trades_path: str, months: list[str]):
     """The same Roll and Amihud measures the way a pandas script would compute them.
 
     The whole trade file in memory; the cleaning rules of ``liqpanel.clean``
-    (missing field, non-positive price or size, outside 09:30-16:00 New York
+    (missing field, non-positive price or size, outside 09:10-15:40 New York
     time, exact duplicate); daily OHLC bars; close-to-close returns; Roll
     (1984) from the autocovariance of daily log price changes and Amihud
     (2002) by a Python function per security-month; at least 15 days.
@@ -228,7 +228,7 @@ def pandas_monthly(trades_path: str, months: list[str]):
     clock = local.dt.strftime("%H:%M:%S.%f")
     ok = trades[["security", "ts", "price", "size"]].notna().all(axis=1)
     ok &= (trades["price"] > 0) & (trades["size"] > 0)
-    ok &= (clock >= "09:30:00.000000") & (clock <= "16:00:00.000000")
+    ok &= (clock >= "09:10:00.000000") & (clock <= "15:40:00.000000")
     trades["month"] = local.dt.strftime("%Y-%m")
     ok &= trades["month"].isin(months)
     kept = trades[ok]

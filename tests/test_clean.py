@@ -19,7 +19,7 @@ from liqpanel.clean import QUOTE_RULES, RULES, TRADE_RULES, check_conservation, 
 from liqpanel.config import load_market, validate_config
 
 NEW_YORK = ZoneInfo("America/New_York")
-MARKET = load_market("demo")  # America/New_York, one session 09:30-16:00
+MARKET = load_market("demo")  # America/New_York, one session 09:10-15:40
 RULES_ON = {"nonpositive": True, "outside_session": True, "duplicates": True}
 
 
@@ -215,10 +215,10 @@ def test_codes_with_a_separator_drop_a_row_if_any_code_drops():
 
 
 def test_session_bounds_are_inclusive_and_local():
-    # 09:30 and 16:00 local are inside the session (common practice: the
+    # 09:10 and 15:40 local are inside the session (common practice: the
     # opening and closing trades belong to the day)
     frame = pl.DataFrame(
-        {"security": ["X"] * 3, "ts": [_local(6, 9, 30), _local(6, 16, 0), _local(6, 9, 29)],
+        {"security": ["X"] * 3, "ts": [_local(6, 9, 10), _local(6, 15, 40), _local(6, 9, 9)],
          "price": [1.0, 1.0, 1.0], "size": [1.0, 2.0, 3.0]},
         schema_overrides={"ts": pl.Datetime("us", "UTC")},
     )

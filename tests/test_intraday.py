@@ -105,12 +105,12 @@ def _near_close(market, quote_minutes, trade_minute, horizon, past_close, price=
 
 
 def test_horizon_past_the_close_uses_the_sessions_last_midpoint_or_is_excluded():
-    # New York close 16:00 = minute 960; trade at 15:58, quotes at 15:57 and 15:59:30
-    quotes = [957, 959.5]
-    kept = _near_close(DEMO, quotes, 958, 5, "session_close")
-    assert kept["mid_later"] == pytest.approx(10.2)  # the 15:59:30 quote, bid 10.1 ask 10.3
+    # the demo market's close 15:40 = minute 940; trade at 15:38, quotes at 15:37 and 15:39:30
+    quotes = [937, 939.5]
+    kept = _near_close(DEMO, quotes, 938, 5, "session_close")
+    assert kept["mid_later"] == pytest.approx(10.2)  # the 15:39:30 quote, bid 10.1 ask 10.3
     assert kept["realized_spread"] + kept["price_impact"] == pytest.approx(kept["effective_spread"])
-    dropped = _near_close(DEMO, quotes, 958, 5, "exclude")
+    dropped = _near_close(DEMO, quotes, 938, 5, "exclude")
     assert dropped["realized_spread"] is None and dropped["effective_spread"] is not None
 
 
@@ -134,7 +134,7 @@ def _pandas_realized_variance(ts_local, prices, open_, close, minutes):
 def test_realized_variance_matches_pandas_previous_tick_sampling():
     rng = np.random.default_rng(3)
     tz = ZoneInfo("America/New_York")
-    open_, close = datetime(2021, 3, 2, 9, 30, tzinfo=tz), datetime(2021, 3, 2, 16, 0, tzinfo=tz)
+    open_, close = datetime(2021, 3, 2, 9, 10, tzinfo=tz), datetime(2021, 3, 2, 15, 40, tzinfo=tz)
     seconds = np.sort(rng.choice(np.arange(60, 6 * 3600), size=300, replace=False))  # none at the open
     local = [open_ + timedelta(seconds=int(s)) for s in seconds]
     prices = 20 * np.exp(np.cumsum(rng.normal(0, 0.001, size=300)))

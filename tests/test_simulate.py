@@ -346,16 +346,16 @@ def test_tick_rounding():
 
 
 def test_calendar_and_session(demo):
-    # Market profile: business days Monday-Friday, session 09:30-16:00 local,
+    # Market profile: business days Monday-Friday, session 09:10-15:40 local,
     # across both standard and daylight time (common practice)
     local = good(demo.trades).with_columns(pl.col("ts").dt.convert_time_zone(TZ).alias("local"))
     assert (local["local"].dt.weekday() <= 5).all()
     clock = local["local"].dt.time()
-    assert (clock >= time(9, 30)).all() and (clock < time(16, 0)).all()
+    assert (clock >= time(9, 10)).all() and (clock < time(15, 40)).all()
     months = local["local"].dt.month().unique().to_list()
     assert 1 in months and 7 in months  # both UTC offsets are exercised
-    hours_utc = local.filter(pl.col("local").dt.time() < time(9, 31))["ts"].dt.hour().unique().sort().to_list()
-    assert hours_utc == [13, 14]  # 09:30 is 13:30 UTC in daylight time and 14:30 UTC in standard time
+    hours_utc = local.filter(pl.col("local").dt.time() < time(9, 11))["ts"].dt.hour().unique().sort().to_list()
+    assert hours_utc == [13, 14]  # 09:10 is 13:10 UTC in daylight time and 14:10 UTC in standard time
     dates = demo.characteristics["date"].unique().sort()
     assert dates.len() == 24 and dates.dt.weekday().max() <= 5
     assert dates.to_list()[:3] == [date(2021, 1, 29), date(2021, 2, 26), date(2021, 3, 31)]  # last business days
@@ -373,7 +373,7 @@ def test_bad_rows(demo):
     assert bad.height == round(share * n_good / (1 - share))
     assert abs(bad.height / trades.height - share) < 1.0 / trades.height + 1e-4
     clock = pl.col("ts").dt.convert_time_zone(TZ).dt.time()
-    outside = ~clock.is_between(time(9, 30), time(16, 0), closed="both")
+    outside = ~clock.is_between(time(9, 10), time(15, 40), closed="both")
     nonpositive = (pl.col("price") <= 0) | (pl.col("size") <= 0)
     contract = ["security", "ts", "price", "size"]
     goods = good(trades).select(contract).with_columns(pl.lit(True).alias("is_copy"))

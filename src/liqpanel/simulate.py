@@ -14,7 +14,7 @@ proportions, 0.01 = 1%; "daily" means one business day)
 --------------------------------------------------------------------------
 Calendar. Business days Monday to Friday without holidays, from the first
 day of ``start`` for ``n_months`` calendar months; one session per day
-(default 09:30-16:00 in ``tz``). Timestamps are stored in UTC, microseconds.
+(default 09:10-15:40 in ``tz``, an invented clock). Timestamps are stored in UTC, microseconds.
 The session must not contain a daylight-saving change (true for every market
 whose clocks change at night).
 
@@ -177,7 +177,7 @@ class SimulationSpec:
     seed: int = 20240101
     start: str = "2021-01"  # first month, "YYYY-MM"
     tz: str = "America/New_York"
-    session: tuple[str, str] = ("09:30", "16:00")  # local open and close, "HH:MM"
+    session: tuple[str, str] = ("09:10", "15:40")  # local open and close, "HH:MM"
     # size and price
     size_median: float = 1.0e9  # median market capitalisation, currency units
     size_dispersion: float = 1.5  # standard deviation of log market capitalisation
@@ -806,7 +806,7 @@ def simulate_security_months(
     seed: int = 0,
     tick: float | None = None,
     tz: str = "America/New_York",
-    session: tuple[str, str] = ("09:30", "16:00"),
+    session: tuple[str, str] = ("09:10", "15:40"),
     *,
     start: str = "2021-01",
     price: float = 50.0,

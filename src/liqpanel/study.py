@@ -370,7 +370,7 @@ class Market:
     """What the simulation needs of the market profile: time zone, one session, tick."""
 
     timezone: str = "America/New_York"
-    session: tuple[str, str] = ("09:30", "16:00")
+    session: tuple[str, str] = ("09:10", "15:40")
     tick: float | None = None
     overnight_share: float = 0.0
 

@@ -38,7 +38,8 @@ try:
         runtime.remove_partial_files(CONFIG["run"]["work_dir"])
     INPUTS = input_files(CONFIG)
     RUN_ID = run_id(CONFIG)
-    stages.check_inputs(CONFIG)
+    if workflow.is_main_process:  # the inputs' columns and first rows, once per run (not in each cluster job)
+        stages.check_inputs(CONFIG)
 except LiqpanelError as exc:
     sys.stderr.write(f"liqpanel: {exc}\n")
     sys.exit(2)
