@@ -91,17 +91,19 @@ class InputSource:
     def ours(self, theirs: str) -> str:
         return self.mapping.get(theirs, theirs)
 
+    def layout(self):
+        """This input as the input contract describes it (``liqpanel.ingest.Layout``)."""
+        from liqpanel import ingest
+
+        return ingest.layout_from(self.table, self.path, self.mapping, self.formats)
+
     def theirs(self, ours: str) -> str:
         """The user's name of our column ``ours`` (itself when not mapped)."""
-        for user, our in self.mapping.items():
-            if our == ours:
-                return user
-        return ours
+        return self.layout().theirs(ours)
 
     def named(self, ours: str) -> str:
         """The user's column name with ours in parentheses when they differ."""
-        user = self.theirs(ours)
-        return f"'{user}'" if user == ours else f"'{user}' ({ours})"
+        return self.layout().label(ours)
 
 
 # ---------------------------------------------------------------- files
@@ -214,8 +216,7 @@ def _date_expr(dtype, source: "InputSource"):
     """The parsed date of a column ``_date`` of type ``dtype``, as the input contract reads it (liqpanel.ingest)."""
     from liqpanel import ingest
 
-    layout = ingest.layout_from(source.table, source.path, source.mapping, source.formats)
-    parsed, _ = ingest.date("_date", dtype, layout, source.path, months=source.date_column == "month")
+    parsed, _ = ingest.date("_date", dtype, source.layout(), source.path, months=source.date_column == "month")
     return parsed
 
 
@@ -266,7 +267,6 @@ def _timestamp_sample(source: InputSource, file: str, have: dict[str, str]) -> l
     """Trades and quotes: the timestamp (``ts``, or ``date`` and ``time``) parses on the first rows."""
     import polars as pl
 
-    from liqpanel import ingest
     from liqpanel.readers import _timestamp
 
     columns = [c for c in ("ts", "date", "time") if c in have]
@@ -277,8 +277,7 @@ def _timestamp_sample(source: InputSource, file: str, have: dict[str, str]) -> l
     except (pl.exceptions.PolarsError, OSError) as exc:
         return [Problem(file, f"cannot read the file (damaged or truncated?): {str(exc).splitlines()[0]}")]
     try:
-        layout = ingest.layout_from(source.table, file, source.mapping, source.formats)
-        ts, bad, raw, _ = _timestamp(frame.schema, source.timezone, file, layout)
+        ts, bad, raw, _ = _timestamp(frame.schema, source.timezone, file, source.layout())
     except LiqpanelError as exc:
         return [Problem(file, str(exc), column=have[columns[0]])]
     checked = frame.with_row_index("_row").select("_row", raw.cast(pl.String).alias("_raw"),
