@@ -87,7 +87,7 @@ def check_job_count(cluster: Path, jobs: int) -> None:
     config = load_config(cluster / "config" / "config.yaml")
     months = month_range(config["sample"]["start"], config["sample"]["end"])
     n_spans = len(spans(months, config["run"]["span_months"]))
-    whole = ["audit", "monthly", "panel", "models", "report"] + (["study"] if config["study"]["in_report"] else [])
+    whole = ["audit", "monthly", "panel", "models", "factors", "report"] + (["study"] if config["study"]["in_report"] else [])
     expected = 3 * n_spans + len(whole)
     if jobs != expected:
         fail(f"{jobs} SLURM jobs for {len(months)} months; the plan has {expected} "
