@@ -243,7 +243,7 @@ def gather(paths: list[str], out: str, sort: list[str]) -> None:
 
 
 def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> None:
-    from liqpanel.panel import build_panel, monthly_from_daily, read_monthly_returns, transform_panel
+    from liqpanel.panel import build_panel, monthly_from_daily, read_characteristics, read_monthly_returns, transform_panel
 
     inputs = config["inputs"]
     source = config["panel"]["return_source"]
