@@ -4,8 +4,8 @@
 
 Writes a synthetic daily panel (``bench.measures_data``) to Parquet, then for
 every family of daily measures in the registry (and for all of them together)
-times, each in a fresh process so that peak memory is the run's own (ours
-and the floor: the fastest of ``--repeat`` runs):
+times, each in a fresh process so that peak memory is the run's own (ours,
+the vectorised baseline and the floor: the fastest of ``--repeat`` runs):
 
 - ours: ``liqpanel.measures.compute_monthly`` on a scan of the Parquet file,
   the measures stage as the workflow runs it (one sort check, one pass over
@@ -26,7 +26,8 @@ and the floor: the fastest of ``--repeat`` runs):
 The Gibbs sampler is timed apart, per security-month at ``--sweeps`` sweeps:
 ours on ``--gibbs-fraction`` of the securities, the baseline as a loop that
 runs the same sampler one security-month at a time on ``--gibbs-months``
-months. The table prints seconds, the ratio baseline / ours, ours / floor and
+months. The table prints seconds, the ratio of each baseline to ours side by
+side, ours / floor and
 our peak resident memory; the lines below it compare the results with the
 targets. Timings are wall-clock on whatever else the machine is doing: run it
 on a quiet machine.
