@@ -204,7 +204,7 @@ def job_plan(years: int, span: int) -> tuple[int, int]:
     from liqpanel.partition import spans
 
     months = month_list(12 * years)
-    whole = 6  # audit, monthly table, panel, models, study, report
+    whole = 7  # audit, monthly table, panel, models, factors, study, report
     return len(STAGES) * len(spans(months, span)) + whole, 4 * len(months) + whole
 
 

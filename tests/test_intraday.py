@@ -146,6 +146,34 @@ def test_realized_variance_matches_pandas_previous_tick_sampling():
     assert ours["realized_variance_returns"] == n
 
 
+def test_realized_variance_of_ordered_and_shuffled_prices_matches_pandas_per_security():
+    # Three securities over two days; the in-order path (a clean partition,
+    # no sort) and the sorting path (rows shuffled) against the pandas
+    # previous-tick reference above, security by security and day by day.
+    rng = np.random.default_rng(11)
+    tz = ZoneInfo("America/New_York")
+    rows, expected = [], {}
+    for security in ("X", "Y", "Z"):
+        for day in (2, 3):
+            open_, close = datetime(2021, 3, day, 9, 30, tzinfo=tz), datetime(2021, 3, day, 16, 0, tzinfo=tz)
+            seconds = np.sort(rng.choice(np.arange(60, 6 * 3600), size=120, replace=False))
+            local = [open_ + timedelta(seconds=int(s)) for s in seconds]
+            prices = 20 * np.exp(np.cumsum(rng.normal(0, 0.001, size=120)))
+            rows += [(security, t.astimezone(timezone.utc), p) for t, p in zip(local, prices)]
+            expected[(security, day)] = _pandas_realized_variance(
+                [t.replace(tzinfo=None) for t in local], prices, open_.replace(tzinfo=None), close.replace(tzinfo=None), 5)
+    frame = pl.DataFrame(rows, schema=["security", "ts", "price"], orient="row")
+    shuffled = frame.sample(fraction=1.0, shuffle=True, seed=4)
+    for got in (realized_variance(frame.lazy(), DEMO, interval_minutes=5, in_order=True),
+                realized_variance(shuffled.lazy(), DEMO, interval_minutes=5)):
+        got = got.collect().sort("security", "date")
+        assert got.height == 6
+        for row in got.iter_rows(named=True):
+            variance, n = expected[(row["security"], row["date"].day)]
+            assert row["realized_variance"] == pytest.approx(variance, rel=1e-12)
+            assert row["realized_variance_returns"] == n
+
+
 def test_realized_variance_sums_sessions_without_the_midday_break():
     # one price per session edge: a jump across the break must not count
     tz = ZoneInfo("Asia/Kolkata")

@@ -183,11 +183,13 @@ def intraday_bars(
     if "variance" in groups:
         price = rv_options["price"]
         has_quotes = quotes.select(pl.len()).collect().item() > 0
-        if price == "midquote" or (price == "auto" and has_quotes):
+        on_quotes = price == "midquote" or (price == "auto" and has_quotes)
+        if on_quotes:
             series = quotes.select("security", "ts", ((pl.col("bid") + pl.col("ask")) / 2.0).alias("price"))
         else:
             series = trades.select("security", "ts", "price")
-        variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]))
+        variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]),
+                                              in_order=in_order and not on_quotes)
         bars = bars.join(variance, on=key, how="left")
     types = {c: t for group in groups.values() for c, t in group.items()}
     return bars.with_columns([pl.col(c).cast(t) for c, t in types.items()]).sort(key)

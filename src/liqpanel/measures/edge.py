@@ -122,14 +122,19 @@ def edge_plan(*, signed: bool = False) -> Plan:
                 sums[f"{a}*{b}"] = products[a] * products[b]
     n = pl.col("n")
     pt, po, pc = pl.col("tau") / n, pl.col("po") / n, pl.col("pc") / n
-    A, B = -4.0 / po, -4.0 / pc
-    k1, k3, k5 = (pl.col(r) / n / pt for r in ("r1", "r3", "r5"))
+    constants = {"_A": -4.0 / po, "_B": -4.0 / pc, **{f"_k{r[1]}": pl.col(r) / n / pt for r in ("r1", "r3", "r5")}}
+    A, B, k1, k3, k5 = (pl.col(name) for name in constants)
     a1 = [A, -A * k1, B, -B * k3]
     a2 = [A, -A * k1, B, -B * k5]
-    e1 = sum((a * pl.col(name) for a, name in zip(a1, in_x1)), pl.lit(0.0)) / n
-    e2 = sum((a * pl.col(name) for a, name in zip(a2, in_x2)), pl.lit(0.0)) / n
-    v1 = _quadratic_mean(a1, in_x1) - e1 * e1
-    v2 = _quadratic_mean(a2, in_x2) - e2 * e2
+    moments = {
+        "_e1": sum((a * pl.col(name) for a, name in zip(a1, in_x1)), pl.lit(0.0)) / n,
+        "_e2": sum((a * pl.col(name) for a, name in zip(a2, in_x2)), pl.lit(0.0)) / n,
+        "_q1": _quadratic_mean(a1, in_x1),
+        "_q2": _quadratic_mean(a2, in_x2),
+    }
+    e1, e2 = pl.col("_e1"), pl.col("_e2")
+    variances = {"_v1": pl.col("_q1") - e1 * e1, "_v2": pl.col("_q2") - e2 * e2}
+    v1, v2 = pl.col("_v1"), pl.col("_v2")
     s2 = pl.when(v1 + v2 > 0).then((v2 * e1 + v1 * e2) / (v1 + v2)).otherwise((e1 + e2) / 2.0)
     spread = s2.abs().sqrt()
     if signed:
@@ -144,6 +149,7 @@ def edge_plan(*, signed: bool = False) -> Plan:
     return Plan(
         steps=steps,
         sums=sums,
+        monthly_steps=(constants, moments, variances),
         monthly=(
             pl.when(reason.is_null()).then(spread).otherwise(None).cast(pl.Float64).alias("edge_spread"),
             n.cast(pl.Int64).alias("n_obs"),

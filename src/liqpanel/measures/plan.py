@@ -17,6 +17,10 @@ return). A ``Plan`` says exactly that and nothing more:
   column only with the same expression.
 - ``lasts``: named per-day values whose last non-null value in the month is
   kept (shares outstanding at the month's end).
+- ``monthly_steps``: monthly intermediate columns over those sums (each a
+  mapping of name to expression, one ``with_columns`` in order), so a
+  month's constant used many times in a formula is computed once; names
+  start with an underscore.
 - ``monthly``: expressions over those sums (by the same names), ``n_days``
   (the month's rows) and the requested ``context`` columns, giving the
   measure's outputs, ``n_obs`` and ``reason``.
@@ -89,6 +93,7 @@ class Plan:
     steps: tuple[dict[str, pl.Expr], ...] = ()
     lasts: dict[str, pl.Expr] = field(default_factory=dict)
     context: tuple[str, ...] = ()
+    monthly_steps: tuple[dict[str, pl.Expr], ...] = ()
 
     def __post_init__(self) -> None:
         unknown = [c for c in self.context if c not in CONTEXTS]
@@ -294,6 +299,8 @@ def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFra
         inputs = monthly.lazy().select(
             "n_days", *plan.context, *[pl.col(column).alias(name) for name, column in local.items()]
         )
+        for step in plan.monthly_steps:
+            inputs = inputs.with_columns(**step)
         queries.append(inputs.select(*plan.monthly))
     results = dict(zip(plans, pl.collect_all(queries, engine="in-memory")))  # the monthly formulas side by side
     return monthly.select(*KEY, "n_days"), results
