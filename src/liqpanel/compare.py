@@ -335,17 +335,18 @@ def _num(value: float | None) -> str:
 def summary_text(result: CheckResult, top: int = 10) -> str:
     """What a referee reads: one line per table, the counts, the largest deviations."""
     tol = result.tolerance
+    w = max([28, *(len(t.name) + 1 for t in result.tables)])  # the table names' column fits the longest
     lines = [
         f"reference  {result.reference}",
         f"candidate  {result.candidate}",
         f"tolerance  |candidate - reference| <= {tol.abs_tol:g} + {tol.rel_tol:g} x |reference|",
         "",
-        f"{'table':<28} {'result':<17} {'rows ref/cand':>13} {'cells':>7} {'beyond tol':>10} {'largest abs dev':>16}",
+        f"{'table':<{w}} {'result':<17} {'rows ref/cand':>13} {'cells':>7} {'beyond tol':>10} {'largest abs dev':>16}",
     ]
     for t in result.tables:
         rows = f"{'-' if t.rows_reference is None else t.rows_reference}/{'-' if t.rows_candidate is None else t.rows_candidate}"
         lines.append(
-            f"{t.name:<28} {_WORDS[t.status]:<17} {rows:>13} {t.cells_compared:>7} {t.cells_different:>10} "
+            f"{t.name:<{w}} {_WORDS[t.status]:<17} {rows:>13} {t.cells_compared:>7} {t.cells_different:>10} "
             f"{_num(t.largest_abs_diff):>16}"
         )
         for label, items in (
