@@ -133,7 +133,7 @@ def daily_starter(path: str | Path, *, separator: str = ",", name: str = "my-dai
         f'  start: "{start}"',
         f'  end: "{end}"',
         "",
-        f"market: demo                # a profile in config/markets/ ({markets}) or a path to your own",
+        f"market: demo                # a profile shipped with liqpanel ({markets}) or a path to your own",
         "",
         "inputs:",
         f"  daily: {path}",
