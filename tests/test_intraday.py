@@ -155,7 +155,7 @@ def test_realized_variance_of_ordered_and_shuffled_prices_matches_pandas_per_sec
     rows, expected = [], {}
     for security in ("X", "Y", "Z"):
         for day in (2, 3):
-            open_, close = datetime(2021, 3, day, 9, 30, tzinfo=tz), datetime(2021, 3, day, 16, 0, tzinfo=tz)
+            open_, close = datetime(2021, 3, day, 9, 10, tzinfo=tz), datetime(2021, 3, day, 15, 40, tzinfo=tz)
             seconds = np.sort(rng.choice(np.arange(60, 6 * 3600), size=120, replace=False))
             local = [open_ + timedelta(seconds=int(s)) for s in seconds]
             prices = 20 * np.exp(np.cumsum(rng.normal(0, 0.001, size=120)))
