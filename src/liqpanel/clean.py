@@ -330,7 +330,6 @@ def flag_trades(
         frame = _duplicates(frame, [c for c in TRADE_COLUMNS if c in names])
     if rules.get("same_timestamp", "merge") == "merge":
         frame = _merge_same_time(frame, ["price"], ["size"])
-    lag = float(rules.get("quote_lag_seconds", 0.0))
     if quotes is not None:
         frame = _match_quotes(frame, quotes, float(rules.get("quote_lag_seconds", 0.0)))
         if rules.get("outside_quotes", True):

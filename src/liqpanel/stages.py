@@ -10,7 +10,7 @@ from __future__ import annotations
 import json
 import sys
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import polars as pl
 
@@ -20,7 +20,7 @@ from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conserv
 from liqpanel.config import load_market
 from liqpanel.errors import InputError
 from liqpanel import ingest
-from liqpanel.io import previous_month, write_parquet, write_text
+from liqpanel.io import write_parquet, write_text
 from liqpanel.partition import stored_window
 
 if TYPE_CHECKING:
