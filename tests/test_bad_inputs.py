@@ -547,6 +547,7 @@ def test_unparseable_rows_dropped_by_policy_do_not_stop_the_check(tmp_path):
     _write_daily(tmp_path / "daily.csv", rows)
     config = validate_config(yaml.safe_load(_config(tmp_path, daily={"unparseable": "drop"}).read_text()))
     check_inputs(config)  # no error: the row is dropped and counted by the daily job
+    assert cli.main(["check-config", str(tmp_path / "config.yaml")]) == 0  # nor from the pre-flight check
     t = _totals(_read(tmp_path / "daily.csv", _settings(unparseable="drop")).audit)
     assert (t["drop_unparseable"], t["rows_kept"]) == (1, 199)
 

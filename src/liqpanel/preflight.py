@@ -85,6 +85,7 @@ class InputSource:
     timezone: str = "UTC"  # the market's, for timestamps without an offset
     required: tuple[str, ...] = ()
     numbers: tuple[str, ...] = ()  # our numeric columns whose values the date-sample check also parses
+    values: bool = True  # False: rows that do not parse are dropped and counted later (daily: unparseable: drop)
     files: list[str] = field(default_factory=list)
     headers: dict[str, list[str]] = field(default_factory=dict)  # file -> the user's column names
 
@@ -257,7 +258,7 @@ def check_date_sample(source: InputSource) -> list[Problem]:
         fmt["date_column"] = source.date_column
     problems = []
     for message in ingest.sample_check(source.table, source.path, source.mapping, fmt, rows=SAMPLE_ROWS,
-                                       numbers=source.numbers):
+                                       numbers=source.numbers, values=source.values):
         named = re.match(r"file (.+?): (.*)$", message, flags=re.S)
         problems.append(Problem(named.group(1), named.group(2)) if named else Problem(source.path, message))
     return problems
@@ -342,7 +343,8 @@ def input_sources(config: dict) -> list[InputSource]:
             sources.append(InputSource(
                 key=key, table=key, path=path, mapping=_mapping(columns.get(key)),
                 formats=_dict(formats.get(key)), config_key=f"columns.{key}", date_column=DATE_COLUMN[key],
-                required=REQUIRED[key], timezone=timezone, numbers=_sampled_numbers(config, key),
+                required=REQUIRED[key], timezone=timezone, numbers=SAMPLE_NUMBERS.get(key, ()),
+                values=not _drops_unparseable(config, key),
             ))
     entries = inputs.get("characteristics")
     for index, entry in enumerate(entries if isinstance(entries, list) else []):
@@ -360,11 +362,9 @@ def input_sources(config: dict) -> list[InputSource]:
     return sources
 
 
-def _sampled_numbers(config: dict, key: str) -> tuple[str, ...]:
-    """Numbers parsed on the sample: none where the config drops rows that do not parse (they are counted)."""
-    if key == "daily" and _dict(config.get("daily")).get("unparseable") == "drop":
-        return ()
-    return SAMPLE_NUMBERS.get(key, ())
+def _drops_unparseable(config: dict, key: str) -> bool:
+    """Whether the config drops (and counts) the rows of this input that do not parse, instead of stopping."""
+    return key == "daily" and _dict(config.get("daily")).get("unparseable") == "drop"
 
 
 def _dict(value: Any) -> dict:

@@ -37,10 +37,12 @@ def _month_filter(month: str) -> pl.Expr:
 
 
 def check_inputs(config: dict) -> None:
-    """Check the market profile and every input file's columns before any job runs.
+    """What the pre-flight check (``liqpanel.preflight``) leaves to the readers, before any job runs:
+    the trade and quote files' columns and types through their reader, a trade file with no data
+    rows, the adjustments file read whole, and a daily file with its own returns beside adjustments.
 
     Raises ConfigError or InputError naming the profile, file or column;
-    row-level problems are found later, by the clean stage.
+    row-level problems are found later, by the clean stage and the daily file's job.
     """
     market = load_market(config["market"])
     inputs, columns = config["inputs"], config.get("columns", {})
@@ -53,30 +55,13 @@ def check_inputs(config: dict) -> None:
                                  path=inputs[key])
     if inputs.get("adjustments"):
         _adjustments(config)
-    formats = config.get("formats") or {}
-    numbers = {"daily": ("open", "high", "low", "close", "volume"), "returns": ("ret",)}
-    dropped = {"daily"} if config.get("daily", {}).get("unparseable") == "drop" else set()
-    problems = [
-        problem
-        for kind in ("daily", "returns", "factors", "truth")
-        if inputs.get(kind)
-        for problem in ingest.sample_check(kind, inputs[kind], columns.get(kind), formats.get(kind),
-                                           numbers=numbers.get(kind, ()), values=kind not in dropped)
-    ]
-    for entry in inputs.get("characteristics", []):
-        fmt = {**(entry.get("format") or {}), "date_column": entry.get("date_column", "date")}
-        problems += ingest.sample_check("characteristics", entry["path"], entry.get("columns"), fmt,
-                                        numbers=tuple(entry["variables"]))
-    if inputs.get("daily") and inputs.get("adjustments") and not problems:
+    if inputs.get("daily") and inputs.get("adjustments"):
         from liqpanel import dailyfile
 
         layout = ingest.layout_of(config, "daily")
         file = ingest.list_files(layout.path)[0]
         if "ret" in ingest.schema_of(ingest.scan_file(file, layout, 1), file):
-            problems.append(str(ingest.error(layout, dailyfile.ADJUSTED_TWICE, file=file, column="ret")))
-    if problems:
-        raise InputError("\n  ".join(problems) if len(problems) == 1 else
-                         f"{len(problems)} problems with the inputs:\n  " + "\n  ".join(problems))
+            raise ingest.error(layout, dailyfile.ADJUSTED_TWICE, file=file, column="ret")
 
 
 def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
