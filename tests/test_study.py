@@ -316,6 +316,28 @@ def test_tables_summary_and_heat_maps(small_study, tmp_path):
     assert b"liqpanel run rid123abc" in (tmp_path / "study_bias_spread.pdf").read_bytes()
 
 
+def test_heat_map_panels_use_print_names_and_skip_estimators_without_estimates(small_study, tmp_path, monkeypatch):
+    _, _, _, result = small_study
+    spread = result.by_cell.filter(pl.col("kind") == "spread")
+    names = spread.get_column("estimator").unique(maintain_order=True).to_list()
+    empty, kept = names[0], names[1]
+    by_cell = result.by_cell.with_columns(
+        pl.when(pl.col("estimator") == empty).then(0).otherwise(pl.col("n_estimates")).alias("n_estimates")
+    )
+    assert study.unestimated(by_cell, "spread") == [empty]
+    drawn = {}
+    from liqpanel import figures
+
+    def capture(panels, **kwargs):
+        drawn[kwargs["stem"].name] = list(panels)
+        return []
+
+    monkeypatch.setattr(figures, "heat_maps", capture)
+    study.bias_maps(by_cell, tmp_path, "rid", min_cell=5, labels={kept: "A printed name"})
+    assert "A printed name" in drawn["study_bias_spread"] and kept not in drawn["study_bias_spread"]
+    assert empty not in drawn["study_bias_spread"] and len(drawn["study_bias_spread"]) == len(names) - 1
+
+
 def test_schema_defaults_and_bad_settings():
     schema = load_schema()["properties"]["study"]["properties"]
     assert {k: v["default"] for k, v in schema.items() if k != "in_report"} == study.DEFAULTS

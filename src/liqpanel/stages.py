@@ -574,15 +574,17 @@ def render_study(study_dir: str | Path, out: "RunFolder", *, figures: bool = Tru
         out.table(entry["name"], pl.read_parquet(source / f"{entry['name']}.parquet"),
                   caption=entry["caption"], notes=entry["notes"])
     if figures:
-        paths = st.bias_maps(pl.read_parquet(source / "study_by_cell.parquet"), out.path / "figures", out.rid,
-                             min_cell=min_cell)
+        by_cell = pl.read_parquet(source / "study_by_cell.parquet")
+        paths = st.bias_maps(by_cell, out.path / "figures", out.rid, min_cell=min_cell, labels=out.labels)
         for kind in st.KINDS:
             mine = [p for p in paths if p.stem == f"study_bias_{kind}"]
             if mine:
+                left_out = [out.labels.get(n) or n for n in st.unestimated(by_cell, kind)]
                 out.figure(
                     f"study_bias_{kind}", mine,
                     caption=f"Mean bias of the {kind} estimators by true spread / volatility and trades per day",
-                    notes="Simulated security-months calibrated to this market; percent of the mean truth",
+                    notes="Simulated security-months calibrated to this market; percent of the mean truth"
+                    + (f"; without an estimate in any draw, so not shown: {', '.join(left_out)}" if left_out else ""),
                 )
     write_text((source / "summary.md").read_text(), out.path / "study_summary.md")
     write_parquet(pl.read_parquet(source / "draws.parquet"), out.path / "data" / "study_draws.parquet")
