@@ -99,6 +99,21 @@ def test_a_failing_job_shows_everything_from_the_error_on():
     assert "jobid: 3" not in text  # the job blocks before the failure stay in the log
 
 
+def test_an_error_of_ours_leaves_the_engine_block_out_but_gives_the_log():
+    failing = ENGINE_OUTPUT.split("localrule report:")[0] + (
+        "Error in rule report:\n    jobid: 1\nliqpanel: a message of a job\n"
+        "Exiting because a job execution failed. Look below for error messages\n"
+        "Complete log(s): .snakemake/log/x.log\n"  # Snakemake 9's wording
+    )
+    for ours, shown in ((True, False), (False, True)):
+        out = io.StringIO()
+        seen = follow(io.StringIO(failing), out, explained=lambda: ours)
+        text = out.getvalue()
+        assert seen["failed"] and ("Error in rule report:" in text) is shown
+        assert "liqpanel: a message of a job" in text
+        assert text.endswith("full log of the run: .snakemake/log/x.log\n")
+
+
 def test_versions_that_differ_from_a_manifest_are_named(tmp_path):
     here = installed_versions()
     manifest = {

@@ -61,3 +61,51 @@ def test_duplicate_keys_are_rejected():
     monthly = pl.concat([_monthly(), _monthly().head(1)])
     with pytest.raises(InputError, match="duplicate"):
         build_panel(monthly.lazy(), returns=_returns().lazy())
+
+
+def test_latest_dated_row_of_a_month_holds_whatever_the_row_order():
+    # Two rows public in March 2021 (dated the 10th and the 31st): the later
+    # one holds, written first or last in the file.
+    for order in (slice(None), slice(None, None, -1)):
+        rows = pl.DataFrame({"security": ["A", "A"], "date": [date(2021, 3, 10), date(2021, 3, 31)], "x": [1.0, 2.0]})[order]
+        source = {"name": "s", "frame": rows.lazy(), "variables": ["x"], "lag_months": 0}
+        panel = build_panel(_monthly().lazy(), returns=_returns().lazy(), characteristics=[source])
+        assert panel.filter(pl.col("month") == date(2021, 3, 1))["x"].item() == 2.0
+
+
+def test_characteristics_audit_accounts_for_every_row():
+    from liqpanel.panel import audit_summary, characteristics_audit
+
+    # The panel holds security A, January to June 2021 (_monthly).
+    rows = pl.DataFrame({
+        "security": ["A", "A", "A", "A", "A", "A", "Z", "A"],
+        "date": [date(2020, 6, 30), date(2020, 12, 31),  # replaced before use, then used (January to February)
+                 date(2021, 3, 10), date(2021, 3, 31),  # same month: the 10th gives way to the 31st (used)
+                 date(2021, 2, 26), date(2021, 9, 30),  # used; public after June
+                 date(2021, 1, 29), None],  # security not in the panel; no date
+        "x": [1.0] * 8,
+    })
+    source = {"name": "accounts", "frame": rows.lazy(), "variables": ["x"], "lag_months": 0}
+    panel = build_panel(_monthly().lazy(), returns=_returns().lazy(), characteristics=[source])
+    audit = characteristics_audit(panel.select("security", "month"), [source]).row(0, named=True)
+    assert audit == {
+        "source": "accounts", "read": 8, "no_date": 1, "same_month": 1, "security_not_in_panel": 1,
+        "replaced_before_use": 1, "after_last_month": 1, "used": 3,
+    }
+    printed = audit_summary(characteristics_audit(panel.select("security", "month"), [source]))
+    assert printed["rows"].to_list()[:3] == ["read", "used", "not used: no_date"]
+    assert printed["share"].to_list()[:2] == pytest.approx([1.0, 3 / 8])
+
+
+def test_two_characteristics_rows_on_one_date_stop_the_run(tmp_path):
+    from liqpanel.errors import InputError
+    from liqpanel.panel import read_characteristics
+
+    path = tmp_path / "chars.csv"
+    path.write_text("ticker,day,bm\nA,2021-01-29,0.5\nB,2021-01-29,0.7\nA,2021-01-29,0.6\n")
+    entry = {"name": "acc", "path": str(path), "date_column": "date", "variables": ["bm"],
+             "columns": {"ticker": "security", "day": "date"}}
+    with pytest.raises(InputError) as caught:
+        read_characteristics(entry)
+    message = str(caught.value)
+    assert str(path) in message and "data rows 1, 3" in message and "'day'" in message

@@ -192,7 +192,7 @@ def _relay(stream, muted: threading.Event, errors: _JobErrors, quiet: bool) -> N
     if quiet:
         from liqpanel.progress import follow
 
-        follow(shown, _Unless(muted, sys.stdout), _Unless(muted, sys.stderr))
+        follow(shown, _Unless(muted, sys.stdout), _Unless(muted, sys.stderr), explained=lambda: errors.ours)
         return
     for line in shown:
         sys.stderr.write(line)

@@ -80,29 +80,39 @@ def read_characteristics(entry: dict) -> pl.DataFrame:
     ``format:`` says how dates and missing values are written
     (``liqpanel.ingest``); an integer date is YYYYMMDD, never a day count.
     Values that are not finite become missing (counted in the coverage table).
+    A security with two rows on one date stops the run, naming the rows:
+    which of the two holds would otherwise be a matter of row order.
     """
     layout = ingest.characteristics_layout(entry)
     date_column = entry.get("date_column", "date")
     spec = ingest.Spec(f"characteristics file '{entry['name']}'", dates=(date_column,), numeric=tuple(entry["variables"]),
                        flags_ok=True)
-    return ingest.read_checked(layout, spec)
+    return ingest.read_checked(layout, spec, key=("security", date_column))
+
+
+def _public(source: pl.LazyFrame, *, lag_months: int, date_column: str, keep: list[str]) -> pl.LazyFrame:
+    """Rows with a date and the month they become public; of a security's rows public in the same
+    month, the latest-dated one (the others are superseded before anyone could use them)."""
+    return (
+        source.select(
+            pl.col("security").cast(pl.String),
+            month_of(pl.col(date_column)).dt.offset_by(f"{lag_months}mo").alias("public_month"),
+            pl.col(date_column).alias("_dated"),
+            *[pl.col(v) for v in keep],
+        )
+        .drop_nulls("public_month")
+        .sort("security", "public_month", "_dated")
+        .unique(["security", "public_month"], keep="last", maintain_order=True)
+        .drop("_dated")
+        .sort("public_month")
+    )
 
 
 def asof_characteristics(
     keys: pl.LazyFrame, source: pl.LazyFrame, *, variables: list[str], lag_months: int, date_column: str = "date"
 ) -> pl.LazyFrame:
     """Attach each key's latest characteristics already public in its month."""
-    public = (
-        source.select(
-            pl.col("security").cast(pl.String),
-            month_of(pl.col(date_column)).dt.offset_by(f"{lag_months}mo").alias("public_month"),
-            *[pl.col(v) for v in variables],
-        )
-        .drop_nulls("public_month")
-        .sort("security", "public_month")
-        .unique(["security", "public_month"], keep="last", maintain_order=True)
-        .sort("public_month")
-    )
+    public = _public(source, lag_months=lag_months, date_column=date_column, keep=variables)
     return (
         keys.sort("month")
         .join_asof(
@@ -144,6 +154,72 @@ def build_panel(
     panel = panel.join(next_month_returns(returns), on=KEY, how="left")
     out = panel.sort(KEY).collect()
     return check_unique_key(out, KEY, table="panel")
+
+
+AUDIT_RULES = ("no_date", "same_month", "security_not_in_panel", "replaced_before_use", "after_last_month", "used")
+
+
+def characteristics_audit(keys: pl.DataFrame, sources: list[dict[str, Any]]) -> pl.DataFrame:
+    """Where every row of each characteristics source went: one row per source, a column per rule.
+
+    Rules, in this order, each row counted once: ``no_date`` (no date:
+    never public); ``same_month`` (a later-dated row of the security is public
+    in the same month and holds); ``security_not_in_panel`` (no measure for the
+    security); ``replaced_before_use`` (a later row became public before any of
+    the security's panel months could take it, e.g. history before the
+    sample); ``after_last_month`` (public after the security's last panel
+    month); ``used`` (taken by at least one security-month). ``keys`` holds the
+    panel's (security, month). Rows read = the sum of the rules, checked.
+    """
+    keys = keys.select(pl.col("security").cast(pl.String), "month")
+    last = keys.group_by("security").agg(pl.col("month").max().alias("_last"))
+    rows = []
+    for source in sources:
+        date_column, lag = source.get("date_column", "date"), source.get("lag_months", 0)
+        frame = source["frame"].lazy().select(pl.col("security").cast(pl.String), date_column).collect()
+        public = _public(frame.lazy(), lag_months=lag, date_column=date_column, keep=[]).collect()
+        taken = (
+            keys.sort("month").join_asof(public.with_columns(pl.col("public_month").alias("_taken")),
+                                         left_on="month", right_on="public_month", by="security", strategy="backward",
+                                         check_sortedness=False)
+            .select("security", pl.col("_taken").alias("public_month")).drop_nulls().unique()
+            .with_columns(pl.lit(True).alias("_used"))
+        )
+        fate = (
+            public.join(taken, on=["security", "public_month"], how="left")
+            .join(last, on="security", how="left")
+            .select(
+                pl.when(pl.col("_used")).then(pl.lit("used"))
+                .when(pl.col("_last").is_null()).then(pl.lit("security_not_in_panel"))
+                .when(pl.col("public_month") > pl.col("_last")).then(pl.lit("after_last_month"))
+                .otherwise(pl.lit("replaced_before_use")).alias("rule")
+            )
+        )
+        missing = frame.get_column(date_column).null_count()
+        counts = {r: 0 for r in AUDIT_RULES}
+        counts.update(dict(fate.group_by("rule").len().iter_rows()))
+        counts["no_date"] = missing
+        counts["same_month"] = frame.height - missing - public.height
+        if sum(counts.values()) != frame.height:  # every row read has exactly one fate
+            raise AssertionError(f"characteristics '{source.get('name')}': {frame.height} rows read, {counts} accounted")
+        rows.append({"source": source.get("name", "?"), "read": frame.height, **counts})
+    return pl.DataFrame(rows, schema={"source": pl.String, "read": pl.Int64, **{r: pl.Int64 for r in AUDIT_RULES}})
+
+
+def audit_summary(audit: pl.DataFrame) -> pl.DataFrame:
+    """``characteristics_audit`` in print: per source, rows read, used, and not used by rule, with shares of read."""
+    unused = [r for r in AUDIT_RULES if r != "used"]
+    long = audit.unpivot(["read", "used", *unused], index="source", variable_name="rows", value_name="count")
+    order = {name: k for k, name in enumerate(["read", "used", *unused])}
+    return (
+        long.with_columns(
+            (pl.col("count") / pl.col("count").filter(pl.col("rows") == "read").first().over("source")).alias("share"),
+            pl.col("rows").replace_strict(order, return_dtype=pl.Int32).alias("_order"),
+            pl.when(pl.col("rows").is_in(unused)).then(pl.lit("not used: ") + pl.col("rows")).otherwise("rows").alias("rows"),
+        )
+        .sort("source", "_order", maintain_order=True)
+        .drop("_order")
+    )
 
 
 def transform_panel(panel: pl.DataFrame, transforms: dict[str, Any]) -> pl.DataFrame:

@@ -237,8 +237,11 @@ def gather_monthly(paths: list[str], out: str) -> None:
     write_parquet(with_twelve_month_measures(frame), out)
 
 
-def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> None:
-    from liqpanel.panel import build_panel, monthly_from_daily, read_characteristics, read_monthly_returns, transform_panel
+def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str, audit_out: str | None = None) -> None:
+    """The panel (``out``) and, at ``audit_out``, where every characteristics row went (``characteristics_audit``)."""
+    from liqpanel.panel import (
+        build_panel, characteristics_audit, monthly_from_daily, read_characteristics, read_monthly_returns, transform_panel,
+    )
 
     inputs = config["inputs"]
     source = config["panel"]["return_source"]
@@ -249,6 +252,8 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str) -> 
     chars = [{**c, "frame": read_characteristics(c).lazy()} for c in inputs.get("characteristics", [])]
     built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
     write_parquet(transform_panel(built, config["panel"]), out)
+    if audit_out:
+        write_parquet(characteristics_audit(built.select("security", "month"), chars), audit_out)
 
 
 def read_truth(config: dict) -> pl.DataFrame:
@@ -335,6 +340,7 @@ def report(
     audit_path: str | None,
     models_dir: str,
     daily_audit_paths: list[str] | None = None,
+    characteristics_audit_path: str | None = None,
     started: str,
     command: str,
     study_dir: str | None = None,
@@ -349,7 +355,7 @@ def report(
     """
     from liqpanel import report as rep
     from liqpanel.measures import REGISTRY
-    from liqpanel.panel import coverage
+    from liqpanel.panel import audit_summary, coverage
     from liqpanel.replication import write_replication_files
 
     build = rep.build_folder(Path(run_dir).parent, rid)
@@ -407,6 +413,15 @@ def report(
         )
     if daily_audit_paths:
         _daily_audit_tables(out, *daily_audit_paths)
+    if characteristics_audit_path and config["inputs"].get("characteristics"):
+        out.table(
+            "characteristics_audit", audit_summary(pl.read_parquet(characteristics_audit_path)),
+            caption="Characteristics: rows read, used and not used by reason", label="tab:characteristics_audit",
+            notes="Each row is counted once, by the first that applies: no_date (never public); same_month (a "
+            "later-dated row of the security is public in the same month); security_not_in_panel; replaced_before_use "
+            "(a later row was public before any of the security's panel months); after_last_month; used (taken by at "
+            "least one security-month, as of the month it is public, liqpanel.panel)",
+        )
     spread_outputs = [o for name in measures if REGISTRY[name].family == "spread" for o in REGISTRY[name].outputs[:1]]
     if truth is not None and spread_outputs:
         out.table(

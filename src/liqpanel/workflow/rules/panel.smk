@@ -6,9 +6,10 @@ rule panel:
         sources=[c["path"] for c in CONFIG["inputs"]["characteristics"]]
         + ([CONFIG["inputs"]["returns"]] if CONFIG["inputs"]["returns"] else []),
     output:
-        f"{WORK}/panel.parquet",
+        panel=f"{WORK}/panel.parquet",
+        audit=f"{WORK}/characteristics_audit.parquet",
     params:
         panel=CONFIG["panel"],
         characteristics=CONFIG["inputs"]["characteristics"],
     run:
-        stages.panel(CONFIG, input.monthly, list(input.daily), output[0])
+        stages.panel(CONFIG, input.monthly, list(input.daily), output.panel, output.audit)

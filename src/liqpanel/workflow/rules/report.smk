@@ -9,6 +9,7 @@ rule report:
     input:
         monthly=f"{WORK}/monthly.parquet",
         panel=f"{WORK}/panel.parquet",
+        characteristics_audit=f"{WORK}/characteristics_audit.parquet",
         audit=[f"{WORK}/audit.parquet"] if FROM_TRADES else [],
         daily_audit=[] if FROM_TRADES else [f"{WORK}/daily_audit.parquet", f"{WORK}/daily_splits.parquet"],
         models=f"{WORK}/models",
@@ -32,6 +33,7 @@ rule report:
             panel_path=input.panel,
             audit_path=input.audit[0] if input.audit else None,
             daily_audit_paths=list(input.daily_audit) or None,
+            characteristics_audit_path=input.characteristics_audit,
             models_dir=input.models,
             factors_dir=input.factors,
             started=STARTED,
