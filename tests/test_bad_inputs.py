@@ -212,6 +212,28 @@ def test_returns_with_an_unparseable_return(tmp_path, capsys):
     _stops(capsys, cfg, "ret.csv", "'ret'", "data row 2", "'1.2.3'")
 
 
+def test_returns_in_percent_read_as_decimals_stop_naming_the_row(tmp_path, capsys):
+    # A simple return is -1 at the lowest (limited liability, common practice):
+    # -3.5 is a file in percent read as decimals.
+    (tmp_path / "ret.csv").write_text("security,month,ret\nQOLM,202101,1.2\nQOLM,202102,-3.5\nQOLM,202103,-7\n")
+    cfg = _config(tmp_path, inputs={"returns": str(tmp_path / "ret.csv")})
+    _stops(capsys, cfg, "ret.csv", "'ret'", "data row 2", "-3.5", "2 rows like this", "returns_in: percent")
+
+
+def test_returns_in_percent_are_read_as_decimals_when_declared(tmp_path):
+    (tmp_path / "ret.csv").write_text("security,month,ret\nQOLM,202101,1.2\nQOLM,202102,-3.5\n")
+    layout = ingest.layout_from("returns", str(tmp_path / "ret.csv"), {}, {"returns_in": "percent"})
+    got = read_monthly_returns(layout).collect()
+    assert got["ret"].to_list() == pytest.approx([0.012, -0.035])
+
+
+def test_daily_returns_in_percent_stop_at_the_pre_flight(tmp_path, capsys):
+    rows = [(*r, ret) for r, ret in zip(_days(n=20), [0.5, -1.5] * 50)]
+    _write_daily(tmp_path / "daily.csv", rows, header=HEADER + ",DayRet")
+    cfg = _config(tmp_path, columns={"daily": {**DAILY_MAP, "DayRet": "ret"}})
+    _stops(capsys, cfg, "daily.csv", "'DayRet' (ret)", "data row 2", "-1.5", "formats.daily")
+
+
 def test_returns_mapping_names_a_column_the_file_lacks(tmp_path, capsys):
     (tmp_path / "ret.csv").write_text("security,month,ret\nQOLM,202101,0.01\n")
     cfg = _config(tmp_path, inputs={"returns": str(tmp_path / "ret.csv")},

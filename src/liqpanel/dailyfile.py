@@ -249,6 +249,9 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     frame, files = ingest.read_frame(layout, SPEC)
     if not frame.height:
         raise InputError("the daily file has a header but no data rows", path=files[0])
+    problem = ingest.impossible_return(frame, layout, files)
+    if problem is not None:
+        raise problem
     flagged = flag_rows(frame, layout, files, settings or {}, sample)
     audit = audit_of(flagged)
     check_balance(audit, layout.path)

@@ -16,6 +16,11 @@ map to ours (``columns:``), and how its values are written (``formats:``):
 - ``missing``: the text tokens read as a missing value (default ``""``,
   ``NA``, ``N/A``, ``NaN``, ``nan``, ``null``, ``NULL``, ``.``).
 - ``separator``: of a CSV file (default ``,``).
+- ``returns_in``: ``decimal`` (0.012, the default) or ``percent`` (1.2) for
+  the return columns (``ret``, ``delist_ret``, ``mkt_ret``); percent values
+  are divided by 100 as they are read. A simple return below -1 (a loss of
+  more than everything) cannot be, so one stops the run naming the row: the
+  usual sign of a file in percent read as decimals.
 
 CSV columns are read as text and converted by the declared schema of the
 table (numbers as numbers whatever the first rows hold), so a file whose
@@ -43,6 +48,7 @@ PARQUET = (".parquet", ".pq")
 CSV = (".csv", ".csv.gz", ".csv.zst", ".txt", ".txt.gz")
 AMBIGUOUS_DATE = r"^\s*\d{1,2}[/.\-]\d{1,2}[/.\-]\d{2,4}\s*$"
 HELPERS = ("_file", "_row", "_bad", "_value", "_nonfinite")
+RETURN_COLUMNS = ("ret", "delist_ret", "mkt_ret")  # simple returns: -1 at the lowest
 
 
 @dataclass(frozen=True)
@@ -56,6 +62,7 @@ class Layout:
     time_format: str | None = None
     missing: tuple[str, ...] = DEFAULT_MISSING
     separator: str = ","
+    returns_in: str = "decimal"
 
     @property
     def config_key(self) -> str:
@@ -95,7 +102,7 @@ def layout_from(kind: str, path: str, mapping: dict | None, fmt: dict | None) ->
     return Layout(
         kind=kind, path=str(path), mapping=dict(mapping), date_format=fmt.get("date_format"),
         time_format=fmt.get("time_format"), missing=tuple(DEFAULT_MISSING if missing is None else missing),
-        separator=fmt.get("separator") or ",",
+        separator=fmt.get("separator") or ",", returns_in=fmt.get("returns_in") or "decimal",
     )
 
 
@@ -278,6 +285,23 @@ def first_bad(frame: pl.DataFrame, layout: Layout, files: list[str], *, dates: t
                  value=first["_value"])
 
 
+def impossible_return(frame: pl.DataFrame, layout: Layout, files: list[str]) -> InputError | None:
+    """An error naming the first row (by file and row) whose simple return is below -1, or None."""
+    columns = [c for c in RETURN_COLUMNS if c in frame.columns]
+    if not columns:
+        return None
+    below = frame.filter(pl.any_horizontal([pl.col(c) < -1.0 for c in columns]))
+    if not below.height:
+        return None
+    first = below.sort("_file", "_row").row(0, named=True)
+    column = next(c for c in columns if first[c] is not None and first[c] < -1.0)
+    more = f" ({below.height} rows like this)" if below.height > 1 else ""
+    hint = ("; are the returns in percent? set returns_in: percent under " + layout.config_key
+            if layout.returns_in == "decimal" else "")
+    return error(layout, f"a simple return below -1 (a loss of more than 100%) cannot be{more}{hint}",
+                 file=files[first["_file"]], column=column, row=first["_row"] + 1, value=first[column])
+
+
 @dataclass(frozen=True)
 class Spec:
     """The declared schema of a small table: text keys, dates, months and numbers."""
@@ -318,6 +342,8 @@ def read_frame(layout: Layout, spec: Spec, *, n_rows: int | None = None) -> tupl
                 parsed[column] = pl.col(column)
             else:
                 parsed[column] = _as_float(column, schema[column], layout, file)
+                if column in RETURN_COLUMNS and layout.returns_in == "percent":
+                    parsed[column] = parsed[column] / 100.0
                 floats.append(column)
         present = {
             c: pl.col(f"_raw_{c}").is_not_null() & (pl.col(f"_raw_{c}").str.strip_chars() != "")
@@ -376,7 +402,7 @@ def read_checked(layout: Layout, spec: Spec, key: tuple[str, ...] = ()) -> pl.Da
     does a repeated ``key`` (our names), naming the rows.
     """
     frame, files = read_frame(layout, spec)
-    problem = first_bad(frame, layout, files, dates=(*spec.dates, *spec.months))
+    problem = first_bad(frame, layout, files, dates=(*spec.dates, *spec.months)) or impossible_return(frame, layout, files)
     if problem is not None:
         raise problem
     if not frame.height:
@@ -417,6 +443,8 @@ def sample_check(kind: str, path: str, columns: dict[str, str] | None = None, fm
                         other_numeric=kind in ("factors", "truth"))
             frame, files = read_frame(layout, spec, n_rows=rows)
             problem = first_bad(frame, layout, files, dates=(date_column, "date", "month"))
+            if problem is None and kind in ("daily", "returns"):
+                problem = impossible_return(frame, layout, files)
             if problem is not None:
                 problems.append(str(problem))
             elif not frame.height:

@@ -165,8 +165,9 @@ def daily_starter(path: str | Path, *, separator: str = ",", name: str = "my-dai
         lines.append(f"    # no column of the file was placed as {', '.join(missing)}: map yours to them")
     lines += [
         "",
-        "# formats:                  # how the file writes dates and missing values, when not YYYY-MM-DD and empty",
-        f'#   daily: {{date_format: "%d/%m/%Y", missing: ["NA"], separator: "{separator}"}}',
+        "# formats:                  # how the file writes dates, missing values and returns, when not YYYY-MM-DD,",
+        "#                           # empty and decimals (0.012 for 1.2%)",
+        f'#   daily: {{date_format: "%d/%m/%Y", missing: ["NA"], separator: "{separator}", returns_in: percent}}',
         "",
         "measures:                   # measures of daily data; `liqpanel measures` lists all",
     ]
