@@ -234,6 +234,19 @@ def test_daily_returns_in_percent_stop_at_the_pre_flight(tmp_path, capsys):
     _stops(capsys, cfg, "daily.csv", "'DayRet' (ret)", "data row 2", "-1.5", "formats.daily")
 
 
+def test_returns_keyed_by_another_identifier_stop_naming_both(tmp_path, capsys):
+    (tmp_path / "ret.csv").write_text("Permno,month,ret\n10001,202101,0.01\n10002,202101,0.02\n")
+    cfg = _config(tmp_path, inputs={"returns": str(tmp_path / "ret.csv")},
+                  columns={"daily": DAILY_MAP, "returns": {"Permno": "security"}})
+    _stops(capsys, cfg, "ret.csv", "column 'Permno'", "no security of the monthly returns file", "'10001' in the file",
+           "'LUDA' in the measures")
+
+
+def test_characteristics_keyed_by_another_identifier_stop(tmp_path, capsys):
+    inputs = _chars(tmp_path, "security,date,bm\nX1,2021-01-29,0.5\n")
+    _stops(capsys, _config(tmp_path, inputs=inputs), "chars.csv", "characteristics file 'book'", "'X1' in the file")
+
+
 def test_returns_mapping_names_a_column_the_file_lacks(tmp_path, capsys):
     (tmp_path / "ret.csv").write_text("security,month,ret\nQOLM,202101,0.01\n")
     cfg = _config(tmp_path, inputs={"returns": str(tmp_path / "ret.csv")},

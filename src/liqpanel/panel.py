@@ -156,6 +156,21 @@ def build_panel(
     return check_unique_key(out, KEY, table="panel")
 
 
+def check_overlap(securities: pl.Series, frame: pl.DataFrame, *, what: str, path: str | None, column: str) -> None:
+    """Stop when no security of ``frame`` is among ``securities`` (the measures'): the identifiers differ.
+
+    ``column`` is the user's name of the file's security column.
+    """
+    theirs = frame.get_column("security").cast(pl.String).drop_nulls().unique().sort()
+    ours = securities.cast(pl.String).drop_nulls().unique().sort()
+    if theirs.len() and ours.len() and not theirs.is_in(ours.implode()).any():
+        raise InputError(
+            f"no security of the {what} is among the {ours.len()} securities with measures: is column '{column}' "
+            f"the same identifier? e.g. {theirs[0]!r} in the file, {ours[0]!r} in the measures",
+            path=path, column=column,
+        )
+
+
 AUDIT_RULES = ("no_date", "same_month", "security_not_in_panel", "replaced_before_use", "after_last_month", "used")
 
 

@@ -240,16 +240,24 @@ def gather_monthly(paths: list[str], out: str) -> None:
 def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str, audit_out: str | None = None) -> None:
     """The panel (``out``) and, at ``audit_out``, where every characteristics row went (``characteristics_audit``)."""
     from liqpanel.panel import (
-        build_panel, characteristics_audit, monthly_from_daily, read_characteristics, read_monthly_returns, transform_panel,
+        build_panel, characteristics_audit, check_overlap, monthly_from_daily, read_characteristics, read_monthly_returns,
+        transform_panel,
     )
 
     inputs = config["inputs"]
     source = config["panel"]["return_source"]
+    securities = pl.scan_parquet(monthly_path).select("security").unique().collect().get_column("security")
     if source == "monthly_file" or (source == "auto" and inputs.get("returns")):
-        returns = read_monthly_returns(ingest.layout_of(config, "returns"))
+        layout = ingest.layout_of(config, "returns")
+        returns = read_monthly_returns(layout)
+        check_overlap(securities, returns.select("security").collect(), what="monthly returns file", path=layout.path,
+                      column=layout.theirs("security"))
     else:
         returns = monthly_from_daily(pl.concat([pl.scan_parquet(p) for p in daily_paths]))
     chars = [{**c, "frame": read_characteristics(c).lazy()} for c in inputs.get("characteristics", [])]
+    for c in chars:
+        check_overlap(securities, c["frame"].select("security").collect(), what=f"characteristics file '{c['name']}'",
+                      path=c["path"], column=ingest.characteristics_layout(c).theirs("security"))
     built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
     write_parquet(transform_panel(built, config["panel"]), out)
     if audit_out:
