@@ -259,3 +259,7 @@ def test_bad_second_market_parameters_raise_clear_errors(tmp_path):
         simulate_market(n_securities=2, n_months=1, second_securities=2, second_profile="no-such-market")
     with pytest.raises(ConfigError, match="does not model half days"):
         simulate_market(n_securities=2, n_months=1, second_securities=2, second_profile="kestrel")
+    profile = tmp_path / "no_currency.yaml"
+    profile.write_text("timezone: Asia/Singapore\nsessions:\n  - ['09:20', '16:10']\n")
+    with pytest.raises(ConfigError, match="names no currency"):
+        simulate_market(n_securities=2, n_months=1, second_securities=2, second_profile=str(profile))

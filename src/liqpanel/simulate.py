@@ -875,6 +875,9 @@ def second_market_profile(spec: SimulationSpec) -> dict:
     if profile["_half_days"]:
         raise ConfigError(f"simulation parameter 'second_profile' = {spec.second_profile!r}: the simulator does not "
                           "model half days; use a profile without half_days")
+    if not profile.get("currency"):
+        raise ConfigError(f"simulation parameter 'second_profile' = {spec.second_profile!r}: the profile names no "
+                          "currency; the exchange rates need one (e.g. currency: ZZG)")
     if any(t.second for session in profile["_sessions"] for t in session):
         raise ConfigError(f"simulation parameter 'second_profile' = {spec.second_profile!r}: session times with "
                           "seconds are not simulated; give them as 'HH:MM'")
@@ -932,7 +935,7 @@ def _with_second_market(first: Market, spec: SimulationSpec, first_cal: _Calenda
         characteristics=joined("characteristics", ["security", "date"]),
         returns=joined("returns", ["security", "month"]),
         truth=joined("truth", ["security", "month"]),
-        fx=_exchange_rates(spec, first_cal.days, profile.get("currency") or "ZZG"),
+        fx=_exchange_rates(spec, np.union1d(first_cal.days, cal.days), profile["currency"]),
         spec=spec,
     )
 
