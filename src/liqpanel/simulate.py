@@ -400,9 +400,11 @@ def _business_days(first: np.datetime64, end: np.datetime64) -> np.ndarray:
 
 def _sessions_utc(days: np.ndarray, tz: str, sessions) -> tuple[np.ndarray, np.ndarray]:
     """UTC microseconds of each session's open on each day, shape (sessions, days), and each session's length."""
+    bounds = [_session_minutes(session) for session in sessions]
+    if any(later[0] <= earlier[1] for earlier, later in zip(bounds, bounds[1:])):
+        raise ConfigError(f"simulation sessions {tuple(sessions)!r}: each session must open after the previous closes")
     opens, lengths = [], []
-    for session in sessions:
-        open_min, close_min = _session_minutes(session)
+    for session, (open_min, close_min) in zip(sessions, bounds):
         local = pl.Series("open", days.astype("datetime64[us]")) + timedelta(minutes=open_min)
         try:
             utc = local.dt.replace_time_zone(tz, ambiguous="raise", non_existent="raise").dt.convert_time_zone("UTC")
@@ -413,9 +415,6 @@ def _sessions_utc(days: np.ndarray, tz: str, sessions) -> tuple[np.ndarray, np.n
             ) from None
         opens.append(utc.dt.epoch("us").to_numpy())
         lengths.append((close_min - open_min) * _MICROS_PER_MINUTE)
-    bounds = [_session_minutes(session) for session in sessions]
-    if any(later[0] <= earlier[1] for earlier, later in zip(bounds, bounds[1:])):
-        raise ConfigError(f"simulation sessions {tuple(sessions)!r}: each session must open after the previous closes")
     return np.stack(opens), np.array(lengths, dtype=np.int64)
 
 
