@@ -76,6 +76,13 @@ def test_shipped_profiles_load():
         market = load_market(name)
         assert market["_sessions"] and ZoneInfo(market["timezone"])
     assert len(load_market("kestrel")["_sessions"]) == 2
+    gullwing = load_market("gullwing")
+    assert len(gullwing["_sessions"]) == 2 and gullwing["tick_size"] == 0.05 and gullwing["currency"] == "ZZG"
+    # an invented calendar: a handful of weekdays in each of the demo's sample years, sorted
+    holidays = gullwing["_holidays"]
+    assert list(holidays) == sorted(holidays) and all(d.weekday() < 5 for d in holidays)
+    assert {d.year for d in holidays} == {2021, 2022} and min(sum(d.year == y for d in holidays) for y in (2021, 2022)) >= 4
+    assert load_market("demo")["_holidays"] == ()
 
 
 @pytest.mark.parametrize(
@@ -88,6 +95,11 @@ def test_shipped_profiles_load():
         ({"half_days": {"2021-13-01": "12:00"}}, "is not a date"),
         ({"tick_size": -1}, "tick_size"),
         ({"lunch": True}, "unknown key 'lunch'"),
+        ({"holidays": "2021-03-10"}, "holidays: expected a list"),
+        ({"holidays": ["2021-02-30"]}, "holidays[0]: '2021-02-30' is not a date"),
+        ({"holidays": ["2021-03-10", "2021-03-13"]}, "holidays[1]: 2021-03-13 is a Saturday"),
+        ({"holidays": ["2021-03-10", "2021-03-10"]}, "2021-03-10 is listed twice"),
+        ({"holidays": ["2021-03-10"], "half_days": {"2021-03-10": "12:00"}}, "both a holiday and a half day"),
     ],
 )
 def test_bad_profiles_are_refused_naming_file_and_key(tmp_path, change, needle):

@@ -38,6 +38,7 @@ def _simulate(args: argparse.Namespace) -> int:
         n_securities=args.securities, n_months=args.months, seed=args.seed, start=args.start,
         bad_row_share=args.bad_row_share, liquidity_shock_sd=args.liquidity_shock_sd,
         liquidity_beta_mean=args.liquidity_beta_mean, liquidity_beta_sd=args.liquidity_beta_sd,
+        second_securities=args.second_market_securities, second_profile=args.second_market_profile,
     )
     paths = write_market(simulate_market(spec), args.out)
     for name, path in sorted(paths.items()):
@@ -285,6 +286,11 @@ def parser() -> argparse.ArgumentParser:
                    help="mean return loading on the planted liquidity innovation")
     p.add_argument("--liquidity-beta-sd", type=float, default=0.3,
                    help="cross-sectional sd of that loading")
+    p.add_argument("--second-market-securities", type=int, default=0, metavar="N",
+                   help="add a second market of N securities on its own clock, holidays, tick and currency, "
+                        "with fx.parquet and a market column in securities (default 0: one market)")
+    p.add_argument("--second-market-profile", default="gullwing", metavar="PROFILE",
+                   help="market profile (shipped name or path) the second market trades on (default gullwing)")
     p.add_argument("--out", required=True, help="folder to write the market's files into")
 
     p = sub.add_parser("measures", help="list the registered measures with their sources")

@@ -157,3 +157,14 @@ def load_market(name_or_path: str) -> dict:
     from liqpanel.markets import check_market  # imports polars: not before the engine is pinned
 
     return check_market(market, path)
+
+
+def shares_source(config: dict) -> dict | None:
+    """The first ``inputs.characteristics`` entry listing ``shares_out`` among its variables, or None.
+
+    On the trade path it gives the daily table its shares outstanding (for
+    ``turnover`` and ``liu_lm``, ``liqpanel.stages.daily_month``); a daily
+    file brings its own column instead.
+    """
+    entries = (config.get("inputs") or {}).get("characteristics") or []
+    return next((c for c in entries if "shares_out" in (c.get("variables") or [])), None)

@@ -9,6 +9,8 @@ A profile is a small YAML file in ``liqpanel/market_profiles/`` (or any path):
       - ["12:55", "15:10"]    # a midday break between the two
     half_days:                # optional: local date -> early close
       "2021-11-16": "10:40"
+    holidays:                 # optional: local weekdays the market is closed
+      - 2021-11-17
     tick_size: 0.01           # optional price grid, currency units
     currency: ZZK             # optional currency code (ISO 4217 private use: ZZA-ZZZ)
 
@@ -45,14 +47,14 @@ def parse_clock(text, *, where: str) -> time:
 
 
 def check_market(market: dict, path: str | Path) -> dict:
-    """Validate a loaded profile; return it with parsed ``_sessions`` and ``_half_days``.
+    """Validate a loaded profile; return it with parsed ``_sessions``, ``_half_days`` and ``_holidays``.
 
     Raises ConfigError naming the profile file, the key and what was expected.
     """
     where = f"market profile {path}"
     if not isinstance(market, dict):
         raise ConfigError(f"{where}: expected a mapping of keys to values")
-    allowed = {"name", "timezone", "sessions", "half_days", "tick_size", "currency"}
+    allowed = {"name", "timezone", "sessions", "half_days", "holidays", "tick_size", "currency"}
     unknown = sorted(set(market) - allowed)
     if unknown:
         raise ConfigError(f"{where}: unknown key '{unknown[0]}'; allowed keys: {', '.join(sorted(allowed))}")
@@ -81,10 +83,37 @@ def check_market(market: dict, path: str | Path) -> dict:
         except ValueError:
             raise ConfigError(f"{where}: half_days: {day!r} is not a date 'YYYY-MM-DD'") from None
         half_days[key] = parse_clock(close, where=f"{where}: half_days[{day}]")
+    holidays = _holidays(market.get("holidays"), where)
+    both = sorted(set(holidays) & set(half_days))
+    if both:
+        raise ConfigError(f"{where}: {both[0].isoformat()} is both a holiday and a half day; keep one")
     tick = market.get("tick_size")
     if tick is not None and not (isinstance(tick, (int, float)) and tick > 0):
         raise ConfigError(f"{where}: tick_size: expected a positive number or null, got {tick!r}")
-    return {**market, "_sessions": parsed, "_half_days": half_days}
+    return {**market, "_sessions": parsed, "_half_days": half_days, "_holidays": holidays}
+
+
+def _holidays(listed, where: str) -> tuple[date, ...]:
+    """The profile's closed days: a list of distinct ISO dates 'YYYY-MM-DD', each a weekday, sorted."""
+    if listed is None:
+        return ()
+    if not isinstance(listed, list):
+        raise ConfigError(f"{where}: holidays: expected a list of dates 'YYYY-MM-DD', got {listed!r}")
+    days = []
+    for k, day in enumerate(listed):
+        try:
+            # YAML reads an unquoted 2021-03-10 as a date already
+            parsed = day if isinstance(day, date) and not isinstance(day, datetime) else date.fromisoformat(str(day))
+        except ValueError:
+            raise ConfigError(f"{where}: holidays[{k}]: {day!r} is not a date 'YYYY-MM-DD'") from None
+        if parsed.weekday() >= 5:
+            raise ConfigError(f"{where}: holidays[{k}]: {parsed.isoformat()} is a {parsed:%A}; weekends are "
+                              "closed already, list only weekdays")
+        days.append(parsed)
+    repeated = sorted({d for d in days if days.count(d) > 1})
+    if repeated:
+        raise ConfigError(f"{where}: holidays: {repeated[0].isoformat()} is listed twice")
+    return tuple(sorted(days))
 
 
 def sessions_of(market: dict) -> list[tuple[time, time]]:

@@ -436,6 +436,10 @@ def daily_columns(config: dict, sources: list[InputSource]) -> tuple[set[str], s
                 names |= {daily.ours(n) for n in header}
         return names, f"the daily file {inputs['daily']}"
     names = set(DAILY) | DERIVED_DAILY
+    from liqpanel.config import shares_source
+
+    if shares_source(config) is not None:  # the daily stage takes it from that characteristics entry
+        names.add("shares_out")
     if inputs.get("quotes"):
         names |= set(intraday_columns())
     else:
@@ -459,6 +463,9 @@ def measure_input_problems(config: dict, sources: list[InputSource]) -> list[Pro
                 hint = "; add `inputs: quotes:` or drop the measure"
             if "shares_out" in missing:
                 hint = "; supply shares outstanding as a daily-file column mapped to 'shares_out' under columns.daily"
+                if not (config.get("inputs") or {}).get("daily"):
+                    hint = ("; list shares_out among the variables of an inputs.characteristics entry (the daily "
+                            "stage takes each month's shares outstanding from it)")
             problems.append(Problem(f"measures.{name}", f"measure '{name}' needs daily column(s) {missing}, which "
                                     f"{origin} will not provide{hint}", column=missing[0]))
     return problems

@@ -118,6 +118,27 @@ a randomly chosen good trade and carries ``true_sign = 0``. Truth, returns
 and characteristics use good trades only; quotes exist at good trade times
 only.
 
+A second market (off by default: ``second_securities`` = 0). With
+``second_securities`` = k > 0, k more securities trade on the market profile
+``second_profile`` (default ``gullwing``, an invented exchange): its time
+zone, its sessions (a midday break carries no efficient-price variance:
+trading time joins the sessions, so the Roll identities hold as before), its
+open days (business days less the profile's ``holidays``: no trade and no
+quote on a closed day), its ``tick_size`` (quotes rounded outwards, trades
+at a quote, so every price is on the grid) and its currency (prices,
+capitalisations, dollar volumes). Each table then holds both markets, the
+securities gain ``market`` (``market_codes``, default HBR for the first
+market, GUL for the second), and ``fx`` holds invented daily rates of the
+second market's currency in the first's (date, currency, rate = units of
+the first market's currency per unit of ``currency``) on every open day of
+either market: log rate a random walk from ``fx_start`` with daily standard
+deviation ``fx_vol``. The second market's draws come from streams of their
+own (``[seed, 2]`` and, for the rates, ``[seed, 4217]``), so the first
+market's tables are byte-identical to those of the spec without it. With a
+tick the effective spread exceeds the model's 2c: rounding each quote
+outwards adds about one tick to ask - bid, i.e. tick / price to the
+proportional spread (the truth keeps the model's 2c).
+
 Reproducibility: one ``numpy.random.default_rng(seed)`` stream drives every
 draw; the same spec gives identical tables, and pinning a parameter
 (``half_spread``, ``daily_vol``, ``trades_per_day``) does not change the
@@ -222,6 +243,12 @@ class SimulationSpec:
     bm_persistence: float = 0.9  # yearly AR(1) coefficient of log book-to-market
     # planted bad rows, share of the trades table
     bad_row_share: float = 0.0
+    # a second market (off by default): its own securities, clock, holidays, tick and currency
+    second_securities: int = 0  # securities of the second market; 0 = one market only
+    second_profile: str = "gullwing"  # market profile (shipped name or path) the second market trades on
+    market_codes: tuple[str, str] = ("HBR", "GUL")  # the securities' `market` codes of the two markets
+    fx_start: float = 0.42  # units of the first market's currency per unit of the second's, first day
+    fx_vol: float = 0.003  # daily standard deviation of the log exchange rate
     # overrides used by recovery tests: when not None they pin the value for every security
     half_spread: float | None = None
     daily_vol: float | None = None
@@ -267,6 +294,17 @@ class SimulationSpec:
             raise bad("bad_row_share", "expected a share in [0, 0.5)")
         if self.tick is not None and not self.tick > 0:
             raise bad("tick", "expected a positive price increment or None")
+        if not isinstance(self.second_securities, (int, np.integer)) or self.second_securities < 0:
+            raise bad("second_securities", "expected a non-negative integer (0: one market only)")
+        if self.n_securities + self.second_securities > len(_HEADS) * len(_MIDS) * len(_TAILS) * len(_KINDS):
+            raise bad("second_securities", "more securities in the two markets than invented firm names")
+        codes = self.market_codes
+        if len(codes) != 2 or len(set(codes)) != 2 or not all(isinstance(c, str) and c for c in codes):
+            raise bad("market_codes", "expected two distinct non-empty codes")
+        if not self.fx_start > 0:
+            raise bad("fx_start", "expected a positive exchange rate")
+        if not self.fx_vol >= 0:
+            raise bad("fx_vol", "expected a non-negative daily volatility")
         if self.half_spread is not None and not 0 <= self.half_spread < 1:
             raise bad("half_spread", "expected a proportion in [0, 1)")
         if self.daily_vol is not None and not self.daily_vol >= 0:
@@ -287,6 +325,9 @@ class Market:
     - returns: security, month, ret
     - truth: security, month, half_spread, spread, sigma_u_daily, n_trades,
       n_days_traded, expected_ret
+    - fx (with a second market only): date, currency, rate (units of the
+      first market's currency per unit of ``currency``); the securities
+      then carry ``market``
     """
 
     trades: pl.DataFrame
@@ -295,10 +336,12 @@ class Market:
     characteristics: pl.DataFrame
     returns: pl.DataFrame
     truth: pl.DataFrame
+    fx: pl.DataFrame | None = None
     spec: SimulationSpec | None = field(default=None, compare=False)
 
     def tables(self) -> dict[str, pl.DataFrame]:
-        return {name: getattr(self, name) for name in TABLES}
+        tables = {name: getattr(self, name) for name in TABLES}
+        return tables if self.fx is None else {**tables, "fx": self.fx}
 
 
 # --------------------------------------------------------------------------
@@ -355,18 +398,33 @@ def _business_days(first: np.datetime64, end: np.datetime64) -> np.ndarray:
     return days[np.is_busday(days)]
 
 
-def _session_open_utc(days: np.ndarray, tz: str, session) -> tuple[np.ndarray, int]:
-    """UTC microseconds of each day's open, and the session length in microseconds."""
-    open_min, close_min = _session_minutes(session)
-    local = pl.Series("open", days.astype("datetime64[us]")) + timedelta(minutes=open_min)
-    try:
-        utc = local.dt.replace_time_zone(tz, ambiguous="raise", non_existent="raise").dt.convert_time_zone("UTC")
-    except Exception as exc:  # polars raises its own error types for unknown zones
-        raise ConfigError(
-            f"simulation parameters 'tz' = {tz!r}, 'session' = {tuple(session)!r}: the session open is not a "
-            f"valid local time on every business day ({exc})"
-        ) from None
-    return utc.dt.epoch("us").to_numpy(), (close_min - open_min) * _MICROS_PER_MINUTE
+def _sessions_utc(days: np.ndarray, tz: str, sessions) -> tuple[np.ndarray, np.ndarray]:
+    """UTC microseconds of each session's open on each day, shape (sessions, days), and each session's length."""
+    bounds = [_session_minutes(session) for session in sessions]
+    if any(later[0] <= earlier[1] for earlier, later in zip(bounds, bounds[1:])):
+        raise ConfigError(f"simulation sessions {tuple(sessions)!r}: each session must open after the previous closes")
+    opens, lengths = [], []
+    for session, (open_min, close_min) in zip(sessions, bounds):
+        local = pl.Series("open", days.astype("datetime64[us]")) + timedelta(minutes=open_min)
+        try:
+            utc = local.dt.replace_time_zone(tz, ambiguous="raise", non_existent="raise").dt.convert_time_zone("UTC")
+        except Exception as exc:  # polars raises its own error types for unknown zones
+            raise ConfigError(
+                f"simulation parameters 'tz' = {tz!r}, 'session' = {tuple(session)!r}: the session open is not a "
+                f"valid local time on every business day ({exc})"
+            ) from None
+        opens.append(utc.dt.epoch("us").to_numpy())
+        lengths.append((close_min - open_min) * _MICROS_PER_MINUTE)
+    return np.stack(opens), np.array(lengths, dtype=np.int64)
+
+
+def _wall_clock(opens: np.ndarray, lengths: np.ndarray, day: np.ndarray, offset: np.ndarray) -> np.ndarray:
+    """UTC microseconds of an ``offset`` into the day's trading time (the sessions joined, breaks left out)."""
+    if len(lengths) == 1:
+        return opens[0][day] + offset
+    starts = np.cumsum(lengths) - lengths
+    k = np.searchsorted(starts, offset, side="right") - 1
+    return opens[k, day] + (offset - starts[k])
 
 
 # --------------------------------------------------------------------------
@@ -397,7 +455,7 @@ class _Trading:
     tick: float | None
     bad_row_share: float
     tz: str
-    session: tuple[str, str]
+    sessions: tuple[tuple[str, str], ...]  # local (open, close) in order; the gaps between them are breaks
     lot: float
     trade_lots: float
     quote_lots: float
@@ -426,7 +484,9 @@ def _ffill_columns(values: np.ndarray) -> np.ndarray:
 def _run(rng: np.random.Generator, pop: _Population, cal: _Calendar, how: _Trading, spec=None) -> Market:
     """Simulate the market of ``pop`` over ``cal``: the one code path of this module."""
     n, n_days, n_months = len(pop.security), len(cal.days), len(cal.months)
-    open_us, session_us = _session_open_utc(cal.days, how.tz, how.session)
+    opens, lengths = _sessions_utc(cal.days, how.tz, how.sessions)
+    open_us, session_us = opens[0], int(lengths.sum())
+    close_us = opens[-1] + lengths[-1]
     days_in_month = np.bincount(cal.month_of_day, minlength=n_months)
 
     # daily efficient log returns: overnight jump and session part, factor + idiosyncratic
@@ -479,9 +539,9 @@ def _run(rng: np.random.Generator, pop: _Population, cal: _Calendar, how: _Tradi
     price = np.where(sign > 0, ask, bid)
     size = how.lot * rng.geometric(1.0 / how.trade_lots, n_trades).astype(np.float64)
     depth = how.lot * rng.geometric(1.0 / how.quote_lots, (2, n_trades)).astype(np.float64)
-    ts = open_us[day] + offset
+    ts = _wall_clock(opens, lengths, day, offset)
 
-    trades = _trades_frame(rng, pop.security, sec, ts, price, size, sign, open_us, day, session_us, how)
+    trades = _trades_frame(rng, pop.security, sec, ts, price, size, sign, open_us, close_us, day, how)
     quotes = pl.DataFrame(
         {
             "security": _names(pop.security, sec),
@@ -573,7 +633,7 @@ def _utc(micros: np.ndarray) -> pl.Series:
     return pl.Series("ts", micros, dtype=pl.Int64).cast(pl.Datetime("us")).dt.replace_time_zone("UTC").cast(UTC)
 
 
-def _trades_frame(rng, security, sec, ts, price, size, sign, open_us, day, session_us, how: _Trading) -> pl.DataFrame:
+def _trades_frame(rng, security, sec, ts, price, size, sign, open_us, close_us, day, how: _Trading) -> pl.DataFrame:
     """Good trades plus the planted bad rows, sorted by security and time (good row first on ties)."""
     n_good = len(ts)
     n_bad = int(round(how.bad_row_share * n_good / (1.0 - how.bad_row_share))) if n_good else 0
@@ -589,8 +649,7 @@ def _trades_frame(rng, security, sec, ts, price, size, sign, open_us, day, sessi
     before = rng.integers(30, 90, n_bad) * _MICROS_PER_MINUTE + rng.integers(0, _MICROS_PER_MINUTE, n_bad)
     after = rng.integers(30, 120, n_bad) * _MICROS_PER_MINUTE + rng.integers(0, _MICROS_PER_MINUTE, n_bad)
     early = rng.integers(0, 2, n_bad) == 0
-    session_open = open_us[day[source]]
-    moved = np.where(early, session_open - before, session_open + session_us + after)
+    moved = np.where(early, open_us[day[source]] - before, close_us[day[source]] + after)
     bad_ts[outside] = moved[outside]
     order = np.lexsort((np.concatenate((np.arange(n_good), n_good + np.arange(n_bad))),
                         np.concatenate((ts, bad_ts)),
@@ -616,7 +675,7 @@ def security_code(letters: str) -> str:
     return SECURITY_PREFIX + letters
 
 
-def _tickers(firm_names: np.ndarray) -> np.ndarray:
+def _tickers(firm_names: np.ndarray, taken: set[str] | frozenset = frozenset()) -> np.ndarray:
     """Distinct identifiers abbreviating the invented names, e.g. ``sim-BRLN``.
 
     The letters are the stem's first letter followed by its next consonants
@@ -625,8 +684,9 @@ def _tickers(firm_names: np.ndarray) -> np.ndarray:
     their last one replaced by the kind's initial, then by A, B, C, ... until
     free. Every identifier carries ``SECURITY_PREFIX`` (see
     :func:`security_code`); the prefix does not change the sort order.
+    ``taken``: identifiers already in use (another market's).
     """
-    taken: set[str] = set()
+    taken = {code.removeprefix(SECURITY_PREFIX) for code in taken}
     out = []
     for name in firm_names.tolist():
         stem, kind = name.upper().split(" ", 1)
@@ -670,10 +730,17 @@ def _firm_names(rng: np.random.Generator, n: int) -> np.ndarray:
 # public entry points
 
 
-def _population(rng: np.random.Generator, spec: SimulationSpec, cal: _Calendar) -> _Population:
+def _population(
+    rng: np.random.Generator, spec: SimulationSpec, cal: _Calendar, taken: pl.DataFrame | None = None
+) -> _Population:
+    """The securities of one market; ``taken``: securities (firm_name, security) of another market to avoid."""
     n, n_months = spec.n_securities, len(cal.months)
-    firms = _firm_names(rng, n)
-    tickers = _tickers(firms)
+    if taken is None:
+        firms = _firm_names(rng, n)
+    else:
+        firms = _firm_names(rng, n + taken.height)
+        firms = firms[~np.isin(firms, taken["firm_name"].to_numpy())][:n]
+    tickers = _tickers(firms, taken=set() if taken is None else set(taken["security"].to_list()))
     log_cap = rng.normal(np.log(spec.size_median), spec.size_dispersion, n)
     z = (log_cap - np.log(spec.size_median)) / spec.size_dispersion if spec.size_dispersion > 0 else np.zeros(n)
     lo, hi = np.log(spec.price_range)
@@ -790,12 +857,99 @@ def simulate_market(spec: SimulationSpec | None = None, **overrides) -> Market:
         tick=spec.tick,
         bad_row_share=spec.bad_row_share,
         tz=spec.tz,
-        session=tuple(spec.session),
+        sessions=(tuple(spec.session),),
         lot=spec.lot,
         trade_lots=spec.trade_lots,
         quote_lots=spec.quote_lots,
     )
-    return _run(rng, pop, cal, how, spec)
+    market = _run(rng, pop, cal, how, spec)
+    return _with_second_market(market, spec, cal) if spec.second_securities else market
+
+
+def second_market_profile(spec: SimulationSpec) -> dict:
+    """The checked market profile the second market trades on (``spec.second_profile``)."""
+    from liqpanel.config import load_market
+
+    profile = load_market(spec.second_profile)
+    if profile["_half_days"]:
+        raise ConfigError(f"simulation parameter 'second_profile' = {spec.second_profile!r}: the simulator does not "
+                          "model half days; use a profile without half_days")
+    if not profile.get("currency"):
+        raise ConfigError(f"simulation parameter 'second_profile' = {spec.second_profile!r}: the profile names no "
+                          "currency; the exchange rates need one (e.g. currency: ZZG)")
+    if any(t.second for session in profile["_sessions"] for t in session):
+        raise ConfigError(f"simulation parameter 'second_profile' = {spec.second_profile!r}: session times with "
+                          "seconds are not simulated; give them as 'HH:MM'")
+    return profile
+
+
+def _with_second_market(first: Market, spec: SimulationSpec, first_cal: _Calendar) -> Market:
+    """``first`` plus a second market of ``spec.second_securities`` securities on ``spec.second_profile``.
+
+    The second market has its own draws (a stream seeded by ``[seed, 2]``), so
+    the first market's tables are those of the spec without it. It trades on
+    the profile's time zone, sessions (a break between two sessions carries
+    no efficient-price variance: trading time joins the sessions) and open
+    days (business days less the profile's holidays), with prices on the
+    profile's tick grid; its prices, capitalisations and volumes are in the
+    profile's currency. The planted liquidity factor is common to both
+    markets (the same stream). The ``fx`` table holds the rate of the second
+    market's currency in the first's on every open day of either market.
+    """
+    profile = second_market_profile(spec)
+    holidays = np.array(profile["_holidays"], dtype="datetime64[D]")
+    days = first_cal.days[~np.isin(first_cal.days, holidays)]
+    cal = _calendar(days)
+    if len(cal.months) != len(first_cal.months):
+        raise ConfigError(f"simulation parameter 'second_profile' = {spec.second_profile!r}: its holidays close a "
+                          "whole month of the sample")
+    rng = np.random.default_rng([spec.seed, 2])
+    own = dataclasses.replace(spec, n_securities=spec.second_securities)
+    pop = _population(rng, own, cal, taken=first.securities.select("firm_name", "security"))
+    how = _Trading(
+        market_vol=spec.market_vol,
+        overnight_share=spec.overnight_share,
+        tick=profile.get("tick_size"),
+        bad_row_share=spec.bad_row_share,
+        tz=profile["timezone"],
+        sessions=tuple((f"{o:%H:%M}", f"{c:%H:%M}") for o, c in profile["_sessions"]),
+        lot=spec.lot,
+        trade_lots=spec.trade_lots,
+        quote_lots=spec.quote_lots,
+    )
+    second = _run(rng, pop, cal, how)
+    codes = spec.market_codes
+
+    def joined(name: str, key: list[str]) -> pl.DataFrame:
+        a, b = getattr(first, name), getattr(second, name)
+        if name == "securities":
+            a, b = (t.with_columns(pl.lit(code).alias("market")) for t, code in zip((a, b), codes))
+        # securities differ between the markets: a stable sort on the key keeps each security's own order
+        return pl.concat([a, b]).sort(key, maintain_order=True)
+
+    return Market(
+        trades=joined("trades", ["security"]),
+        quotes=joined("quotes", ["security"]),
+        securities=joined("securities", ["security"]),
+        characteristics=joined("characteristics", ["security", "date"]),
+        returns=joined("returns", ["security", "month"]),
+        truth=joined("truth", ["security", "month"]),
+        fx=_exchange_rates(spec, np.union1d(first_cal.days, cal.days), profile["currency"]),
+        spec=spec,
+    )
+
+
+def _exchange_rates(spec: SimulationSpec, days: np.ndarray, currency: str) -> pl.DataFrame:
+    """Invented daily rates (first market's currency per unit of ``currency``): a random walk in logs.
+
+    log rate_d = log ``fx_start`` + sum of N(0, ``fx_vol``^2) steps, one per
+    day of ``days`` (every open day of either market), from a stream of its
+    own seeded by ``[seed, 4217]``; rounded to 6 decimals, as rates are quoted.
+    """
+    steps = np.random.default_rng([spec.seed, 4217]).standard_normal(len(days)) * spec.fx_vol
+    steps[0] = 0.0
+    rate = np.round(spec.fx_start * np.exp(np.cumsum(steps)), 6)
+    return pl.DataFrame({"date": days, "currency": currency, "rate": rate}).with_columns(pl.col("date").cast(pl.Date))
 
 
 def simulate_security_months(
@@ -869,7 +1023,7 @@ def simulate_security_months(
         tick=tick,
         bad_row_share=0.0,
         tz=tz,
-        session=tuple(session),
+        sessions=(tuple(session),),
         lot=100.0,
         trade_lots=3.0,
         quote_lots=5.0,
@@ -883,15 +1037,40 @@ def market_factor_returns(market: Market) -> pl.DataFrame:
     ``mkt`` is the value-weighted average of the securities' monthly returns,
     weighted by market capitalisation at the end of the previous month, dated
     by the month in which it is earned (the way factor returns are usually
-    published). It lets the demo estimate factor alphas.
+    published). It lets the demo estimate factor alphas. With a second
+    market (``market.fx``), every return and weight is first converted into
+    the first market's currency at the month-end rates: a return becomes
+    (1 + r) x rate_t / rate_t-1 - 1.
     """
     caps = market.characteristics.select(
         "security",
         pl.col("date").dt.truncate("1mo").dt.offset_by("1mo").alias("month"),
         pl.col("market_cap").alias("_weight"),
     )
+    returns = market.returns
+    if market.fx is not None:
+        # the month-end rate of each security's currency (1 for the first market's), this month and the last
+        rates = (
+            market.characteristics.select("security", "date")
+            .join(market.securities.select("security", "market"), on="security", how="left")
+            .join(market.fx.select("date", "rate"), on="date", how="left")
+            .select(
+                "security",
+                pl.col("date").dt.truncate("1mo").alias("month"),
+                pl.when(pl.col("market") == market.spec.market_codes[0]).then(1.0).otherwise(pl.col("rate"))
+                .alias("_rate"),
+            )
+            .sort("security", "month")
+            .with_columns(pl.col("_rate").shift(1).over("security").alias("_previous_rate"))
+        )
+        returns = returns.join(rates, on=["security", "month"], how="left").select(
+            "security", "month", ((1.0 + pl.col("ret")) * pl.col("_rate") / pl.col("_previous_rate") - 1.0).alias("ret")
+        )
+        caps = caps.join(
+            rates.select("security", pl.col("month").dt.offset_by("1mo"), "_rate"), on=["security", "month"]
+        ).select("security", "month", pl.col("_weight") * pl.col("_rate"))
     return (
-        market.returns.join(caps, on=["security", "month"], how="inner")
+        returns.join(caps, on=["security", "month"], how="inner")
         .drop_nulls(["ret", "_weight"])
         .group_by("month")
         .agg(((pl.col("ret") * pl.col("_weight")).sum() / pl.col("_weight").sum()).alias("mkt"))
@@ -912,18 +1091,29 @@ def daily_example(market: Market, timezone: str | None = None) -> pl.DataFrame:
 
     Built from the good trades by :func:`liqpanel.bars.daily_bars`, then
     renamed to the invented vendor names in ``DAILY_EXAMPLE_COLUMNS`` and
-    with ``shares_out`` renamed ``shares_outstanding``.
+    with ``shares_out`` renamed ``shares_outstanding``. With a second market
+    each market's days are its own local days (its profile's time zone) and
+    the file gains ``listing`` (the security's market code).
     """
     from liqpanel.bars import daily_bars
 
     tz = timezone or (market.spec.tz if market.spec is not None else "America/New_York")
     trades = market.trades.lazy().filter(pl.col("true_sign") != 0)
-    daily = daily_bars(trades, timezone=tz).join(
-        market.securities.lazy().select("security", "shares_out"), on="security", how="left"
-    )
+    extra, names = [], {**DAILY_EXAMPLE_COLUMNS, "shares_out": "shares_outstanding"}
+    if market.fx is None:
+        daily = daily_bars(trades, timezone=tz)
+    else:
+        zones = dict(zip(market.spec.market_codes, (tz, second_market_profile(market.spec)["timezone"])))
+        daily = pl.concat([
+            daily_bars(trades.join(market.securities.lazy().filter(pl.col("market") == code).select("security"),
+                                   on="security", how="semi"), timezone=zone)
+            for code, zone in zones.items()
+        ])
+        extra, names = ["market"], {**names, "market": "listing"}
+    daily = daily.join(market.securities.lazy().select("security", "shares_out", *extra), on="security", how="left")
     return (
-        daily.select(*DAILY_EXAMPLE_COLUMNS, "shares_out")
-        .rename({**DAILY_EXAMPLE_COLUMNS, "shares_out": "shares_outstanding"})
+        daily.select(*DAILY_EXAMPLE_COLUMNS, "shares_out", *extra)
+        .rename(names)
         .sort("ticker", "trade_day")
         .collect()
     )

@@ -17,7 +17,7 @@ import polars as pl
 from liqpanel import bars as bars_mod
 from liqpanel import readers
 from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
-from liqpanel.config import load_market
+from liqpanel.config import load_market, shares_source
 from liqpanel.errors import InputError
 from liqpanel import ingest
 from liqpanel.io import write_parquet, write_text
@@ -135,7 +135,22 @@ def bars_month(clean_trades_path: str, out: str, config: dict | None = None, cle
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
     adjustments = _adjustments(config) if config is not None else None
-    write_parquet(bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments), out)
+    daily = bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments)
+    entry = shares_source(config) if config is not None else None
+    if entry is not None:
+        daily = _with_shares_out(daily, entry)
+    write_parquet(daily, out)
+
+
+def _with_shares_out(daily: pl.LazyFrame, entry: dict) -> pl.LazyFrame:
+    """Each day's shares outstanding: the entry's latest value public in the day's month (its ``lag_months``)."""
+    from liqpanel.panel import asof_characteristics, read_characteristics
+
+    source = read_characteristics(entry).lazy()
+    return asof_characteristics(
+        daily, source, variables=["shares_out"], lag_months=entry.get("lag_months", 0),
+        date_column=entry.get("date_column", "date"),
+    ).sort("security", "date")
 
 
 def trades_span(config: dict, months: list[str], paths: dict[str, list[str]]) -> None:

@@ -10,6 +10,7 @@ if FROM_TRADES:
                 bars=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", SPAN),
                 previous=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", month_before(SPAN)),
                 adjustments=expand_inputs("adjustments"),
+                shares=[stages.shares_source(CONFIG)["path"]] if stages.shares_source(CONFIG) else [],
             output:
                 month_files(f"{WORK}/daily/month={{month}}/daily.parquet", SPAN),
             params:
