@@ -200,3 +200,51 @@ def test_market_values_at_the_month_end_rate(tmp_path):
     late = panel.with_columns(pl.lit(dt(2021, 5, 1)).alias("month")).slice(2)
     with pytest.raises(InputError, match="no exchange rate for ZZQ on 2021-05-31"):
         marketset.panel_to_reporting(late, config, marketset.load_markets(config))
+
+
+def _daily_with_codes(tmp_path, codes: pl.DataFrame) -> dict:
+    """The daily example (an invented vendor layout) with a market-code column, in two markets."""
+    config = validate_config(yaml.safe_load(open("config/daily_example.yaml")))
+    daily = pl.read_csv("demo_data/daily_example.csv.gz", infer_schema_length=0).filter(
+        pl.col("trade_day").str.starts_with("2021-0"))
+    daily = daily.join(codes.rename({"security": "ticker"}), on="ticker", how="left")
+    daily.write_csv(tmp_path / "daily.csv")
+    config["inputs"].update(daily=str(tmp_path / "daily.csv"), fx=str(tmp_path / "fx.csv"))
+    config["sample"] = {"start": "2021-01", "end": "2021-06"}
+    del config["market"]
+    config["markets"] = {"column": "exch", "profiles": {"HBR": "demo", "QRW": _profile(tmp_path)},
+                         "reporting_currency": "ZZH"}
+    days = pl.date_range(pl.date(2020, 12, 1), pl.date(2021, 7, 31), eager=True)
+    pl.DataFrame({"Day": days, "Ccy": "ZZQ", "Px": RATE}).write_csv(tmp_path / "fx.csv")
+    config["columns"]["fx"] = {"Day": "date", "Ccy": "currency", "Px": "rate"}
+    return validate_config(config)
+
+
+def test_codes_from_the_daily_file(tmp_path):
+    # the market code may come from the daily file itself; dollar volume times the day's rate (common practice)
+    codes = _split(tmp_path)
+    config = _daily_with_codes(tmp_path, codes)
+    months = [f"2021-0{m}" for m in range(1, 7)]
+    outs = [str(tmp_path / f"daily-{m}.parquet") for m in months]
+    stages.daily_from_file(config, months, outs, str(tmp_path / "audit.parquet"), str(tmp_path / "splits.parquet"))
+    daily = pl.concat([pl.read_parquet(o) for o in outs])
+    vendor = pl.read_csv("demo_data/daily_example.csv.gz", infer_schema_length=0).select(
+        pl.col("ticker").alias("security"), pl.col("trade_day").str.to_date().alias("date"),
+        pl.col("turnover_ccy").cast(pl.Float64).alias("raw"))
+    got = daily.join(vendor, on=["security", "date"]).join(codes.rename({"exch": "_c"}), on="security")
+    assert got.height == daily.height > 0
+    assert (got["market"] == got["_c"]).all()
+    factor = np.where(got["market"].to_numpy() == "QRW", RATE, 1.0)
+    np.testing.assert_allclose(got["dollar_volume"].to_numpy(), got["raw"].to_numpy() * factor, rtol=1e-12)
+
+
+def test_two_codes_for_one_security_in_the_daily_file(tmp_path):
+    codes = _split(tmp_path)
+    config = _daily_with_codes(tmp_path, codes)
+    daily = pl.read_csv(tmp_path / "daily.csv", infer_schema_length=0)
+    first = daily.item(0, "ticker")
+    daily.with_columns(pl.when((pl.col("ticker") == first) & (pl.col("trade_day") == "2021-03-01"))
+                       .then(pl.lit("QRW")).otherwise(pl.col("exch")).alias("exch")).write_csv(tmp_path / "daily.csv")
+    with pytest.raises(InputError, match=rf"daily\.csv: column 'exch' \(market\), data row \d+ .*value 'QRW': "
+                                         rf"security '{first}' has two market codes \(HBR, QRW\)"):
+        stages.check_inputs(config)

@@ -71,11 +71,13 @@ def load_markets(config: dict) -> dict:
 
 
 def securities_layout(config: dict) -> ingest.Layout:
-    """inputs.securities with the user's mapping, and ``markets.column`` read as our ``market``."""
-    if not config["inputs"].get("securities"):
+    """Where the market codes are: inputs.securities, else the daily file, with the user's mapping and
+    ``markets.column`` read as our ``market``."""
+    inputs = config["inputs"]
+    if not inputs.get("securities") and not inputs.get("daily"):
         raise ConfigError("`markets:` needs `inputs.securities`, a file giving each security's market code "
-                          f"in the column `{config['markets']['column']}`")
-    layout = ingest.layout_of(config, "securities")
+                          f"in the column `{config['markets']['column']}` (or a daily file with that column)")
+    layout = ingest.layout_of(config, "securities" if inputs.get("securities") else "daily")
     column = config["markets"]["column"]
     mapping = {k: v for k, v in layout.mapping.items() if v != MARKET}
     mapping[column] = MARKET
@@ -86,8 +88,10 @@ def securities_layout(config: dict) -> ingest.Layout:
 def read_securities(config: dict, n_rows: int | None = None) -> pl.DataFrame:
     """``security``, ``market``: one row per security, every code one of ``markets.profiles``.
 
-    A missing or unknown code stops the run naming the file, the user's
-    column, the data row and the value.
+    From inputs.securities (one row per security), else from the daily
+    file's column (one code per security on all its rows). A missing or
+    unknown code, or a security with two codes, stops the run naming the
+    file, the user's column, the data row and the value.
     """
     layout = securities_layout(config)
     frame, files = ingest.read_frame(layout, SECURITIES_SPEC, n_rows=n_rows)
@@ -107,7 +111,16 @@ def read_securities(config: dict, n_rows: int | None = None) -> pl.DataFrame:
                     f"{bad.height} row{'s' if bad.height > 1 else ''} like this")
             raise ingest.error(layout, what, file=files[first["_file"]], column=column, row=first["_row"] + 1,
                                value=first[column])
-    if n_rows is None:
+    if layout.kind == "daily":  # one code per security over all its days
+        frame = frame.sort("_file", "_row").unique(["security", MARKET], keep="first", maintain_order=True)
+        second = frame.filter(pl.col("security").is_duplicated()).filter(pl.col("security").is_last_distinct())
+        if second.height:
+            row = second.row(0, named=True)
+            codes = frame.filter(pl.col("security") == row["security"]).get_column(MARKET).to_list()
+            raise ingest.error(layout, f"security {row['security']!r} has two market codes ({', '.join(codes)}); "
+                               "one market per security", file=files[row["_file"]], column=MARKET,
+                               row=row["_row"] + 1, value=row[MARKET])
+    elif n_rows is None:
         ingest.check_unique(frame, layout, files, ("security",))
     return frame.select("security", MARKET).sort("security")
 

@@ -639,14 +639,15 @@ def several_markets_problems(config: dict) -> list[Problem]:
         elif str(profile["currency"]) != str(reporting):
             foreign[code] = str(profile["currency"])
     inputs = config["inputs"]
-    if not inputs.get("securities"):
+    listing = inputs.get("securities") or inputs.get("daily")
+    if not listing:
         problems.append(Problem("inputs.securities", "`markets:` needs a securities file giving each security's "
-                                f"market code in the column '{spec['column']}'"))
-    elif _files(inputs["securities"]):
-        try:
-            marketset.read_securities(config)
+                                f"market code in the column '{spec['column']}' (or a daily file with it)"))
+    elif _files(listing):
+        try:  # a securities file whole; a daily file's first rows, as the other sample checks
+            marketset.read_securities(config, None if inputs.get("securities") else SAMPLE_ROWS)
         except LiqpanelError as exc:
-            problems.append(Problem(getattr(exc, "path", None) or inputs["securities"], _message_of(exc),
+            problems.append(Problem(getattr(exc, "path", None) or listing, _message_of(exc),
                                     column=spec["column"]))
     if foreign and not inputs.get("fx"):
         listed = ", ".join(f"{code} ({currency})" for code, currency in foreign.items())
