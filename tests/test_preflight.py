@@ -197,6 +197,15 @@ def test_fx_rate_that_is_not_positive(tmp_path, capsys):
           "positive finite number")
 
 
+def test_per_market_words_in_a_one_market_run(tmp_path, capsys):
+    config = trades_config(tmp_path)
+    config["models"]["sorts"][0]["breakpoints"] = "per_market"
+    check(tmp_path, capsys, config, "models.sorts[roll_terciles]: breakpoints: per_market needs several markets")
+    config = trades_config(tmp_path)
+    config["models"]["regressions"][0].update(estimator="pooled", covariance="clustered", cluster=["market"])
+    check(tmp_path, capsys, config, "models.regressions[roll_only]: market effects or clusters need several markets")
+
+
 # ------------------------------------------------------------ measures and their inputs
 
 

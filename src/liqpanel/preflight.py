@@ -600,18 +600,23 @@ def market_problems(config: dict) -> list[Problem]:
 
     if config.get("markets"):
         return several_markets_problems(config)
+    problems = []
     models = _dict(config.get("models"))
     for where, spec in [*((f"models.sorts[{s.get('name')}]", s) for s in models.get("sorts") or []
                           if isinstance(s, dict)), ("models.factor", _dict(models.get("factor")))]:
         if spec.get("breakpoints") == "per_market":
-            return [Problem(where, "breakpoints: per_market needs several markets (`markets:`); this run has one")]
-    if not isinstance(config.get("market"), str):
-        return []
-    try:
-        load_market(config["market"])
-    except LiqpanelError as exc:
-        return [Problem("market", str(exc))]
-    return []
+            problems.append(Problem(where, "breakpoints: per_market needs several markets (`markets:`); "
+                                    "this run has one"))
+    for spec in models.get("regressions") or []:
+        if isinstance(spec, dict) and "market" in [*_names(spec.get("effects")), *_names(spec.get("cluster"))]:
+            problems.append(Problem(f"models.regressions[{spec.get('name')}]", "market effects or clusters need "
+                                    "several markets (`markets:`); this run has one"))
+    if isinstance(config.get("market"), str):
+        try:
+            load_market(config["market"])
+        except LiqpanelError as exc:
+            problems.append(Problem("market", str(exc)))
+    return problems
 
 
 def several_markets_problems(config: dict) -> list[Problem]:
