@@ -248,3 +248,13 @@ def test_two_codes_for_one_security_in_the_daily_file(tmp_path):
     with pytest.raises(InputError, match=rf"daily\.csv: column 'exch' \(market\), data row \d+ .*value 'QRW': "
                                          rf"security '{first}' has two market codes \(HBR, QRW\)"):
         stages.check_inputs(config)
+
+
+def test_config_names_market_or_markets():
+    config = yaml.safe_load(open(DEMO))
+    del config["market"]
+    with pytest.raises(ConfigError, match="the top level: needs 'market' or 'markets'"):
+        validate_config(config)
+    config["markets"] = {"column": "exch", "profiles": {"HBR": "demo"}}
+    with pytest.raises(ConfigError, match="markets: 'reporting_currency' is a required property"):
+        validate_config(config)
