@@ -104,7 +104,7 @@ def test_two_markets_equal_the_single_market_runs(runs):
     # identity of the design (README "Several markets and currencies"): each security is measured on its own
     # market's profile, so a two-market run repeats each single-market run on that market's securities
     codes, both, singles, tmp_path = runs
-    scaled = {"amihud", "amivest", "ps_gamma"}  # in currency units: checked in the FX test
+    scaled = {"amihud", "amivest", "ps_gamma", "kyle_lambda"}  # in currency units: checked in the FX test
     for code, single in singles.items():
         mine = both.join(codes.filter(pl.col("exch") == code).rename({"exch": "_c"}), on="security").drop("_c")
         assert mine.height == single.height > 0
@@ -133,6 +133,10 @@ def test_fx_scales_amounts_by_the_rate(runs):
     np.testing.assert_allclose(mine["amihud"].to_numpy(), single["amihud"].to_numpy() / RATE, rtol=1e-12)
     np.testing.assert_allclose(mine["amivest"].to_numpy(), single["amivest"].to_numpy() * RATE, rtol=1e-12)
     np.testing.assert_allclose(mine["ps_gamma"].to_numpy(), single["ps_gamma"].to_numpy() / RATE, rtol=1e-6)
+    # Kyle (1985) lambda regresses a log midpoint change on signed sqrt(currency traded): / sqrt(rate)
+    np.testing.assert_allclose(mine["kyle_lambda"].to_numpy(), single["kyle_lambda"].to_numpy() / np.sqrt(RATE),
+                               rtol=1e-10)
+    assert np.isfinite(mine["amihud"].to_numpy()).sum() > 10 and np.isfinite(mine["kyle_lambda"].to_numpy()).sum() > 10
 
 
 def test_missing_fx_day_names_currency_and_date(tmp_path):

@@ -21,7 +21,8 @@ market's time zone, sessions and half days with no loop over securities.
 
 Currencies. Each profile names its ``currency``. Dollar volume (and so
 Amihud, Amivest and the other measures that divide by it) is converted on
-the daily table with the day's rate; market values in the panel
+the daily table with the day's rate, Kyle's lambda (per square root of a
+currency unit) divided by the rate's square root; market values in the panel
 (``markets.market_value``, default ``market_cap``) with the rate of the
 month's last day in the FX file on or before the month end; log market
 values (``markets.log_market_value``, default ``log_size``) are shifted by
@@ -251,7 +252,8 @@ def _missing_rate(frame: pl.DataFrame, path: str, what: str) -> None:
 
 
 def daily_to_reporting(daily: pl.LazyFrame, config: dict, market: dict) -> pl.LazyFrame:
-    """The daily table with ``market`` and ``dollar_volume`` in the reporting currency (the day's rate).
+    """The daily table with ``market``, ``dollar_volume`` and ``kyle_lambda`` in the reporting currency
+    (the day's rate).
 
     One profile: unchanged. A needed rate missing is an error naming the
     currency, the date and the FX file.
@@ -267,10 +269,11 @@ def daily_to_reporting(daily: pl.LazyFrame, config: dict, market: dict) -> pl.La
         maintain_order="left",
     ).collect()
     _missing_rate(frame.filter(pl.col("dollar_volume").is_not_null()), path, "a trading day's dollar volume")
-    return frame.lazy().with_columns(
-        pl.when(pl.col("_currency").is_null()).then(pl.col("dollar_volume"))
-        .otherwise(pl.col("dollar_volume") * pl.col("_rate")).alias("dollar_volume")
-    ).drop("_currency", "_rate")
+    rate = pl.when(pl.col("_currency").is_not_null()).then(pl.col("_rate")).otherwise(1.0)
+    # Kyle's lambda is a log midpoint change per square root of a currency unit traded (liqpanel.intraday)
+    scaled = [(pl.col("kyle_lambda") / rate.sqrt()).alias("kyle_lambda")] if "kyle_lambda" in frame.columns else []
+    return frame.lazy().with_columns((pl.col("dollar_volume") * rate).alias("dollar_volume"), *scaled).drop(
+        "_currency", "_rate")
 
 
 def panel_to_reporting(panel: pl.DataFrame, config: dict, market: dict) -> pl.DataFrame:
