@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import copy
+import re
 from datetime import date as dt
 
 import numpy as np
@@ -262,3 +263,14 @@ def test_config_names_market_or_markets():
     config["markets"] = {"column": "exch", "profiles": {"HBR": "demo"}}
     with pytest.raises(ConfigError, match="markets: 'reporting_currency' is a required property"):
         validate_config(config)
+
+
+@pytest.mark.parametrize("text, shown", [("NaN", "(missing)"), ("inf", "not finite"), ("0", "0.0")])
+def test_rate_that_is_not_a_positive_finite_number(tmp_path, text, shown):
+    from liqpanel import marketset
+
+    (tmp_path / "fx.csv").write_text(f"day,ccy,px\n2021-01-04,ZZQ,0.5\n2021-01-05,ZZQ,{text}\n")
+    config = {"inputs": {"fx": str(tmp_path / "fx.csv")}, "columns": {"fx": {"day": "date", "ccy": "currency",
+                                                                             "px": "rate"}}}
+    with pytest.raises(InputError, match=rf"fx\.csv: column 'px' \(rate\), data row 2 .*value '?{re.escape(shown)}'?:"):
+        marketset.read_fx(config)

@@ -221,7 +221,8 @@ def read_fx(config: dict) -> tuple[pl.DataFrame, ingest.Layout]:
         value = first["_value"] if first["_nonfinite"] is not None and first["_value"] is not None else first[column]
         raise ingest.error(layout, "an exchange rate must be a positive finite number, with a date and a currency",
                            file=files[first["_file"]], column=column, row=first["_row"] + 1,
-                           value="not finite" if first["_nonfinite"] is not None and value is None else value)
+                           value=value if value is not None else (
+                               "not finite" if first["_nonfinite"] is not None else "(missing)"))
     ingest.check_unique(frame, layout, files, ("date", "currency"))
     return frame.select("date", "currency", "rate").sort("currency", "date"), layout
 
