@@ -161,6 +161,51 @@ def test_unknown_market_profile(tmp_path, capsys):
     check(tmp_path, capsys, config, "market: market profile 'atlantis' not found", "known profiles: demo")
 
 
+def _two_markets(tmp_path: Path, codes: list[str]) -> dict:
+    """The demo run split over two markets by a securities file with the invented codes ``codes``."""
+    config = trades_config(tmp_path)
+    names = pl.read_parquet(ROOT / "demo_data" / "securities.parquet").get_column("security").sort().to_list()
+    (tmp_path / "listing.csv").write_text("ticker,exch\n" + "".join(
+        f"{name},{codes[i % len(codes)]}\n" for i, name in enumerate(names)))
+    del config["market"]
+    config["markets"] = {"column": "exch", "profiles": {"HBR": "demo", "KPX": "kestrel"}, "reporting_currency": "ZZH"}
+    config["inputs"]["securities"] = str(tmp_path / "listing.csv")
+    config["columns"] = {"securities": {"ticker": "security"}}
+    return config
+
+
+def test_unknown_market_code(tmp_path, capsys):
+    # the second data row's code is not a key of markets.profiles: file, the user's column, row, value
+    config = _two_markets(tmp_path, ["HBR", "XYZ"])
+    config["inputs"]["fx"] = None
+    check(tmp_path, capsys, config, "listing.csv", "column 'exch' (market), data row 2",
+          "value 'XYZ': market code not in `markets.profiles` (HBR, KPX)")
+
+
+def test_foreign_market_without_fx(tmp_path, capsys):
+    # kestrel's currency ZZK is not the reporting ZZH: its rates are needed
+    config = _two_markets(tmp_path, ["HBR", "KPX"])
+    check(tmp_path, capsys, config, "inputs.fx: markets KPX (ZZK) are not in the reporting currency ZZH")
+
+
+def test_fx_rate_that_is_not_positive(tmp_path, capsys):
+    config = _two_markets(tmp_path, ["HBR", "KPX"])
+    (tmp_path / "rates.csv").write_text("day,ccy,px\n2021-01-04,ZZK,0.5\n2021-01-05,ZZK,-1\n")
+    config["inputs"]["fx"] = str(tmp_path / "rates.csv")
+    config["columns"]["fx"] = {"day": "date", "ccy": "currency", "px": "rate"}
+    check(tmp_path, capsys, config, "rates.csv", "column 'px' (rate), data row 2", "value -1.0",
+          "positive finite number")
+
+
+def test_per_market_words_in_a_one_market_run(tmp_path, capsys):
+    config = trades_config(tmp_path)
+    config["models"]["sorts"][0]["breakpoints"] = "per_market"
+    check(tmp_path, capsys, config, "models.sorts[roll_terciles]: breakpoints: per_market needs several markets")
+    config = trades_config(tmp_path)
+    config["models"]["regressions"][0].update(estimator="pooled", covariance="clustered", cluster=["market"])
+    check(tmp_path, capsys, config, "models.regressions[roll_only]: market effects or clusters need several markets")
+
+
 # ------------------------------------------------------------ measures and their inputs
 
 

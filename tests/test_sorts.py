@@ -16,6 +16,7 @@ import statsmodels.api as sm
 
 from liqpanel.errors import InputError
 from liqpanel.models import double_sort, sort_portfolios
+from liqpanel.models.factor import liquidity_factor
 
 JAN = dt.date(2010, 1, 1)
 FEB = dt.date(2010, 2, 1)
@@ -291,3 +292,70 @@ def test_sort_input_errors_name_the_column():
         sort_portfolios(_hand_panel(), "log_size", breakpoint_universe="amihud")
     with pytest.raises(ValueError, match="n must be an integer of at least 2"):
         sort_portfolios(_hand_panel(), "amihud", n=1)
+
+
+def _two_market_panel(seed: int = 7) -> pl.DataFrame:
+    """A hand-built panel of two markets whose liquidity levels differ tenfold (invented)."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for month in (dt.date(2020, 1, 1), dt.date(2020, 2, 1), dt.date(2020, 3, 1)):
+        for market, scale, count in (("AAA", 0.01, 13), ("BBB", 0.1, 17)):
+            for i in range(count):
+                rows.append({"security": f"{market}-{i:02d}", "month": month, "market": market,
+                             "spread": scale * rng.uniform(0.5, 1.5), "ret_next": rng.normal(0.0, 0.05)})
+    return pl.DataFrame(rows)
+
+
+def test_per_market_breakpoints_are_each_markets_quantiles():
+    # numpy.quantile (linear interpolation, numpy's default method) within each market and month
+    panel = _two_market_panel()
+    res = sort_portfolios(panel, on="spread", n=3, min_securities=1, breakpoints="per_market")
+    for (month, market), group in panel.group_by("month", "market"):
+        values = group.get_column("spread").to_numpy()
+        row = res.breakpoints.filter((pl.col("month") == month) & (pl.col("market") == market))
+        assert row.height == 1
+        np.testing.assert_allclose([row.item(0, "breakpoint_1"), row.item(0, "breakpoint_2")],
+                                   np.quantile(values, [1 / 3, 2 / 3]), rtol=1e-12)
+    # each market's securities fill all three portfolios; pooled, the liquid market sits in portfolio 1
+    assert res.nobs == panel.height
+    pooled = sort_portfolios(panel, on="spread", n=3, min_securities=1)
+    assert pooled.breakpoints.columns[:2] == ["month", "n_universe"]
+    np.testing.assert_allclose(
+        pooled.breakpoints.filter(pl.col("month") == dt.date(2020, 1, 1)).select("breakpoint_1", "breakpoint_2").row(0),
+        np.quantile(panel.filter(pl.col("month") == dt.date(2020, 1, 1))["spread"].to_numpy(), [1 / 3, 2 / 3]),
+        rtol=1e-12)
+
+
+def test_per_market_portfolio_returns_pool_the_markets():
+    # the portfolio-k return pools both markets' members of k: equal-weighted mean by hand (common practice)
+    panel = _two_market_panel(11)
+    res = sort_portfolios(panel, on="spread", n=3, min_securities=1, breakpoints="per_market")
+    bps = res.breakpoints
+    by_hand = (
+        panel.join(bps, on=["month", "market"])
+        .with_columns((1 + (pl.col("spread") > pl.col("breakpoint_1")).cast(pl.Int32)
+                       + (pl.col("spread") > pl.col("breakpoint_2")).cast(pl.Int32)).alias("portfolio"))
+        .group_by("month", "portfolio").agg(pl.col("ret_next").mean().alias("expected"), pl.len().alias("n"))
+    )
+    got = res.returns.join(by_hand, on=["month", "portfolio"])
+    assert got.height == 9
+    np.testing.assert_allclose(got["ret"].to_numpy(), got["expected"].to_numpy(), rtol=1e-12)
+    assert got["n_securities"].to_list() == got["n"].cast(pl.Int64).to_list()
+
+
+def test_per_market_factor_follows():
+    # the liquidity factor's double sort takes the same option (Fama & French 1993 construction, per market)
+    panel = _two_market_panel(3)
+    panel = panel.with_columns(pl.Series("log_size", np.random.default_rng(5).normal(20.0, 1.0, panel.height)))
+    pooled = liquidity_factor(panel, measure="spread", n_size=2, n_liq=2, min_securities=1)
+    within = liquidity_factor(panel, measure="spread", n_size=2, n_liq=2, min_securities=1, breakpoints="per_market")
+    assert pooled.height == within.height == 3
+    assert not np.allclose(pooled["factor_ret"].to_numpy(), within["factor_ret"].to_numpy())
+    expected = double_sort(panel, first="log_size", second="spread", n1=2, n2=2, min_securities=1,
+                           breakpoints="per_market").hml_returns
+    np.testing.assert_allclose(within["factor_ret"].to_numpy(), expected["ret"].to_numpy(), rtol=1e-12)
+
+
+def test_per_market_without_a_market_column():
+    with pytest.raises(InputError, match="breakpoints per market need the panel's 'market' column"):
+        sort_portfolios(_two_market_panel().drop("market"), on="spread", n=3, breakpoints="per_market")

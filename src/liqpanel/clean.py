@@ -61,7 +61,7 @@ import polars as pl
 
 from liqpanel.errors import ConfigError
 from liqpanel.intraday import BY, prevailing_quotes
-from liqpanel.markets import local_clock, session_index
+from liqpanel.marketset import attach, local_clock, session_index
 from liqpanel.readers import HELPER_COLUMNS
 
 TRADE_RULES = (
@@ -101,7 +101,7 @@ def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[s
     partition, rows after it to the last, so every row lands in one partition.
     """
     first, last = sample
-    frame = _with_helpers(frame).filter(_near_month(month, first, last)).collect()
+    frame = attach(_with_helpers(frame).filter(_near_month(month, first, last)), market).collect()
     # the rows' own first and last instants bound the local clock's offsets: a month's
     # window, or more in the first and last partitions (liqpanel.markets.local_clock)
     utc = pl.col("ts").dt.convert_time_zone("UTC")

@@ -43,6 +43,9 @@ def _message(error: "jsonschema.ValidationError") -> str:
         return f"unknown key '{key}' under {where}; allowed keys there: {', '.join(allowed)}"
     if error.validator == "required":
         return f"{where}: {error.message}"
+    if error.validator == "anyOf" and all(set(option) == {"required"} for option in error.validator_value):
+        names = " or ".join(f"'{option['required'][0]}'" for option in error.validator_value)
+        return f"{where}: needs {names}"
     if error.validator == "enum":
         return f"{where}: {error.instance!r} is not one of {error.validator_value}"
     if error.validator == "type":

@@ -56,7 +56,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.markets import local_clock, session_bound, session_index
+from liqpanel.marketset import attach, local_clock, session_bound, session_index
 from liqpanel.signing import trade_sign
 
 BY = ["security", "date"]
@@ -90,7 +90,7 @@ def with_local_date(frame: pl.LazyFrame, market: dict) -> pl.LazyFrame:
     """Add the local trading ``date`` when the frame lacks it."""
     if "date" in frame.collect_schema().names():
         return frame
-    return frame.with_columns(local_clock(pl.col("ts"), market)[0].alias("date"))
+    return attach(frame, market).with_columns(local_clock(pl.col("ts"), market)[0].alias("date"))
 
 
 def quote_at(
@@ -127,7 +127,7 @@ def trade_benchmarks(
     """Per trade: quote, midpoint, sign and the four spread measures (module docstring)."""
     if past_close not in PAST_CLOSE:
         raise ValueError(f"past_close must be one of {PAST_CLOSE}, got {past_close!r}")
-    trades, quotes = with_local_date(trades, market), with_local_date(quotes, market)
+    trades, quotes = attach(with_local_date(trades, market), market), with_local_date(quotes, market)
     day, clock = local_clock(pl.col("ts"), market)
     horizon = pl.duration(microseconds=round(horizon_minutes * 60e6))
     close = session_bound(market, session_index(market, clock, day), day, "close")
@@ -226,7 +226,7 @@ def realized_variance(
         raise ValueError(f"realized variance: interval_minutes must be positive, got {interval_minutes}")
     step_us = round(interval_minutes * 60e6)
     day, clock = local_clock(pl.col("ts"), market)
-    frame = prices.with_columns(day.alias("date"), session_index(market, clock, day).alias("_session")).filter(
+    frame = attach(prices, market).with_columns(day.alias("date"), session_index(market, clock, day).alias("_session")).filter(
         pl.col("_session").is_not_null() & pl.col("price").is_not_null() & (pl.col("price") > 0)
     )
     opens = session_bound(market, pl.col("_session"), pl.col("date"), "open")

@@ -48,10 +48,12 @@ REQUIRED: dict[str, tuple[str, ...]] = {
     "factors": ("month",),
     "adjustments": ("security", "date"),
     "truth": ("security", "month"),
+    "securities": ("security", "market"),
+    "fx": ("date", "currency", "rate"),
 }
 # the column of each input that holds its dates
 DATE_COLUMN = {"trades": "date", "quotes": "date", "daily": "date", "returns": "month", "factors": "month",
-               "adjustments": "date", "truth": "month"}
+               "adjustments": "date", "truth": "month", "securities": None, "fx": "date"}
 # the daily columns the workflow adds whatever the source
 DERIVED_DAILY = {"month", "dollar_volume", "n_trades", "ret", "mkt_ret", "from_previous_month"}
 PANEL_KEYS = {"security", "month", "n_days", "ret_next"}
@@ -329,19 +331,27 @@ def input_sources(config: dict) -> list[InputSource]:
     """Every input the config names, with its mapping and formats."""
     inputs, columns, formats = (_dict(config.get(k)) for k in ("inputs", "columns", "formats"))
     timezone = "UTC"
-    if isinstance(config.get("market"), str):
+    markets = _dict(config.get("markets"))
+    if isinstance(config.get("market"), str) or markets:
         from liqpanel.config import load_market
 
         try:
-            timezone = load_market(config["market"])["timezone"]
+            if markets:
+                zones = {load_market(str(p))["timezone"] for p in _dict(markets.get("profiles")).values()}
+                timezone = zones.pop() if len(zones) == 1 else "UTC"  # as liqpanel.marketset.load_markets
+            else:
+                timezone = load_market(config["market"])["timezone"]
         except LiqpanelError:
             pass  # named by market_problems
     sources = []
-    for key in ("trades", "quotes", "daily", "returns", "factors", "adjustments", "truth"):
+    for key in ("trades", "quotes", "daily", "returns", "factors", "adjustments", "truth", "securities", "fx"):
         path = inputs.get(key)
         if isinstance(path, str) and path:
+            mapping = _mapping(columns.get(key))
+            if key == "securities" and isinstance(markets.get("column"), str):  # the user's market-code column
+                mapping = {**{k: v for k, v in mapping.items() if v != "market"}, markets["column"]: "market"}
             sources.append(InputSource(
-                key=key, table=key, path=path, mapping=_mapping(columns.get(key)),
+                key=key, table=key, path=path, mapping=mapping,
                 formats=_dict(formats.get(key)), config_key=f"columns.{key}", date_column=DATE_COLUMN[key],
                 required=REQUIRED[key], timezone=timezone, numbers=SAMPLE_NUMBERS.get(key, ()),
                 values=not _drops_unparseable(config, key),
@@ -595,13 +605,83 @@ def study_problems(config: dict) -> list[Problem]:
 def market_problems(config: dict) -> list[Problem]:
     from liqpanel.config import load_market
 
-    if not isinstance(config.get("market"), str):
-        return []
-    try:
-        load_market(config["market"])
-    except LiqpanelError as exc:
-        return [Problem("market", str(exc))]
-    return []
+    if config.get("markets"):
+        return several_markets_problems(config)
+    problems = []
+    models = _dict(config.get("models"))
+    for where, spec in [*((f"models.sorts[{s.get('name')}]", s) for s in models.get("sorts") or []
+                          if isinstance(s, dict)), ("models.factor", _dict(models.get("factor")))]:
+        if spec.get("breakpoints") == "per_market":
+            problems.append(Problem(where, "breakpoints: per_market needs several markets (`markets:`); "
+                                    "this run has one"))
+    for spec in models.get("regressions") or []:
+        if isinstance(spec, dict) and "market" in [*_names(spec.get("effects")), *_names(spec.get("cluster"))]:
+            problems.append(Problem(f"models.regressions[{spec.get('name')}]", "market effects or clusters need "
+                                    "several markets (`markets:`); this run has one"))
+    if isinstance(config.get("market"), str):
+        try:
+            load_market(config["market"])
+        except LiqpanelError as exc:
+            problems.append(Problem("market", str(exc)))
+    return problems
+
+
+def several_markets_problems(config: dict) -> list[Problem]:
+    """``markets:``: every profile loads and names a currency; the securities file gives every security a
+    known code; the FX file is there when a market is not in the reporting currency and its rates are
+    positive finite numbers (``liqpanel.marketset``, which reads both files the same way at run time)."""
+    from liqpanel import marketset
+    from liqpanel.config import load_market
+
+    problems = []
+    if config.get("market"):
+        problems.append(Problem("market", "give either `market:` (one market) or `markets:` (several), not both"))
+    spec, profiles = config["markets"], {}
+    for code, name in spec["profiles"].items():
+        try:
+            profiles[code] = load_market(str(name))
+        except LiqpanelError as exc:
+            problems.append(Problem(f"markets.profiles.{code}", str(exc)))
+    reporting = spec["reporting_currency"]
+    foreign = {}
+    for code, profile in profiles.items():
+        if not profile.get("currency"):
+            problems.append(Problem(f"markets.profiles.{code}", f"the profile {spec['profiles'][code]} names no "
+                                    "`currency:`; with several markets every profile needs one"))
+        elif str(profile["currency"]) != str(reporting):
+            foreign[code] = str(profile["currency"])
+    inputs = config["inputs"]
+    listing = inputs.get("securities") or inputs.get("daily")
+    if not listing:
+        problems.append(Problem("inputs.securities", "`markets:` needs a securities file giving each security's "
+                                f"market code in the column '{spec['column']}' (or a daily file with it)"))
+    elif _files(listing):
+        try:  # a securities file whole; a daily file's first rows, as the other sample checks
+            marketset.read_securities(config, None if inputs.get("securities") else SAMPLE_ROWS)
+        except LiqpanelError as exc:
+            problems.append(Problem(getattr(exc, "path", None) or listing, _message_of(exc),
+                                    column=spec["column"]))
+    if foreign and not inputs.get("fx"):
+        listed = ", ".join(f"{code} ({currency})" for code, currency in foreign.items())
+        problems.append(Problem("inputs.fx", f"markets {listed} are not in the reporting currency {reporting}; "
+                                "give their exchange rates in an FX file (date, currency, rate)"))
+    elif foreign and _files(inputs["fx"]):
+        try:
+            rates, _ = marketset.read_fx(config)
+            absent = sorted(set(foreign.values()) - set(rates.get_column("currency").unique().to_list()))
+            if absent:
+                problems.append(Problem(inputs["fx"], f"no rate at all for currency {', '.join(absent)} "
+                                        f"(markets: {', '.join(c for c, v in foreign.items() if v in absent)})"))
+        except LiqpanelError as exc:
+            problems.append(Problem(getattr(exc, "path", None) or inputs["fx"], _message_of(exc)))
+    return problems
+
+
+def _message_of(exc: LiqpanelError) -> str:
+    """An error's message without the 'file <path>: ' prefix the Problem's place repeats."""
+    text = str(exc)
+    path = getattr(exc, "path", None)
+    return text.removeprefix(f"file {path}: ") if path else text
 
 
 def folder_problems(config: dict) -> list[Problem]:

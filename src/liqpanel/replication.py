@@ -61,7 +61,8 @@ def readme_text(
         run_name=config.get("run", {}).get("name", "run"),
         sample_start=config["sample"]["start"],
         sample_end=config["sample"]["end"],
-        market=config.get("market"),
+        market=config.get("market") or ", ".join(
+            f"{code}: {name}" for code, name in (config.get("markets") or {}).get("profiles", {}).items()),
         measures=", ".join(f"`{m}`" for m in config.get("measures") or {}) or "none",
         models=_models(config),
         version=liqpanel.__version__,

@@ -79,6 +79,9 @@ def input_entries(config: dict) -> list[tuple[str, str]]:
     if isinstance(config.get("market"), str):
         load_market(config["market"])  # a clear error if the profile is missing
         entries.append(("market", _shown_path(market_path(config["market"]))))
+    for code, name in sorted(((config.get("markets") or {}).get("profiles") or {}).items()):
+        load_market(str(name))
+        entries.append((f"markets.profiles.{code}", _shown_path(market_path(str(name)))))
     return entries
 
 
@@ -461,10 +464,13 @@ def measure_sources(names: list[str]) -> str:
 
 
 def currency_of(config: dict) -> str:
-    """The currency named in the notes: ``report.currency``, else the market profile's, else 'currency units'."""
+    """The currency named in the notes: ``report.currency``, else the reporting currency of several
+    markets (``markets.reporting_currency``), else the market profile's, else 'currency units'."""
     own = (config.get("report") or {}).get("currency")
     if own:
         return own
+    if config.get("markets"):
+        return config["markets"]["reporting_currency"]
     try:
         from liqpanel.config import load_market
 
@@ -490,8 +496,28 @@ def units_note(config: dict, measures: list[str]) -> str:
         parts.append(f"Amihud illiquidity is the absolute daily return per {words} {cur} traded")
     if {"zero_return_share", "zero_return_share_traded"} & set(measures):
         parts.append("shares of zero-return days are fractions of the month's days")
-    parts.append(f"returns are decimal returns per month; prices and market values in {cur}")
+    if config.get("markets"):
+        parts.append(f"returns are decimal returns per month; prices in each market's own currency; dollar "
+                     f"volume and market values in {cur}, {_conversion_note(config)}")
+    else:
+        parts.append(f"returns are decimal returns per month; prices and market values in {cur}")
     return "Units: " + "; ".join(parts)
+
+
+def _conversion_note(config: dict) -> str:
+    """Which markets' amounts were converted to the reporting currency, and at which rate."""
+    from liqpanel.config import load_market
+
+    spec = config["markets"]
+    foreign = []
+    for code, name in spec["profiles"].items():
+        currency = load_market(str(name)).get("currency")
+        if currency and str(currency) != str(spec["reporting_currency"]):
+            foreign.append(f"{code} from {currency}")
+    if not foreign:
+        return "the currency of every market"
+    return (f"converted ({', '.join(foreign)}) at the day's rate (daily amounts) and the month-end rate "
+            "(market values)")
 
 
 def measure_summary(monthly: pl.DataFrame, outputs: list[str]) -> pl.DataFrame:

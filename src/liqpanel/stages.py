@@ -17,7 +17,8 @@ import polars as pl
 from liqpanel import bars as bars_mod
 from liqpanel import readers
 from liqpanel.clean import QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows
-from liqpanel.config import load_market, shares_source
+from liqpanel.config import shares_source
+from liqpanel.marketset import MARKET, attach, daily_to_reporting, load_markets, several
 from liqpanel.errors import InputError
 from liqpanel import ingest
 from liqpanel.io import write_parquet, write_text
@@ -44,7 +45,7 @@ def check_inputs(config: dict) -> None:
     Raises ConfigError or InputError naming the profile, file or column;
     row-level problems are found later, by the clean stage and the daily file's job.
     """
-    market = load_market(config["market"])
+    market = load_markets(config)
     inputs, columns = config["inputs"], config.get("columns", {})
     for key, spec in (("trades", readers.TRADES_SPEC), ("quotes", readers.QUOTES_SPEC)):
         if inputs.get(key):
@@ -78,7 +79,7 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_q
 
 
 def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
-    market = load_market(config["market"])
+    market = load_markets(config)
     rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
     columns, formats = config.get("columns", {}), config.get("formats") or {}
@@ -90,14 +91,15 @@ def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_
     if config["inputs"].get("quotes"):
         read = readers.read_table(config["inputs"]["quotes"], columns.get("quotes", {}), readers.QUOTES_SPEC, tz, window,
                                   fmt=formats.get("quotes"))
-        flagged = flag_quotes(read.frame, market, rules, month=month, sample=sample).collect()
+        flagged = flag_quotes(_with_market(read, "quotes", config, market), market, rules, month=month,
+                              sample=sample).collect()
         _stop_on_unparseable(flagged, read, "quotes", rules, columns.get("quotes"))
         quotes = kept_rows(flagged, QUOTE_COLUMNS).collect()
         audits.append(audit_of(flagged, "quotes", month=month, timestamps=read.describe_timestamps()))
     read = readers.read_table(config["inputs"]["trades"], columns.get("trades", {}), readers.TRADES_SPEC, tz, window,
                               fmt=formats.get("trades"))
     flagged = flag_trades(
-        read.frame, market, rules, month=month, sample=sample, quotes=quotes.lazy() if quotes is not None else None
+        _with_market(read, "trades", config, market), market, rules, month=month, sample=sample, quotes=quotes.lazy() if quotes is not None else None
     )
     _stop_on_unparseable(flagged, read, "trades", rules, columns.get("trades"))
     kept = kept_rows(flagged, TRADE_COLUMNS).collect()
@@ -110,6 +112,11 @@ def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_
         empty = pl.DataFrame(schema={"security": pl.String, "ts": pl.Datetime("us", "UTC"), "bid": pl.Float64,
                                      "ask": pl.Float64, "date": pl.Date})
         write_parquet(quotes if quotes is not None else empty, out_quotes)
+
+
+def _with_market(read, key: str, config: dict, market: dict) -> pl.LazyFrame:
+    """The rows read with each security's market code (several markets); an unknown security names its row."""
+    return attach(read.frame, market, layout=ingest.layout_of(config, key))
 
 
 def _stop_on_unparseable(flagged: pl.DataFrame, read, table: str, rules: dict, mapping: dict | None = None) -> None:
@@ -125,7 +132,7 @@ def bars_month(clean_trades_path: str, out: str, config: dict | None = None, cle
     if config is None:
         write_parquet(bars_mod.trading_bars(trades), out)
         return
-    market = load_market(config["market"])
+    market = load_markets(config)
     quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
     columns = bars_mod.needed_columns(config["measures"]) if config.get("measures") else None
     # a clean partition is in security and time order (liqpanel.clean.kept_rows)
@@ -139,6 +146,8 @@ def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config
     entry = shares_source(config) if config is not None else None
     if entry is not None:
         daily = _with_shares_out(daily, entry)
+    if config is not None and config.get("markets"):
+        daily = daily_to_reporting(daily, config, load_markets(config))
     write_parquet(daily, out)
 
 
@@ -214,8 +223,10 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
     """The daily entry point: a user's own daily file read and checked once, written as month
     partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
     read = _read_daily(config)
+    daily = daily_to_reporting(read.daily.lazy(), config, load_markets(config)).collect() if config.get(
+        "markets") else read.daily
     for month, out in zip(months, outs):
-        write_parquet(read.daily.filter(_month_filter(month)), out)
+        write_parquet(daily.filter(_month_filter(month)), out)
     write_parquet(read.audit, out_audit)
     splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
     write_parquet(splits, out_splits)
@@ -235,8 +246,24 @@ def measures_month(config: dict, daily_path: str, previous_daily_path: str | Non
     from liqpanel.measures.frames import with_market_settings
 
     previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
-    selection = with_market_settings(config["measures"], load_market(config["market"]).get("tick_size"))
-    write_parquet(compute_monthly(pl.scan_parquet(daily_path), selection, previous=previous), out)
+    market = load_markets(config)
+    if not several(market):
+        selection = with_market_settings(config["measures"], market.get("tick_size"))
+        write_parquet(compute_monthly(pl.scan_parquet(daily_path), selection, previous=previous), out)
+        return
+    # each market's securities measured on their own: its tick, its market return and its trading days
+    daily, parts = pl.scan_parquet(daily_path), []
+    present = set(daily.select(MARKET).unique().collect().to_series().to_list())
+    for code, profile in market["_members"].items():
+        if code not in present:
+            continue
+        mine = pl.col(MARKET) == code
+        selection = with_market_settings(config["measures"], profile.get("tick_size"))
+        parts.append(compute_monthly(daily.filter(mine).drop(MARKET), selection,
+                                     previous=previous.filter(mine).drop(MARKET) if previous is not None else None))
+    frame = pl.concat(parts, how="diagonal_relaxed").sort("security", "month") if parts else compute_monthly(
+        daily.drop(MARKET), with_market_settings(config["measures"], None), previous=None)
+    write_parquet(frame, out)
 
 
 def gather(paths: list[str], out: str, sort: list[str]) -> None:
@@ -274,6 +301,11 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str, aud
         check_overlap(securities, c["frame"].select("security").collect(), what=f"characteristics file '{c['name']}'",
                       path=c["path"], column=ingest.characteristics_layout(c).theirs("security"))
     built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
+    if config.get("markets"):
+        from liqpanel.marketset import panel_to_reporting
+
+        built = panel_to_reporting(built.collect() if isinstance(built, pl.LazyFrame) else built, config,
+                                   load_markets(config))
     write_parquet(transform_panel(built, config["panel"]), out)
     if audit_out:
         write_parquet(characteristics_audit(built.select("security", "month"), chars), audit_out)
@@ -591,7 +623,9 @@ def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_di
     daily = pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed")
     monthly = pl.read_parquet(monthly_path) if monthly_path else None
     pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"])
-    market = st.Market.from_profile(load_market(config["market"]), settings["overnight_share"])
+    profile = load_markets(config)  # several markets: the study simulates the first one's clock
+    profile = next(iter(profile["_members"].values())) if several(profile) else profile
+    market = st.Market.from_profile(profile, settings["overnight_share"])
     result = st.run_study(pool, study=settings, measures=config["measures"], market=market)
     out = Path(out_dir)
     index = []

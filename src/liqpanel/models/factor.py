@@ -35,6 +35,7 @@ def liquidity_factor(
     min_securities: int = 5,
     ret: str = "ret_next",
     high_is_illiquid: bool = True,
+    breakpoints: str = "pooled",
 ) -> pl.DataFrame:
     """Illiquid-minus-liquid factor returns, one row per month: ``month``, ``factor_ret``.
 
@@ -51,7 +52,8 @@ def liquidity_factor(
     where a size group lacks breakpoints or a corner portfolio has fewer than
     ``min_securities`` members are left out (no row). Method: the
     size-controlled long-short construction of Fama & French (1993) applied to
-    a liquidity measure.
+    a liquidity measure. ``breakpoints="per_market"``: size and liquidity
+    breakpoints within each market (``liqpanel.models.sorts``).
     """
     result = double_sort(
         panel,
@@ -64,6 +66,7 @@ def liquidity_factor(
         breakpoint_universe=breakpoint_universe,
         min_securities=min_securities,
         ret=ret,
+        breakpoints=breakpoints,
     )
     sign = 1.0 if high_is_illiquid else -1.0
     return result.hml_returns.select("month", (sign * pl.col("ret")).alias("factor_ret")).sort("month")

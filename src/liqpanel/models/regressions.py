@@ -47,8 +47,9 @@ DEFAULT_COVARIANCE = {
     "fixed_effects": "clustered",
     "driscoll_kraay": "bartlett",
 }
-CLUSTER_DIMENSIONS = ("security", "month")
-EFFECTS = ("security", "month")
+CLUSTER_DIMENSIONS = ("security", "month", "market")
+EFFECTS = ("security", "month", "market")
+MARKET = "market"  # the panel's market code (several markets, liqpanel.marketset)
 # Our words of the trade -> the option words of the regression library; the
 # library's own words are refused with the word to use instead.
 _LIBRARY_COVARIANCE = {"clustered": "clustered", "robust": "robust", "plain": "unadjusted", "bartlett": "kernel"}
@@ -126,12 +127,14 @@ class ModelSpec:
     estimator other than fama_macbeth, it is read as that estimator's usual
     choice (``clustered``; ``bartlett`` for driscoll_kraay). ``lags``:
     Newey-West / Driscoll-Kraay bandwidth in months (``None``: Newey & West
-    1994 rule of thumb, see :func:`automatic_lags`). ``cluster``: any of
-    ``security``, ``month``. ``effects``: any of ``security``, ``month``
-    (fixed effects per security and per month; fixed_effects needs at least
-    one; driscoll_kraay may use them too). ``constant``: add an intercept
-    (ignored when effects are given: they absorb it, and no intercept is
-    reported). These are our words; they are translated to the regression
+    1994 rule of thumb, see :func:`automatic_lags`). ``cluster``: any two of
+    ``security``, ``month``, ``market`` (the panel's market code, a run with
+    several markets). ``effects``: any of ``security``, ``month``, ``market``
+    (fixed effects per security, per month and per market; fixed_effects
+    needs at least one; driscoll_kraay may use them too; fama_macbeth and
+    pooled take ``market`` alone, as one dummy per market but the first).
+    ``constant``: add an intercept (ignored when security or month effects
+    are given: they absorb it, and no intercept is reported). These are our words; they are translated to the regression
     library's own inside :func:`fit_model`, and the library's words
     (``entity``, ``time``, ``unadjusted``, ``kernel``) are refused with the
     word to use instead.
@@ -198,7 +201,12 @@ class ModelSpec:
             raise ConfigError(f"{where}: 'effects' repeats an effect: {list(self.effects)}")
         if self.estimator == "fixed_effects" and not self.effects:
             raise ConfigError(f"{where}: the fixed_effects estimator needs 'effects' (security and/or month)")
-        if self.effects and self.estimator in ("fama_macbeth", "pooled"):
+        if len(self.cluster) > 2:
+            raise ConfigError(f"{where}: 'cluster' has {list(self.cluster)}; at most two dimensions")
+        if MARKET in self.effects and "security" in self.effects:
+            raise ConfigError(f"{where}: security effects absorb market effects (each security lists on one "
+                              "market); keep one of them")
+        if set(self.effects) - {MARKET} and self.estimator in ("fama_macbeth", "pooled"):
             raise ConfigError(
                 f"{where}: 'effects' is {list(self.effects)} but the {self.estimator} estimator takes none; "
                 "use estimator fixed_effects"
@@ -309,11 +317,18 @@ class ModelResult:
         return "\n".join(lines)
 
 
+def _uses_market(spec: ModelSpec) -> bool:
+    return MARKET in spec.effects or (spec.covariance == "clustered" and MARKET in spec.cluster)
+
+
 def _model_frame(panel: pl.DataFrame | pl.LazyFrame, spec: ModelSpec) -> tuple[pl.DataFrame, int]:
-    """Key and model variables, rows with a missing (null or NaN) value dropped."""
+    """Key (and the market code when used) and model variables, rows with a missing (null or NaN) value dropped."""
     lazy = panel.lazy() if isinstance(panel, pl.DataFrame) else panel
     schema = lazy.collect_schema()
     names = schema.names()
+    if _uses_market(spec) and MARKET not in names:
+        raise InputError(f"model '{spec.name}' uses market effects or clusters, which need the panel's "
+                         f"'{MARKET}' column (a run with several markets, `markets:`)", column=MARKET)
     for column in (*KEY, *spec.variables):
         if column not in names:
             raise InputError(
@@ -326,17 +341,23 @@ def _model_frame(panel: pl.DataFrame | pl.LazyFrame, spec: ModelSpec) -> tuple[p
                 f"model '{spec.name}': panel column '{column}' must be numeric, found {schema[column]}",
                 column=column,
             )
-    cols = [*KEY, *spec.variables]
+    cols = [*KEY, *([MARKET] if _uses_market(spec) else []), *spec.variables]
     frame = lazy.select(cols).with_columns(pl.col(list(spec.variables)).cast(pl.Float64)).collect()
     complete = frame.filter(
         pl.all_horizontal(pl.col(list(spec.variables)).is_not_null() & pl.col(list(spec.variables)).is_finite())
+        & (pl.col(MARKET).is_not_null() if _uses_market(spec) else True)
     ).sort(list(KEY))
     return complete, frame.height - complete.height
 
 
 def _has_intercept(spec: ModelSpec) -> bool:
-    # Entity or time effects absorb the intercept; it is not estimated then.
-    return spec.constant and not spec.effects
+    # Entity or time effects absorb the intercept; it is not estimated then (market dummies leave it).
+    return spec.constant and not set(spec.effects) - {MARKET}
+
+
+def _market_dummies(spec: ModelSpec) -> bool:
+    """Market effects as dummy regressors (fama_macbeth, pooled); else as the library's other effects."""
+    return MARKET in spec.effects and spec.estimator in ("fama_macbeth", "pooled")
 
 
 def _to_pandas(frame: pl.DataFrame, spec: ModelSpec):
@@ -345,6 +366,9 @@ def _to_pandas(frame: pl.DataFrame, spec: ModelSpec):
     x = data[list(spec.regressors)].copy()
     if _has_intercept(spec):
         x.insert(0, INTERCEPT, 1.0)
+    if _market_dummies(spec):  # one per market but the first in name order: the intercept is the first's level
+        for code in sorted(frame.get_column(MARKET).unique().to_list())[1:]:
+            x[f"{MARKET}[{code}]"] = (data[MARKET] == code).astype(float)
     return y, x
 
 
@@ -449,12 +473,26 @@ def fit_model(panel: pl.DataFrame, spec: ModelSpec) -> ModelResult:
         else:
             entity = "security" in spec.effects
             time = "month" in spec.effects
-            if spec.effects:
-                model = PanelOLS(y, x, entity_effects=entity, time_effects=time)
+            codes = frame.to_pandas().set_index(list(KEY))[MARKET] if _uses_market(spec) else None
+            if spec.effects and not _market_dummies(spec):
+                other = codes.astype("category").cat.codes.to_frame(MARKET) if MARKET in spec.effects else None
+                model = PanelOLS(y, x, entity_effects=entity, time_effects=time, other_effects=other)
             else:
                 model = PooledOLS(y, x)
             fit_kwargs: dict = {"debiased": True}
-            if spec.covariance == "clustered":
+            if spec.covariance == "clustered" and MARKET in spec.cluster:
+                # the market code and any other dimension as the library's cluster codes (at most two)
+                index = y.index
+                columns = {
+                    MARKET: codes.astype("category").cat.codes,
+                    "security": index.get_level_values(0).astype("category").codes,
+                    "month": index.get_level_values(1).astype("category").codes,
+                }
+                import pandas as pd
+
+                clusters = pd.DataFrame({c: np.asarray(columns[c]) for c in spec.cluster}, index=index)
+                fit_kwargs.update(cov_type="clustered", clusters=clusters, group_debias=True)
+            elif spec.covariance == "clustered":
                 fit_kwargs.update(
                     cov_type="clustered",
                     cluster_entity="security" in spec.cluster,

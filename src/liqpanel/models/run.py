@@ -50,6 +50,7 @@ def _sort_table(spec: dict, panel: pl.DataFrame, lags: int | None) -> tuple[Resu
         min_securities=spec.get("min_securities", 5),
         characteristics=tuple(spec.get("characteristics", ())),
         lags=spec.get("lags", lags),
+        breakpoints=spec.get("breakpoints", "pooled"),
     )
     scheme = "value-weighted (market value at the end of the sorting month)" if weight else "equal-weighted"
     if spec.get("within"):
@@ -82,7 +83,8 @@ def _sort_table(spec: dict, panel: pl.DataFrame, lags: int | None) -> tuple[Resu
     table = pl.concat([summary, hml], how="diagonal_relaxed")
     notes = (
         f"{scheme}; breakpoints from "
-        f"{'the securities flagged by ' + spec['breakpoint_universe'] if spec.get('breakpoint_universe') else 'all securities'}; "
+        f"{'the securities flagged by ' + spec['breakpoint_universe'] if spec.get('breakpoint_universe') else 'all securities'}"
+        f"{' of each market, within the market' if common['breakpoints'] == 'per_market' else ''}; "
         f"portfolios with fewer than {common['min_securities']} securities are left out that month; "
         f"t-statistics Newey & West (1987), {res.hml.lags} lags; decimal returns per month."
     )
@@ -134,6 +136,7 @@ def run_models(
             panel, measure=fac["measure"], size=fac.get("size", "log_size"), n_size=fac.get("size_groups", 2),
             n_liq=fac.get("liquidity_groups", 3), weight=_weight(fac.get("weight")),
             min_securities=fac.get("min_securities", 5), high_is_illiquid=fac.get("high_is_illiquid", True),
+            breakpoints=fac.get("breakpoints", "pooled"),
         )
         summary = factor_summary(factor, factors, lags=fac.get("lags", lags))
         out.tables.append(
@@ -142,7 +145,9 @@ def run_models(
                 summary_table(summary),
                 f"Traded liquidity factor: illiquid-minus-liquid on {fac['measure']} within size groups",
                 f"{fac.get('size_groups', 2)} size groups x {fac.get('liquidity_groups', 3)} liquidity groups "
-                "(dependent sort); returns dated by formation month, earned the month after, in decimals per month; "
+                "(dependent sort"
+                + ("; breakpoints within each market" if fac.get("breakpoints") == "per_market" else "")
+                + "); returns dated by formation month, earned the month after, in decimals per month; "
                 f"Newey & West (1987) t-statistics, {fac.get('lags', lags)} lags"
                 + (f"; alphas and betas against the factor returns supplied ({', '.join(summary['betas'])})"
                    if "alpha" in summary else "; no factor returns supplied, so no alpha") + ".",

@@ -17,6 +17,12 @@ universe):
 * Assignment: a security goes to portfolio ``k`` when
   ``breakpoint_{k-1} < value <= breakpoint_k`` (ties at a breakpoint go to
   the lower portfolio); portfolio 1 holds the lowest values.
+* Breakpoints ``pooled`` (the default) come from every market's securities
+  together; ``per_market`` forms them within each market (the panel's
+  ``market`` column, several markets in one run), so each market's
+  securities spread over all ``n`` portfolios whatever the level of its
+  measure; the portfolios then pool the markets' members (common practice
+  in international sorts, where liquidity levels differ by market).
 * A month (or, in a dependent sort, a first-stage group of a month) whose
   breakpoint universe has fewer than ``n`` securities has no breakpoints;
   its securities are not assigned and the month is counted.
@@ -40,6 +46,15 @@ from liqpanel.models.regressions import newey_west_mean
 from liqpanel.stable import ordered_mean, ordered_sum
 
 KEY = ("security", "month")
+BREAKPOINTS = ("pooled", "per_market")
+MARKET = "market"  # the panel's market code (liqpanel.marketset)
+
+
+def _groups(breakpoints: str) -> list[str]:
+    """The columns within which breakpoints are formed, besides the month."""
+    if breakpoints not in BREAKPOINTS:
+        raise ValueError(f"breakpoints must be one of {BREAKPOINTS}, got {breakpoints!r}")
+    return [MARKET] if breakpoints == "per_market" else []
 
 
 @dataclass(frozen=True)
@@ -131,10 +146,15 @@ class DoubleSortResult:
 # ------------------------------------------------------------------ internals
 
 
-def _check_inputs(panel, needed_numeric, weight, breakpoint_universe, characteristics, n_values, min_securities):
+def _check_inputs(panel, needed_numeric, weight, breakpoint_universe, characteristics, n_values, min_securities,
+                  groups=()):
     lazy = panel.lazy() if isinstance(panel, pl.DataFrame) else panel
     schema = lazy.collect_schema()
     names = schema.names()
+    for column in groups:
+        if column not in names:
+            raise InputError(f"breakpoints per market need the panel's '{column}' column (a run with `markets:`); "
+                             f"the panel has {sorted(names)}", column=column)
     for column in (*KEY, *needed_numeric, *([weight] if weight else []), *characteristics,
                    *([breakpoint_universe] if breakpoint_universe else [])):
         if column not in names:
@@ -160,15 +180,16 @@ def _check_inputs(panel, needed_numeric, weight, breakpoint_universe, characteri
     return lazy
 
 
-def _usable(lazy, needed_numeric, weight, breakpoint_universe, characteristics):
-    """Key, sort inputs and characteristics; flags rows complete in the sort inputs."""
+def _usable(lazy, needed_numeric, weight, breakpoint_universe, characteristics, groups=()):
+    """Key, breakpoint groups, sort inputs and characteristics; flags rows complete in the sort inputs."""
     numeric = [*needed_numeric, *([weight] if weight else [])]
-    cols = list(dict.fromkeys([*KEY, *numeric, *characteristics]))
+    cols = list(dict.fromkeys([*KEY, *groups, *numeric, *characteristics]))
     frame = lazy.select(
         *cols,
         (pl.col(breakpoint_universe).fill_null(False) if breakpoint_universe else pl.lit(True)).alias("_universe"),
     ).with_columns(pl.col(list(dict.fromkeys([*numeric, *characteristics]))).cast(pl.Float64))
-    ok = pl.all_horizontal([pl.col(c).is_not_null() & pl.col(c).is_finite() for c in numeric])
+    ok = pl.all_horizontal([pl.col(c).is_not_null() & pl.col(c).is_finite() for c in numeric]
+                           + [pl.col(c).is_not_null() for c in groups])
     if weight:
         ok = ok & (pl.col(weight) > 0)
     return frame.with_columns(ok.alias("_complete"))
@@ -286,6 +307,7 @@ def sort_portfolios(
     ret: str = "ret_next",
     characteristics: list[str] | tuple[str, ...] = (),
     lags: int | None = 6,
+    breakpoints: str = "pooled",
 ) -> SortResult:
     """Univariate portfolio sort of next month's return on ``on``.
 
@@ -300,18 +322,21 @@ def sort_portfolios(
     (like ``ret_next``). Assumptions: ``on`` and ``weight`` are known at the
     end of month ``t``. Method: the portfolio-sort test of Fama & MacBeth
     (1973) / Fama & French (1992) applied to liquidity as in Amihud (2002).
-    See the module docstring for the breakpoint and assignment conventions.
+    See the module docstring for the breakpoint and assignment conventions;
+    ``breakpoints="per_market"`` forms ``B_k`` within each month and market.
     """
     characteristics = list(characteristics)
-    lazy = _check_inputs(panel, [on, ret], weight, breakpoint_universe, characteristics, {"n": n}, min_securities)
-    frame = _usable(lazy, [on, ret], weight, breakpoint_universe, characteristics)
+    groups = _groups(breakpoints)
+    lazy = _check_inputs(panel, [on, ret], weight, breakpoint_universe, characteristics, {"n": n}, min_securities,
+                         groups)
+    frame = _usable(lazy, [on, ret], weight, breakpoint_universe, characteristics, groups)
     counts = frame.select(pl.len().alias("rows"), pl.col("_complete").sum().alias("complete")).collect()
     complete = frame.filter(pl.col("_complete"))
-    assigned, bps = _assign(complete, on, n, ["month"], "portfolio")
+    assigned, bps = _assign(complete, on, n, ["month", *groups], "portfolio")
     cells = _portfolio_returns(assigned.filter(pl.col("portfolio").is_not_null()), ["portfolio"], ret, weight,
                                characteristics)
-    bps = bps.sort("month").collect()
-    valid_months = bps.filter(pl.col("n_universe") >= n).select("month")
+    bps = bps.sort("month", *groups).collect()
+    valid_months = bps.filter(pl.col("n_universe") >= n).select("month").unique().sort("month")
     result_cells = _complete_grid(cells, _grid(valid_months.lazy(), {"portfolio": n}), ["portfolio"],
                                   min_securities, characteristics)
     nobs = int(result_cells.get_column("n_securities").sum())
@@ -324,11 +349,11 @@ def sort_portfolios(
         summary=summary,
         hml=HighMinusLow.from_series(hml_returns.get_column("ret").to_numpy(), lags),
         hml_returns=hml_returns,
-        breakpoints=bps.select("month", "n_universe", *[f"breakpoint_{k}" for k in range(1, n)]),
+        breakpoints=bps.select("month", *groups, "n_universe", *[f"breakpoint_{k}" for k in range(1, n)]),
         nobs=nobs,
         nobs_dropped=int(counts.item(0, "rows")) - n_complete,
         unassigned=n_complete - nobs,
-        months_without_breakpoints=bps.height - valid_months.height,
+        months_without_breakpoints=bps.select("month").n_unique() - valid_months.height,
         thin_portfolio_months=int(result_cells.filter(pl.col("n_securities") < min_securities).height),
         on=on,
         n=n,
@@ -349,6 +374,7 @@ def double_sort(
     ret: str = "ret_next",
     characteristics: list[str] | tuple[str, ...] = (),
     lags: int | None = 6,
+    breakpoints: str = "pooled",
 ) -> DoubleSortResult:
     """Two-way portfolio sort: ``first`` into ``n1`` groups, ``second`` into ``n2``.
 
@@ -365,36 +391,42 @@ def double_sort(
     Newey & West (1987) t-statistic. Units: decimal monthly returns dated by
     the formation month. Method: the conditional sort used to build
     characteristic-controlled factors, e.g. Fama & French (1993).
+    ``breakpoints="per_market"``: both stages' breakpoints within each market;
+    a month counts when at least one market has all its breakpoints.
     """
     characteristics = list(characteristics)
     if first == second:
         raise ValueError(f"double_sort needs two different columns, got '{first}' twice")
+    groups = _groups(breakpoints)
     lazy = _check_inputs(panel, [first, second, ret], weight, breakpoint_universe, characteristics,
-                         {"n1": n1, "n2": n2}, min_securities)
-    frame = _usable(lazy, [first, second, ret], weight, breakpoint_universe, characteristics)
+                         {"n1": n1, "n2": n2}, min_securities, groups)
+    frame = _usable(lazy, [first, second, ret], weight, breakpoint_universe, characteristics, groups)
     counts = frame.select(pl.len().alias("rows"), pl.col("_complete").sum().alias("complete")).collect()
     complete = frame.filter(pl.col("_complete"))
     labels = ["portfolio_first", "portfolio_second"]
-    stage1, bps1 = _assign(complete, first, n1, ["month"], "portfolio_first")
+    stage1, bps1 = _assign(complete, first, n1, ["month", *groups], "portfolio_first")
     if dependent:
         stage2, bps2 = _assign(stage1.filter(pl.col("portfolio_first").is_not_null()), second, n2,
-                               ["month", "portfolio_first"], "portfolio_second")
+                               ["month", *groups, "portfolio_first"], "portfolio_second")
     else:
-        stage2, bps2 = _assign(stage1, second, n2, ["month"], "portfolio_second")
+        stage2, bps2 = _assign(stage1, second, n2, ["month", *groups], "portfolio_second")
     assigned = stage2.filter(pl.col("portfolio_first").is_not_null() & pl.col("portfolio_second").is_not_null())
-    cells = _portfolio_returns(assigned, labels, ret, weight, characteristics)
 
     bps1 = bps1.collect()
     bps2 = bps2.collect()
-    months1 = bps1.filter(pl.col("n_universe") >= n1).select("month")
+    months1 = bps1.filter(pl.col("n_universe") >= n1).select("month", *groups)
     if dependent:
-        valid_groups = bps2.filter(pl.col("n_universe") >= n2).select("month", "portfolio_first")
-        # A month counts only if every first-stage group has second-stage breakpoints.
-        full = valid_groups.group_by("month").len().filter(pl.col("len") == n1).select("month")
-        valid_months = months1.join(full, on="month", how="inner").sort("month")
+        valid_groups = bps2.filter(pl.col("n_universe") >= n2).select("month", *groups, "portfolio_first")
+        # A month (of a market) counts only if every first-stage group has second-stage breakpoints.
+        full = valid_groups.group_by("month", *groups).len().filter(pl.col("len") == n1).select("month", *groups)
+        valid = months1.join(full, on=["month", *groups], how="inner")
     else:
-        months2 = bps2.filter(pl.col("n_universe") >= n2).select("month")
-        valid_months = months1.join(months2, on="month", how="inner").sort("month")
+        months2 = bps2.filter(pl.col("n_universe") >= n2).select("month", *groups)
+        valid = months1.join(months2, on=["month", *groups], how="inner")
+    valid_months = valid.select("month").unique().sort("month")
+    if groups:  # a market's month without all its breakpoints leaves its securities out of the cells
+        assigned = assigned.join(valid.lazy(), on=["month", *groups], how="semi")
+    cells = _portfolio_returns(assigned, labels, ret, weight, characteristics)
     grid = _grid(valid_months.lazy(), {"portfolio_first": n1, "portfolio_second": n2})
     result_cells = _complete_grid(cells, grid, labels, min_securities, characteristics)
     nobs = int(result_cells.get_column("n_securities").sum())
@@ -428,7 +460,7 @@ def double_sort(
         nobs=nobs,
         nobs_dropped=int(counts.item(0, "rows")) - n_complete,
         unassigned=n_complete - nobs,
-        months_without_breakpoints=bps1.height - valid_months.height,
+        months_without_breakpoints=bps1.select("month").n_unique() - valid_months.height,
         thin_portfolio_months=int(result_cells.filter(pl.col("n_securities") < min_securities).height),
         first=first,
         second=second,

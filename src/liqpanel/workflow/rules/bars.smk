@@ -11,10 +11,12 @@ if FROM_TRADES:
                 previous=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", month_before(SPAN)),
                 adjustments=expand_inputs("adjustments"),
                 shares=[stages.shares_source(CONFIG)["path"]] if stages.shares_source(CONFIG) else [],
+                fx=expand_inputs("fx"),
             output:
                 month_files(f"{WORK}/daily/month={{month}}/daily.parquet", SPAN),
             params:
                 columns=CONFIG["columns"]["adjustments"],
+                markets=CONFIG.get("markets"),
             run:
                 stages.daily_span(CONFIG, list(input.bars), input.previous[0] if input.previous else None, list(output))
 
@@ -25,6 +27,8 @@ else:
         input:
             daily=expand_inputs("daily"),
             adjustments=expand_inputs("adjustments"),
+            securities=expand_inputs("securities"),
+            fx=expand_inputs("fx"),
         output:
             daily=expand(f"{WORK}/daily/month={{month}}/daily.parquet", month=MONTHS),
             audit=f"{WORK}/daily_audit.parquet",
@@ -33,6 +37,7 @@ else:
             columns={table: CONFIG["columns"][table] for table in ("daily", "adjustments")},
             formats={table: CONFIG["formats"][table] for table in ("daily", "adjustments")},
             daily=CONFIG["daily"],
+            markets=CONFIG.get("markets"),
             sample=CONFIG["sample"],
         run:
             stages.daily_from_file(CONFIG, MONTHS, list(output.daily), output.audit, output.splits)

@@ -9,6 +9,7 @@ if FROM_TRADES:
             input:
                 trades=expand_inputs("trades"),
                 quotes=expand_inputs("quotes"),
+                securities=expand_inputs("securities"),
             output:
                 trades=month_files(f"{WORK}/clean/month={{month}}/trades.parquet", SPAN),
                 quotes=month_files(f"{WORK}/clean/month={{month}}/quotes.parquet", SPAN),
@@ -18,7 +19,8 @@ if FROM_TRADES:
                 months=SPAN,
                 clean=CONFIG["clean"],
                 bars=CONFIG["bars"],
-                market=CONFIG["market"],
+                market=CONFIG.get("market"),
+                markets=CONFIG.get("markets"),
                 columns={table: CONFIG["columns"][table] for table in ("trades", "quotes")},
                 sample=CONFIG["sample"],
                 measures=sorted(CONFIG["measures"]),  # the high-frequency bar columns follow the measures

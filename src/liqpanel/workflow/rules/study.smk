@@ -8,7 +8,8 @@ rule study:
     params:
         study={k: v for k, v in CONFIG["study"].items() if k != "in_report"},
         measures=CONFIG["measures"],
-        market=CONFIG["market"],
+        market=CONFIG.get("market"),
+        markets=CONFIG.get("markets"),
     run:
         stages.study(CONFIG, list(input.daily), input.monthly, output[0])
 
