@@ -53,7 +53,7 @@ REQUIRED: dict[str, tuple[str, ...]] = {
 DATE_COLUMN = {"trades": "date", "quotes": "date", "daily": "date", "returns": "month", "factors": "month",
                "adjustments": "date", "truth": "month"}
 # the daily columns the workflow adds whatever the source
-DERIVED_DAILY = {"month", "dollar_volume", "n_trades", "ret", "mkt_ret", "from_previous_month"}
+DERIVED_DAILY = {"month", "dollar_volume", "n_trades", "ret", "mkt_ret", "from_previous_month", "limit_day"}
 PANEL_KEYS = {"security", "month", "n_days", "ret_next"}
 
 
@@ -591,9 +591,16 @@ def market_problems(config: dict) -> list[Problem]:
     if not isinstance(config.get("market"), str):
         return []
     try:
-        load_market(config["market"])
+        market = load_market(config["market"])
+        sample = config.get("sample")
+        if market.get("calendar") is not None and isinstance(sample, dict) and {"start", "end"} <= set(sample):
+            from liqpanel.markets import sample_span, trading_days
+
+            trading_days(market, *sample_span(sample["start"], sample["end"]))  # the library covers the sample
     except LiqpanelError as exc:
         return [Problem("market", str(exc))]
+    except ValueError:  # a sample month that is not a month: the schema check names it
+        return []
     return []
 
 

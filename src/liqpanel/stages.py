@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import sys
+from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -78,7 +79,7 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_q
 
 
 def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
-    market = load_market(config["market"])
+    market = _market(config)
     rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
     columns, formats = config.get("columns", {}), config.get("formats") or {}
@@ -125,7 +126,7 @@ def bars_month(clean_trades_path: str, out: str, config: dict | None = None, cle
     if config is None:
         write_parquet(bars_mod.trading_bars(trades), out)
         return
-    market = load_market(config["market"])
+    market = _market(config)
     quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
     columns = bars_mod.needed_columns(config["measures"]) if config.get("measures") else None
     # a clean partition is in security and time order (liqpanel.clean.kept_rows)
@@ -217,11 +218,30 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
     """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
     from liqpanel.measures import compute_monthly
-    from liqpanel.measures.frames import with_market_settings
+    from liqpanel.measures.frames import market_inputs
 
-    previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
-    selection = with_market_settings(config["measures"], load_market(config["market"]).get("tick_size"))
-    write_parquet(compute_monthly(pl.scan_parquet(daily_path), selection, previous=previous), out)
+    market = load_market(config["market"])
+    start, end = _calendar_span(config) if "sample" in config else (None, None)
+    daily, selection, calendar = market_inputs(pl.scan_parquet(daily_path), config["measures"], market, start, end)
+    previous = None
+    if previous_daily_path:
+        previous = market_inputs(pl.scan_parquet(previous_daily_path), config["measures"], market, start, end)[0]
+    write_parquet(compute_monthly(daily, selection, previous=previous, calendar=calendar), out)
+
+
+def _calendar_span(config: dict) -> tuple[date, date]:
+    """First and last day of the market calendar a run needs (``markets.sample_span``)."""
+    from liqpanel.markets import sample_span
+
+    return sample_span(config["sample"]["start"], config["sample"]["end"])
+
+
+def _market(config: dict) -> dict:
+    """The run's market profile with the early closes of its calendar over the sample (``markets.for_sample``)."""
+    from liqpanel.markets import for_sample
+
+    market = load_market(config["market"])
+    return for_sample(market, *_calendar_span(config)) if market.get("calendar") is not None else market
 
 
 def gather(paths: list[str], out: str, sort: list[str]) -> None:

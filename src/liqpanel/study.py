@@ -379,10 +379,13 @@ class Market:
         """From a market profile: its time zone, its first open to its last close, its tick size.
 
         A midday break is not simulated (convention of this project): the
-        session runs from the first open to the last close.
+        session runs from the first open to the last close. With tick
+        regimes the simulator takes the latest (``markets.latest_tick``).
         """
+        from liqpanel.markets import latest_tick
+
         sessions = profile["sessions"]
-        tick = profile.get("tick_size")
+        tick = latest_tick(profile)
         return cls(
             timezone=profile["timezone"],
             session=(str(sessions[0][0]), str(sessions[-1][1])),
