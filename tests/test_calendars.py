@@ -286,3 +286,28 @@ def test_an_unquoted_date_that_is_no_date_names_the_profile(tmp_path):
     path.write_text("timezone: UTC\nsessions: [['09:00', '17:00']]\nholidays: [2023-02-30]\n")
     with pytest.raises(ConfigError, match=f"market profile {path}: not readable as YAML"):
         load_market(str(path))
+
+
+def test_the_measures_job_takes_the_calendar_and_the_tick_regimes_from_the_profile(tmp_path):
+    from liqpanel.stages import measures_month
+
+    profile = tmp_path / "my_market.yaml"
+    profile.write_text(yaml.safe_dump({**HOLIDAY_PROFILE, "tick_size": [{"from": "2023-01-01", "tick": 0.01}]}))
+    traded = [d for d in OPEN if d != date(2023, 1, 18)]
+    daily = _daily(traded, [10.0, 10.1, 10.0, 10.2, 10.1, 10.3, 10.2, 10.4]).with_columns(
+        pl.lit(date(2023, 1, 1)).alias("month"),
+        (pl.col("close") / pl.col("close").shift(1) - 1).alias("ret"),
+        (pl.col("close") * pl.col("volume")).alias("dollar_volume"),
+    )
+    path, out = tmp_path / "daily.parquet", tmp_path / "measures.parquet"
+    daily.write_parquet(path)
+    config = {"market": str(profile), "sample": {"start": "2023-01", "end": "2023-01"},
+              "measures": {"zero_return_share": {"min_days": 1}, "cs_spread": {"min_days": 1},
+                           "effective_tick": {"min_days": 1}}}
+    measures_month(config, str(path), None, str(out))
+    monthly = pl.read_parquet(out)
+    # As in the tests above: one open day without a trade among 8 days with a return; 6 of 7 pairs kept.
+    assert monthly["zero_return_share"].item() == pytest.approx(1 / 8)
+    assert monthly["cs_spread_n"].item() == 6
+    # The tick regime reaches the effective tick (a daily tick column): every close is on the cent grid.
+    assert monthly["effective_tick_n"].item() == 8
