@@ -311,3 +311,22 @@ def test_the_measures_job_takes_the_calendar_and_the_tick_regimes_from_the_profi
     assert monthly["cs_spread_n"].item() == 6
     # The tick regime reaches the effective tick (a daily tick column): every close is on the cent grid.
     assert monthly["effective_tick_n"].item() == 8
+
+
+def test_a_limit_regime_can_be_lifted_and_the_half_tick_follows_the_price_band():
+    from liqpanel.measures.limits import limit_day_flag
+
+    profile = check_market({
+        "timezone": "UTC", "sessions": [["09:00", "17:00"]],
+        "tick_size": [{"from": "2023-01-01", "bands": [{"below": 10.0, "tick": 0.01}, {"tick": 0.1}]}],
+        "price_limit": [{"from": "2023-01-01", "limit": 0.10}, {"from": "2023-02-01", "limit": None}],
+    }, "bands.yaml")
+    frame = pl.DataFrame({
+        "date": [date(2023, 1, 3), date(2023, 1, 3), date(2023, 1, 3), date(2023, 2, 1)],
+        # previous close 20: the upper limit 22.00 lies in the 0.1 band (half tick 0.05): 21.96 is at it.
+        # previous close 5: the upper limit 5.50 lies in the 0.01 band (half tick 0.005): 5.49 is not, 5.496 is.
+        # previous close 20 in February: no limit in force.
+        "close": [21.96, 5.49, 5.496, 22.0],
+        "ret": [21.96 / 20 - 1, 5.49 / 5 - 1, 5.496 / 5 - 1, 22.0 / 20 - 1],
+    })
+    assert frame.select(limit_day_flag(profile))["limit_day"].to_list() == [True, False, True, False]

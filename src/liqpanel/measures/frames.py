@@ -48,11 +48,11 @@ def market_inputs(
     from liqpanel.markets import has_calendar, tick_expr, tick_is_constant, trading_days
     from liqpanel.measures.limits import LIMIT_DAY, limit_day_flag
 
+    names = daily.collect_schema().names()
     if market is None:
-        if any(LIMIT_DAY in REGISTRY[n].columns for n in selection if n in REGISTRY):
+        if LIMIT_DAY not in names and any(LIMIT_DAY in REGISTRY[n].columns for n in selection if n in REGISTRY):
             daily = daily.with_columns(limit_day_flag(None))
         return daily, with_market_settings(selection, None), None
-    names = daily.collect_schema().names()
     if tick_is_constant(market):
         selection = with_market_settings(selection, market.get("tick_size"))
     else:
