@@ -330,3 +330,18 @@ def test_a_limit_regime_can_be_lifted_and_the_half_tick_follows_the_price_band()
         "ret": [21.96 / 20 - 1, 5.49 / 5 - 1, 5.496 / 5 - 1, 22.0 / 20 - 1],
     })
     assert frame.select(limit_day_flag(profile))["limit_day"].to_list() == [True, False, True, False]
+
+
+def test_the_study_calibrates_its_window_on_the_calendar():
+    from liqpanel.study import calibrate
+
+    traded = [d for d in OPEN if d != date(2023, 1, 18)]
+    daily = _daily(traded, [10.0, 10.1, 10.0, 10.2, 10.1, 10.3, 10.2, 10.4]).with_columns(
+        pl.lit(date(2023, 1, 1)).alias("month"), (pl.col("close") * pl.col("volume")).alias("dollar_volume"))
+    study = {"min_days": 1, "fallback_spread": "cs_spread"}
+    inferred, _ = calibrate(daily.lazy(), study=study)
+    ours, _ = calibrate(daily.lazy(), study=study, calendar=trading_days(check_market(HOLIDAY_PROFILE, "h.yaml"),
+                                                                         "2023-01-01", "2023-01-31"))
+    # Window: the 9 open days of 9-20 January (the 16th closed); 8 traded, so one day in nine without a trade.
+    assert ours["n_days"].item() == 9 and ours["no_trade_share"].item() == pytest.approx(1 / 9)
+    assert inferred["n_days"].item() == 8 and inferred["no_trade_share"].item() == pytest.approx(0.0)

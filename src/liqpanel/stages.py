@@ -568,12 +568,17 @@ def render_factors(factors_dir: str | Path, out: "rep.RunFolder", *, figures: bo
 def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_dir: str) -> None:
     """Calibrate to the daily table, run the simulation study, write its tables and an index."""
     from liqpanel import study as st
+    from liqpanel.markets import has_calendar, trading_days
 
     settings = config["study"]
     daily = pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed")
     monthly = pl.read_parquet(monthly_path) if monthly_path else None
-    pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"])
-    market = st.Market.from_profile(load_market(config["market"]), settings["overnight_share"])
+    profile = load_market(config["market"])
+    calendar = None
+    if has_calendar(profile):
+        calendar = trading_days(profile, *_calendar_span(config)).select("date")
+    pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"], calendar=calendar)
+    market = st.Market.from_profile(profile, settings["overnight_share"])
     result = st.run_study(pool, study=settings, measures=config["measures"], market=market)
     out = Path(out_dir)
     index = []

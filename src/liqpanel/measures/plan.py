@@ -216,7 +216,7 @@ def _market_days(base: pl.DataFrame, prepared: pl.DataFrame, calendar=None) -> p
         return pl.Series("market_days", [], dtype=pl.Int64)
     day = prepared["date"].cast(pl.Int32).to_numpy()
     if calendar is not None:
-        return _open_days_listed(base, open_day_numbers(calendar))
+        return open_days_listed(base, open_day_numbers(calendar))
     origin = int(day.min())
     present = np.zeros(int(day.max()) - origin + 1, dtype=bool)
     present[day - origin] = True
@@ -251,7 +251,7 @@ def _market_days(base: pl.DataFrame, prepared: pl.DataFrame, calendar=None) -> p
     return spans.select(days_listed.alias("market_days")).to_series()
 
 
-def _open_days_listed(base: pl.DataFrame, calendar: np.ndarray) -> pl.Series:
+def open_days_listed(base: pl.DataFrame, calendar: np.ndarray) -> pl.Series:
     """Open days of the calendar in each security-month within the security's listed span (binary searches)."""
     listed = base.select(
         pl.col("_first_date").min().over("security").cast(pl.Int32),
@@ -351,4 +351,4 @@ def missing_reason(condition: pl.Expr, reason: str) -> pl.Expr:
 
 
 __all__ = ["CONTEXTS", "KEY", "LAST_OF_MONTH", "LOGS", "MONTH_ID", "Plan", "evaluate", "log_of", "missing_reason",
-           "month_shifted", "prepare", "run_plan", "with_steps"]
+           "month_shifted", "open_days_listed", "prepare", "run_plan", "with_steps"]
