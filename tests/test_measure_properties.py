@@ -85,6 +85,7 @@ def daily_tables(draw):
         pl.lit(1e6).alias("shares_out"),
         (pl.col("close") - tick / 200).alias("close_bid"),  # a closing quote half a price step either side
         (pl.col("close") + tick / 200).alias("close_ask"),
+        (pl.col("close") == pl.col("high")).alias("limit_day"),  # a daily flag for the limit-day counts
     )
     return add_market_return(frame.lazy()).collect()
 
@@ -145,7 +146,7 @@ def test_empty_table_gives_empty_output():
         schema={"security": pl.String, "date": pl.Date, "month": pl.Date, "open": pl.Float64, "high": pl.Float64,
                 "low": pl.Float64, "close": pl.Float64, "volume": pl.Float64, "dollar_volume": pl.Float64,
                 "n_trades": pl.Int64, "ret": pl.Float64, "shares_out": pl.Float64, "mkt_ret": pl.Float64,
-                "close_bid": pl.Float64, "close_ask": pl.Float64}
+                "close_bid": pl.Float64, "close_ask": pl.Float64, "limit_day": pl.Boolean}
     )
     for measure in MEASURES:
         out = run(measure, empty)

@@ -152,11 +152,11 @@ def load_market(name_or_path: str) -> dict:
     if not path.exists():
         known = ", ".join(sorted(p.stem for p in MARKETS_DIR.glob("*.yaml")))
         raise ConfigError(f"market profile '{name_or_path}' not found (looked for {path}); known profiles: {known}")
-    with open(path) as fh:
-        market = yaml.safe_load(fh)
-    for key in ("timezone", "sessions"):
-        if key not in market:
-            raise ConfigError(f"market profile {path} has no '{key}'")
+    try:
+        with open(path) as fh:
+            market = yaml.safe_load(fh)
+    except (yaml.YAMLError, ValueError) as exc:  # e.g. an unquoted date that is no date: 2023-02-30
+        raise ConfigError(f"market profile {path}: not readable as YAML ({exc}); write dates as 'YYYY-MM-DD'") from None
     from liqpanel.markets import check_market  # imports polars: not before the engine is pinned
 
     return check_market(market, path)

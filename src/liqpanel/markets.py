@@ -9,10 +9,31 @@ A profile is a small YAML file in ``liqpanel/market_profiles/`` (or any path):
       - ["12:55", "15:10"]    # a midday break between the two
     half_days:                # optional: local date -> early close
       "2021-11-16": "10:40"
-    holidays:                 # optional: local weekdays the market is closed
-      - 2021-11-17
-    tick_size: 0.01           # optional price grid, currency units
+    tick_size: 0.01           # optional price grid, currency units (or regimes, below)
     currency: ZZK             # optional currency code (ISO 4217 private use: ZZA-ZZZ)
+    calendar: XHKG            # optional: an exchange's code in the exchange-calendars library
+    holidays: [2021-12-24]    # optional closed days (on top of the library's, if any)
+    weekend: [saturday, sunday]   # optional, the default
+    price_limit: 0.10         # optional daily limit, a fraction of the previous close (or regimes)
+
+The trading calendar. A profile with ``calendar`` or ``holidays`` has an
+explicit one: its open days are the library's sessions (with ``calendar``)
+or the weekdays outside ``weekend`` (without), minus ``holidays``; the
+library also gives the time zone, the regular sessions with their midday
+break, and the early closes of the sample's years, and the profile's own
+``timezone``, ``sessions`` and ``half_days`` override them. A profile with
+neither has no calendar of its own: the measures stage then takes the
+market's days from the data (any date on which a security trades), the
+fallback this project used before calendars. ``trading_days`` lists the
+open days of an explicit calendar.
+
+Regimes. ``tick_size`` is a number, null, or a list of regimes in date
+order, each ``{from: YYYY-MM-DD, tick: 0.01}`` or ``{from: ..., bands:
+[{below: 1.0, tick: 0.001}, {tick: 0.01}]}`` (a band applies to prices
+below its bound; the last band has none). A regime is in force from its
+date until the next one's; before the first there is no tick.
+``price_limit`` is a fraction in (0, 1), null, or a list of ``{from: ...,
+limit: 0.1}`` (``limit: null`` lifts it).
 
 Session bounds are inclusive (common practice: the opening and the closing
 trade belong to the day). A session must close after it opens on the same
@@ -26,6 +47,7 @@ handful of sessions is unrolled into the expression, never a loop over rows.
 from __future__ import annotations
 
 import re
+import warnings
 import zoneinfo
 from datetime import date, datetime, time, timedelta, timezone
 from pathlib import Path
@@ -34,6 +56,9 @@ import polars as pl
 
 from liqpanel.errors import ConfigError
 
+PROFILE_KEYS = ("name", "timezone", "sessions", "half_days", "tick_size", "currency", "calendar", "holidays", "weekend",
+                "price_limit")
+WEEKDAYS = ("monday", "tuesday", "wednesday", "thursday", "friday", "saturday", "sunday")
 _CLOCK = re.compile(r"^([01][0-9]|2[0-3]):([0-5][0-9])(?::([0-5][0-9]))?$")
 
 
@@ -47,17 +72,25 @@ def parse_clock(text, *, where: str) -> time:
 
 
 def check_market(market: dict, path: str | Path) -> dict:
-    """Validate a loaded profile; return it with parsed ``_sessions``, ``_half_days`` and ``_holidays``.
+    """Validate a loaded profile; return it with parsed ``_sessions`` and ``_half_days``.
 
     Raises ConfigError naming the profile file, the key and what was expected.
     """
     where = f"market profile {path}"
     if not isinstance(market, dict):
         raise ConfigError(f"{where}: expected a mapping of keys to values")
-    allowed = {"name", "timezone", "sessions", "half_days", "holidays", "tick_size", "currency"}
-    unknown = sorted(set(market) - allowed)
+    unknown = sorted(set(market) - set(PROFILE_KEYS))
     if unknown:
-        raise ConfigError(f"{where}: unknown key '{unknown[0]}'; allowed keys: {', '.join(sorted(allowed))}")
+        raise ConfigError(f"{where}: unknown key '{unknown[0]}'; allowed keys: {', '.join(sorted(PROFILE_KEYS))}")
+    library = _library_calendar(market["calendar"], where) if market.get("calendar") is not None else None
+    for key in ("timezone", "sessions"):
+        if key not in market and library is None:
+            raise ConfigError(f"{where}: no '{key}' (give it, or name an exchange's calendar under 'calendar')")
+    if library is not None:
+        own = {key: market[key] for key in ("timezone", "sessions") if key in market}
+        market = {**market, "timezone": str(library.tz), **own}
+        if "sessions" not in own:
+            market["sessions"] = _library_sessions(library, where)
     try:
         zoneinfo.ZoneInfo(str(market["timezone"]))
     except (zoneinfo.ZoneInfoNotFoundError, ValueError):
@@ -83,37 +116,16 @@ def check_market(market: dict, path: str | Path) -> dict:
         except ValueError:
             raise ConfigError(f"{where}: half_days: {day!r} is not a date 'YYYY-MM-DD'") from None
         half_days[key] = parse_clock(close, where=f"{where}: half_days[{day}]")
-    holidays = _holidays(market.get("holidays"), where)
-    both = sorted(set(holidays) & set(half_days))
-    if both:
-        raise ConfigError(f"{where}: {both[0].isoformat()} is both a holiday and a half day; keep one")
-    tick = market.get("tick_size")
-    if tick is not None and not (isinstance(tick, (int, float)) and tick > 0):
-        raise ConfigError(f"{where}: tick_size: expected a positive number or null, got {tick!r}")
-    return {**market, "_sessions": parsed, "_half_days": half_days, "_holidays": holidays}
-
-
-def _holidays(listed, where: str) -> tuple[date, ...]:
-    """The profile's closed days: a list of distinct ISO dates 'YYYY-MM-DD', each a weekday, sorted."""
-    if listed is None:
-        return ()
-    if not isinstance(listed, list):
-        raise ConfigError(f"{where}: holidays: expected a list of dates 'YYYY-MM-DD', got {listed!r}")
-    days = []
-    for k, day in enumerate(listed):
-        try:
-            # YAML reads an unquoted 2021-03-10 as a date already
-            parsed = day if isinstance(day, date) and not isinstance(day, datetime) else date.fromisoformat(str(day))
-        except ValueError:
-            raise ConfigError(f"{where}: holidays[{k}]: {day!r} is not a date 'YYYY-MM-DD'") from None
-        if parsed.weekday() >= 5:
-            raise ConfigError(f"{where}: holidays[{k}]: {parsed.isoformat()} is a {parsed:%A}; weekends are "
-                              "closed already, list only weekdays")
-        days.append(parsed)
-    repeated = sorted({d for d in days if days.count(d) > 1})
-    if repeated:
-        raise ConfigError(f"{where}: holidays: {repeated[0].isoformat()} is listed twice")
-    return tuple(sorted(days))
+    weekend = _weekend(market.get("weekend"), f"{where}: weekend")
+    return {
+        **market,
+        "_sessions": parsed,
+        "_half_days": half_days,
+        "_holidays": _holidays(market.get("holidays"), where, weekend, half_days),
+        "_weekend": weekend,
+        "_tick_regimes": _tick_regimes(market.get("tick_size"), f"{where}: tick_size"),
+        "_limit_regimes": _limit_regimes(market.get("price_limit"), f"{where}: price_limit"),
+    }
 
 
 def sessions_of(market: dict) -> list[tuple[time, time]]:
@@ -221,3 +233,307 @@ def _offsets_within(zone_name: str, first: datetime, last: datetime) -> list[tup
             out.append((after, offset_at(after)))
         t = step
     return out
+
+
+# ---------------------------------------------------------------------------
+# Trading calendars
+
+
+def _library_calendar(code, where: str, start: date | None = None, end: date | None = None):
+    """The exchange-calendars calendar of ``code`` (over ``start``..``end``, else the library's default span).
+
+    Imported here, only for a profile that names a calendar: a clean or bars
+    job of any other profile never loads the library.
+    """
+    with warnings.catch_warnings():  # the library's pandas idioms warn under newer pandas; its values stand
+        warnings.simplefilter("ignore")
+        return _library_calendar_quietly(code, where, start, end)
+
+
+def _library_calendar_quietly(code, where: str, start: date | None, end: date | None):
+    import exchange_calendars
+
+    names = exchange_calendars.get_calendar_names(include_aliases=True)
+    if not isinstance(code, str) or code not in names:
+        close = [n for n in names if isinstance(code, str) and n.upper().startswith(code.upper()[:2])][:8]
+        hint = f"; codes starting alike: {', '.join(close)}" if close else ""
+        raise ConfigError(f"{where}: calendar: unknown exchange calendar {code!r} (a code of the exchange-calendars "
+                          f"library, e.g. XNYS or XHKG; `python -c 'import exchange_calendars as x; "
+                          f"print(x.get_calendar_names())'` lists them){hint}")
+    if start is None:
+        return exchange_calendars.get_calendar(code)
+    try:
+        return exchange_calendars.get_calendar(code, start=start.isoformat(), end=end.isoformat())
+    except ValueError as exc:  # a span the library does not cover
+        raise ConfigError(f"{where}: calendar: {code} does not cover {start}..{end}: {exc}") from None
+
+
+def _library_days(code, where: str, start: date, end: date):
+    """(open days, early closes, midday breaks) of the library's calendar ``code`` over ``start``..``end``, local."""
+    library = _library_calendar(code, where, start, end)
+    zone = zoneinfo.ZoneInfo(str(library.tz))
+    days = [d.date() for d in library.sessions]
+    closes = library.closes
+    early = {d.date(): closes[d].astimezone(zone).time() for d in library.early_closes}
+    starts, ends = library.break_starts, library.break_ends
+    breaks = {d.date(): (starts[d].astimezone(zone).time(), ends[d].astimezone(zone).time())
+              for d in library.sessions if starts[d] == starts[d]}  # NaT != NaT: no break that day
+    return days, early, breaks
+
+
+def _library_sessions(library, where: str) -> list[list[str]]:
+    """The regular sessions of a library calendar: [open, close], or two with its midday break."""
+    if library.open_offset or library.close_offset:
+        raise ConfigError(f"{where}: calendar {library.name}: its session opens or closes on another day than its "
+                          "date; give 'sessions' in the profile")
+    open_, close = library.open_times[-1][1], library.close_times[-1][1]
+    if library.break_start_times:
+        pause, resume = library.break_start_times[-1][1], library.break_end_times[-1][1]
+        return [[f"{open_:%H:%M}", f"{pause:%H:%M}"], [f"{resume:%H:%M}", f"{close:%H:%M}"]]
+    return [[f"{open_:%H:%M}", f"{close:%H:%M}"]]
+
+
+def _date(value, where: str) -> date:
+    if isinstance(value, date) and not isinstance(value, datetime):
+        return value
+    try:
+        return date.fromisoformat(str(value))
+    except ValueError:
+        raise ConfigError(f"{where}: {value!r} is not a date 'YYYY-MM-DD'") from None
+
+
+def _holidays(listed, where: str, weekend: tuple[int, ...], half_days: dict) -> tuple[date, ...]:
+    """The profile's closed days: distinct dates, none on the weekend or also a half day, sorted."""
+    if listed is None:
+        return ()
+    if not isinstance(listed, list):
+        raise ConfigError(f"{where}: holidays: expected a list of dates 'YYYY-MM-DD', got {listed!r}")
+    days = [_date(day, f"{where}: holidays[{k}]") for k, day in enumerate(listed)]
+    for k, day in enumerate(days):
+        if day.weekday() in weekend:
+            raise ConfigError(f"{where}: holidays[{k}]: {day.isoformat()} is a {day:%A}; weekends are closed already, "
+                              "list only days the market would otherwise open")
+    repeated = sorted({d for d in days if days.count(d) > 1})
+    if repeated:
+        raise ConfigError(f"{where}: holidays: {repeated[0].isoformat()} is listed twice")
+    both = sorted(set(days) & set(half_days))
+    if both:
+        raise ConfigError(f"{where}: {both[0].isoformat()} is both a holiday and a half day; keep one")
+    return tuple(sorted(days))
+
+
+def _weekend(values, where: str) -> tuple[int, ...]:
+    """Weekday numbers (Monday 0) of the weekend; Saturday and Sunday by default."""
+    if values is None:
+        return (5, 6)
+    if not isinstance(values, list) or any(str(v).lower() not in WEEKDAYS for v in values):
+        raise ConfigError(f"{where}: expected a list of weekday names ({', '.join(WEEKDAYS)}), got {values!r}")
+    return tuple(sorted({WEEKDAYS.index(str(v).lower()) for v in values}))
+
+
+def _positive(value, where: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0 or value != value:
+        raise ConfigError(f"{where}: expected a positive number, got {value!r}")
+    return float(value)
+
+
+def _regimes(value, where: str, one) -> tuple[tuple[date | None, object], ...]:
+    """((start, setting), ...) of a number, null or a list of ``{from: ..., ...}`` regimes in date order."""
+    if value is None:
+        return ()
+    if not isinstance(value, list):
+        return ((None, one(value, where)),)
+    out: list[tuple[date | None, object]] = []
+    for k, regime in enumerate(value):
+        at = f"{where}[{k}]"
+        if not isinstance(regime, dict) or "from" not in regime:
+            raise ConfigError(f"{at}: expected a mapping with 'from: YYYY-MM-DD', got {regime!r}")
+        start = _date(regime["from"], f"{at}: from")
+        if out and start <= out[-1][0]:
+            raise ConfigError(f"{at}: from {start} must come after the previous regime's {out[-1][0]}; list regimes "
+                              "in date order")
+        out.append((start, one({key: v for key, v in regime.items() if key != "from"}, at, regime=True)))
+    return tuple(out)
+
+
+def _tick_setting(value, where: str, regime: bool = False) -> tuple[tuple[float | None, float], ...] | None:
+    """((below, tick), ...): price bands, the last without a bound; None for no tick."""
+    if regime:
+        keys = set(value)
+        if keys not in ({"tick"}, {"bands"}):
+            raise ConfigError(f"{where}: expected 'tick: <number or null>' or 'bands: [...]' beside 'from', got "
+                              f"{sorted(keys)}")
+        if "tick" in value:
+            return None if value["tick"] is None else ((None, _positive(value["tick"], f"{where}: tick")),)
+        return _bands(value["bands"], f"{where}: bands")
+    return ((None, _positive(value, where)),)
+
+
+def _bands(bands, where: str) -> tuple[tuple[float | None, float], ...]:
+    if not isinstance(bands, list) or not bands:
+        raise ConfigError(f"{where}: expected a list of {{below: <price>, tick: <number>}}, the last without 'below'")
+    out: list[tuple[float | None, float]] = []
+    for k, band in enumerate(bands):
+        at = f"{where}[{k}]"
+        last = k == len(bands) - 1
+        if not isinstance(band, dict) or "tick" not in band or set(band) - {"below", "tick"}:
+            raise ConfigError(f"{at}: expected {{below: <price>, tick: <number>}}, got {band!r}")
+        if last != ("below" not in band):
+            raise ConfigError(f"{at}: every band but the last has 'below' (the last covers every higher price)")
+        below = None if last else _positive(band["below"], f"{at}: below")
+        if below is not None and out and below <= out[-1][0]:
+            raise ConfigError(f"{at}: below {below} overlaps the previous band (below {out[-1][0]}); bounds must "
+                              "increase")
+        out.append((below, _positive(band["tick"], f"{at}: tick")))
+    return tuple(out)
+
+
+def _limit_setting(value, where: str, regime: bool = False) -> float | None:
+    if regime:
+        if set(value) != {"limit"}:
+            raise ConfigError(f"{where}: expected 'limit: <fraction or null>' beside 'from', got {sorted(value)}")
+        value = value["limit"]
+        if value is None:
+            return None
+        where = f"{where}: limit"
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
+        raise ConfigError(f"{where}: expected a fraction of the previous close in (0, 1), e.g. 0.1, got {value!r}")
+    return float(value)
+
+
+def _tick_regimes(value, where: str):
+    return _regimes(value, where, _tick_setting)
+
+
+def _limit_regimes(value, where: str):
+    return _regimes(value, where, _limit_setting)
+
+
+def _checked(market: dict) -> dict:
+    return market if "_sessions" in market else check_market(market, market.get("name", "(given as a mapping)"))
+
+
+def has_calendar(market: dict) -> bool:
+    """Whether the profile has an explicit trading calendar (``calendar`` or ``holidays``)."""
+    return market.get("calendar") is not None or market.get("holidays") is not None
+
+
+def trading_days(market: dict, start, end) -> pl.DataFrame:
+    """The open days of an explicit calendar from ``start`` to ``end`` (dates, inclusive), sorted.
+
+    Columns: ``date``; ``early_close`` (the local close on a half day, else
+    null: the profile's ``half_days`` over the library's early closes);
+    ``break_start`` and ``break_end`` (the local midday break, null on a day
+    without one). Open days: the library's sessions (``calendar``) or the
+    weekdays outside ``weekend``, minus ``holidays``. A profile without a
+    calendar raises ConfigError: its days come from the data.
+    """
+    market = _checked(market)
+    where = f"market profile {market.get('name', '(given as a mapping)')}"
+    if not has_calendar(market):
+        raise ConfigError(f"{where}: no trading calendar (neither 'calendar' nor 'holidays'); the measures take "
+                          "the market's days from the data")
+    start, end = _date(start, f"{where}: start"), _date(end, f"{where}: end")
+    early: dict[date, time] = {}
+    breaks: dict[date, tuple[time, time]] = {}
+    if market.get("calendar") is not None:
+        with warnings.catch_warnings():  # the library's pandas idioms warn under newer pandas; its values stand
+            warnings.simplefilter("ignore")
+            days, early, breaks = _library_days(market["calendar"], where, start, end)
+    else:
+        weekend = set(market["_weekend"])
+        days = [start + timedelta(days=k) for k in range((end - start).days + 1)]
+        days = [d for d in days if d.weekday() not in weekend]
+        if len(market["_sessions"]) > 1:
+            (_, pause), (resume, _) = market["_sessions"][0], market["_sessions"][1]
+            breaks = {d: (pause, resume) for d in days}
+    closed = set(market["_holidays"])
+    early.update(market["_half_days"])
+    days = [d for d in days if start <= d <= end and d not in closed]
+    return pl.DataFrame(
+        {
+            "date": days,
+            "early_close": [early.get(d) for d in days],
+            "break_start": [breaks[d][0] if d in breaks else None for d in days],
+            "break_end": [breaks[d][1] if d in breaks else None for d in days],
+        },
+        schema={"date": pl.Date, "early_close": pl.Time, "break_start": pl.Time, "break_end": pl.Time},
+    )
+
+
+def sample_span(first_month: str, last_month: str) -> tuple[date, date]:
+    """The days a run's calendar covers: the sample's months (``YYYY-MM``) and the month before them.
+
+    The month before lends its last day to the estimators that pair days
+    across a month boundary.
+    """
+    first, last = (date.fromisoformat(f"{str(m)[:7]}-01") for m in (first_month, last_month))
+    before = date(first.year - (first.month == 1), (first.month - 2) % 12 + 1, 1)
+    after = date(last.year + (last.month == 12), last.month % 12 + 1, 1)
+    return before, after - timedelta(days=1)
+
+
+def for_sample(market: dict, start, end) -> dict:
+    """The profile with the library's early closes of ``start``..``end`` among its half days (its own win).
+
+    What the clean stage needs of a calendar-backed profile: the library's
+    half days of the sample's years. A profile without ``calendar`` is
+    returned as it is (no library is loaded).
+    """
+    market = _checked(market)
+    if market.get("calendar") is None:
+        return market
+    days = trading_days(market, start, end)
+    library = dict(days.filter(pl.col("early_close").is_not_null()).select("date", "early_close").iter_rows())
+    return {**market, "_half_days": {**library, **market["_half_days"]}}
+
+
+def _regime_expr(regimes, day: pl.Expr, value) -> pl.Expr:
+    """The regime in force on ``day`` as an expression: ``value(setting)`` of the latest regime started."""
+    out = pl.lit(None, dtype=pl.Float64)
+    for start, setting in regimes:
+        expr = value(setting)
+        out = expr if start is None else pl.when(day >= pl.lit(start)).then(expr).otherwise(out)
+    return out
+
+
+def tick_expr(market: dict, day: pl.Expr | None = None, price: pl.Expr | None = None) -> pl.Expr:
+    """The tick in force on each ``day`` (default the ``date`` column) at each ``price`` (default ``close``).
+
+    Null where no tick is in force. A price band applies to prices below its
+    bound (the last band to every higher price).
+    """
+    market = _checked(market)
+    day = pl.col("date") if day is None else day
+    price = pl.col("close") if price is None else price
+
+    def banded(bands) -> pl.Expr:
+        if bands is None:
+            return pl.lit(None, dtype=pl.Float64)
+        out = pl.lit(bands[-1][1])
+        for below, tick in reversed(bands[:-1]):
+            out = pl.when(price < below).then(pl.lit(tick)).otherwise(out)
+        return out
+
+    return _regime_expr(market["_tick_regimes"], day, banded).cast(pl.Float64)
+
+
+def limit_expr(market: dict, day: pl.Expr | None = None) -> pl.Expr:
+    """The daily price limit (a fraction of the previous close) in force on each ``day``; null where none."""
+    market = _checked(market)
+    day = pl.col("date") if day is None else day
+    return _regime_expr(market["_limit_regimes"], day, lambda v: pl.lit(v, dtype=pl.Float64)).cast(pl.Float64)
+
+
+def tick_is_constant(market: dict) -> bool:
+    """Whether the tick is one number (or none) for every day and price: no regimes, no bands."""
+    regimes = _checked(market)["_tick_regimes"]
+    return not regimes or (len(regimes) == 1 and regimes[0][0] is None and len(regimes[0][1]) == 1)
+
+
+def latest_tick(market: dict) -> float | None:
+    """One tick for the whole sample: the latest regime's, at the highest prices (its last band); None without one."""
+    regimes = _checked(market)["_tick_regimes"]
+    if not regimes or regimes[-1][1] is None:
+        return None
+    return regimes[-1][1][-1][1]

@@ -55,7 +55,7 @@ REQUIRED: dict[str, tuple[str, ...]] = {
 DATE_COLUMN = {"trades": "date", "quotes": "date", "daily": "date", "returns": "month", "factors": "month",
                "adjustments": "date", "truth": "month", "securities": None, "fx": "date"}
 # the daily columns the workflow adds whatever the source
-DERIVED_DAILY = {"month", "dollar_volume", "n_trades", "ret", "mkt_ret", "from_previous_month"}
+DERIVED_DAILY = {"month", "dollar_volume", "n_trades", "ret", "mkt_ret", "from_previous_month", "limit_day"}
 PANEL_KEYS = {"security", "month", "n_days", "ret_next"}
 
 
@@ -620,10 +620,24 @@ def market_problems(config: dict) -> list[Problem]:
                                     "several markets (`markets:`); this run has one"))
     if isinstance(config.get("market"), str):
         try:
-            load_market(config["market"])
+            _covers_sample(load_market(config["market"]), config)
         except LiqpanelError as exc:
             problems.append(Problem("market", str(exc)))
     return problems
+
+
+def _covers_sample(market: dict, config: dict) -> None:
+    """A profile on an exchange's calendar: the library's calendar covers the sample (ConfigError if not)."""
+    sample = config.get("sample")
+    if market.get("calendar") is None or not isinstance(sample, dict) or not {"start", "end"} <= set(sample):
+        return
+    from liqpanel.markets import sample_span, trading_days
+
+    try:
+        span = sample_span(sample["start"], sample["end"])
+    except ValueError:  # a sample month that is not a month: the schema check names it
+        return
+    trading_days(market, *span)
 
 
 def several_markets_problems(config: dict) -> list[Problem]:
@@ -640,6 +654,7 @@ def several_markets_problems(config: dict) -> list[Problem]:
     for code, name in spec["profiles"].items():
         try:
             profiles[code] = load_market(str(name))
+            _covers_sample(profiles[code], config)
         except LiqpanelError as exc:
             problems.append(Problem(f"markets.profiles.{code}", str(exc)))
     reporting = spec["reporting_currency"]

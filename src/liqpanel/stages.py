@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import sys
+from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -79,7 +80,7 @@ def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_q
 
 
 def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
-    market = load_markets(config)
+    market = _market(config)
     rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
     columns, formats = config.get("columns", {}), config.get("formats") or {}
@@ -132,7 +133,7 @@ def bars_month(clean_trades_path: str, out: str, config: dict | None = None, cle
     if config is None:
         write_parquet(bars_mod.trading_bars(trades), out)
         return
-    market = load_markets(config)
+    market = _market(config)
     quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
     columns = bars_mod.needed_columns(config["measures"]) if config.get("measures") else None
     # a clean partition is in security and time order (liqpanel.clean.kept_rows)
@@ -243,27 +244,49 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
     """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
     from liqpanel.measures import compute_monthly
-    from liqpanel.measures.frames import with_market_settings
+    from liqpanel.measures.frames import market_inputs
 
-    previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
+    start, end = _calendar_span(config) if "sample" in config else (None, None)
     market = load_markets(config)
-    if not several(market):
-        selection = with_market_settings(config["measures"], market.get("tick_size"))
-        write_parquet(compute_monthly(pl.scan_parquet(daily_path), selection, previous=previous), out)
-        return
-    # each market's securities measured on their own: its tick, its market return and its trading days
-    daily, parts = pl.scan_parquet(daily_path), []
-    present = set(daily.select(MARKET).unique().collect().to_series().to_list())
-    for code, profile in market["_members"].items():
+    members = market["_members"] if several(market) else {None: market}
+    daily = pl.scan_parquet(daily_path)
+    previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
+    present = set(daily.select(MARKET).unique().collect().to_series().to_list()) if several(market) else {None}
+    parts = []
+    for code, profile in members.items():  # each market on its own: its tick, its market return, its trading days
         if code not in present:
             continue
-        mine = pl.col(MARKET) == code
-        selection = with_market_settings(config["measures"], profile.get("tick_size"))
-        parts.append(compute_monthly(daily.filter(mine).drop(MARKET), selection,
-                                     previous=previous.filter(mine).drop(MARKET) if previous is not None else None))
-    frame = pl.concat(parts, how="diagonal_relaxed").sort("security", "month") if parts else compute_monthly(
-        daily.drop(MARKET), with_market_settings(config["measures"], None), previous=None)
-    write_parquet(frame, out)
+        mine, before = daily, previous
+        if code is not None:
+            mine = daily.filter(pl.col(MARKET) == code).drop(MARKET)
+            before = previous.filter(pl.col(MARKET) == code).drop(MARKET) if previous is not None else None
+        mine, selection, calendar = market_inputs(mine, config["measures"], profile, start, end)
+        if before is not None:
+            before = market_inputs(before, config["measures"], profile, start, end)[0]
+        parts.append(compute_monthly(mine, selection, previous=before, calendar=calendar))
+    if not parts:  # a month without any row
+        parts.append(compute_monthly(daily.drop(MARKET) if several(market) else daily,
+                                     market_inputs(daily, config["measures"], None)[1], previous=None))
+    write_parquet(pl.concat(parts, how="diagonal_relaxed").sort("security", "month") if len(parts) > 1 else parts[0],
+                  out)
+
+
+def _calendar_span(config: dict) -> tuple[date, date]:
+    """First and last day of the market calendar a run needs (``markets.sample_span``)."""
+    from liqpanel.markets import sample_span
+
+    return sample_span(config["sample"]["start"], config["sample"]["end"])
+
+
+def _market(config: dict) -> dict:
+    """The run's market (one profile or several, ``marketset.load_markets``) with the early closes of each
+    calendar-backed profile's calendar over the sample (``markets.for_sample``)."""
+    from liqpanel.markets import for_sample
+
+    market, span = load_markets(config), _calendar_span(config)
+    if several(market):
+        return {**market, "_members": {code: for_sample(m, *span) for code, m in market["_members"].items()}}
+    return for_sample(market, *span)
 
 
 def gather(paths: list[str], out: str, sort: list[str]) -> None:
@@ -618,13 +641,17 @@ def render_factors(factors_dir: str | Path, out: "rep.RunFolder", *, figures: bo
 def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_dir: str) -> None:
     """Calibrate to the daily table, run the simulation study, write its tables and an index."""
     from liqpanel import study as st
+    from liqpanel.markets import has_calendar, trading_days
 
     settings = config["study"]
     daily = pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed")
     monthly = pl.read_parquet(monthly_path) if monthly_path else None
-    pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"])
-    profile = load_markets(config)  # several markets: the study simulates the first one's clock
+    profile = load_markets(config)  # several markets: the study simulates the first one's clock and calendar
     profile = next(iter(profile["_members"].values())) if several(profile) else profile
+    calendar = None
+    if has_calendar(profile):
+        calendar = trading_days(profile, *_calendar_span(config)).select("date")
+    pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"], calendar=calendar)
     market = st.Market.from_profile(profile, settings["overnight_share"])
     result = st.run_study(pool, study=settings, measures=config["measures"], market=market)
     out = Path(out_dir)

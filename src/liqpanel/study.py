@@ -174,12 +174,21 @@ def estimator_selection(measures: dict[str, Any] | None, names: list[str] | None
 # ---------------------------------------------------------------- calibration
 
 
-def _market_days_in_span(daily: pl.LazyFrame) -> pl.LazyFrame:
+def _market_days_in_span(daily: pl.LazyFrame, calendar=None) -> pl.LazyFrame:
     """Per security-month: the market's trading days in the month within the security's listed span.
 
-    A market trading day is a date on which any security has a row; the
-    listed span runs from the security's first to its last date in the table.
+    A market trading day is an open day of the market's calendar when one is
+    given (``liqpanel.markets.trading_days``), else a date on which any
+    security has a row; the listed span runs from the security's first to
+    its last date in the table.
     """
+    if calendar is not None:
+        from liqpanel.measures.neighbours import open_day_numbers
+        from liqpanel.measures.plan import open_days_listed
+
+        base = (daily.group_by(KEY).agg(pl.col("date").min().alias("_first_date"), pl.col("date").max().alias("_last_date"))
+                .sort(KEY).collect(engine="in-memory"))
+        return base.select(*KEY, open_days_listed(base, open_day_numbers(calendar)).alias("n_days")).lazy()
     days = daily.select("date", "month").unique().sort("date").with_row_index("_day")
     span = days.group_by("month").agg(pl.col("_day").min().alias("_m_first"), pl.col("_day").max().alias("_m_last"))
     listed = (
@@ -206,8 +215,13 @@ def calibrate(
     *,
     study: dict[str, Any] | None = None,
     measures: dict[str, Any] | None = None,
+    calendar=None,
 ) -> tuple[pl.DataFrame, pl.DataFrame]:
     """Conditions of every security-month of the user's data, and the audit of the rows left out.
+
+    ``calendar``: the market's open days when its profile has a trading
+    calendar (then a holiday is not in the window and an open day without
+    a trade counts as one without trades); None infers the days from the data.
 
     Returns ``(pool, audit)``. ``pool`` has one row per calibrated
     security-month: ``security``, ``month``, ``n_days`` (window length: the
@@ -247,13 +261,13 @@ def calibrate(
                   and monthly.get_column(s["spread_column"]).drop_nulls().len() > 0)
     if not use_column:
         selection[s["fallback_spread"]] = {**(measures.get(s["fallback_spread"]) or {}), "min_days": 1}
-    estimates = compute_monthly(daily, selection)
+    estimates = compute_monthly(daily, selection, calendar=calendar)
     vol_out = REGISTRY[s["volatility"]].outputs[0]
     spread_out = s["spread_column"] if use_column else REGISTRY[s["fallback_spread"]].outputs[0]
     if use_column:
         estimates = estimates.join(monthly.select(*KEY, pl.col(spread_out).cast(pl.Float64)), on=KEY, how="left")
     frame = (
-        _market_days_in_span(daily)
+        _market_days_in_span(daily, calendar)
         .join(per_month, on=KEY, how="left")
         .collect(engine="in-memory")
         .join(estimates.select(*KEY, pl.col(vol_out).alias("daily_vol"), pl.col(spread_out).alias("_spread")), on=KEY, how="left")
@@ -379,10 +393,13 @@ class Market:
         """From a market profile: its time zone, its first open to its last close, its tick size.
 
         A midday break is not simulated (convention of this project): the
-        session runs from the first open to the last close.
+        session runs from the first open to the last close. With tick
+        regimes the simulator takes the latest (``markets.latest_tick``).
         """
+        from liqpanel.markets import latest_tick
+
         sessions = profile["sessions"]
-        tick = profile.get("tick_size")
+        tick = latest_tick(profile)
         return cls(
             timezone=profile["timezone"],
             session=(str(sessions[0][0]), str(sessions[-1][1])),

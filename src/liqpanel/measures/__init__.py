@@ -18,7 +18,7 @@ from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-fre
 from liqpanel.measures import blend as _blend  # noqa: F401  (the study's blend of spread estimators)
 from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)
 from liqpanel.measures.market import add_market_return
-from liqpanel.measures.neighbours import FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_MARK, month_flags
+from liqpanel.measures.neighbours import FIRST_OF_MONTH, LAST_OF_MONTH, PAIR_BREAK, SORTED_MARK, mark_pair_breaks, month_flags
 from liqpanel.measures.plan import MONTH_ID, evaluate, prepare
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
 from liqpanel.partition import PREVIOUS_DAY, with_previous_day
@@ -50,6 +50,7 @@ def compute_monthly(
     selection: dict[str, dict[str, Any] | None],
     *,
     previous: pl.LazyFrame | None = None,
+    calendar=None,
 ) -> pl.DataFrame:
     """Compute every selected measure per security-month.
 
@@ -84,13 +85,13 @@ def compute_monthly(
                 f"measure '{m.name}' needs daily column(s) {missing}, which the daily table lacks; "
                 "drop the measure from `measures:` or supply the column"
             )
-    prepared = prepare(daily)
+    prepared = prepare(daily, calendar)
     if add_market:  # on the sorted table: the day's sums run in security order without another sort
         prepared = add_market_return(prepared.lazy()).collect(engine="in-memory")
     options = {m.name: resolve_options(m, selection[m.name]) for m in measures}
     min_days = {name: opts.pop("min_days") for name, opts in options.items()}  # the rest go to the measure
     fused = [m for m in measures if m.plan is not None and PREVIOUS_DAY not in m.columns]
-    months, planned = evaluate(prepared, {m.name: m.plan(**options[m.name]) for m in fused})
+    months, planned = evaluate(prepared, {m.name: m.plan(**options[m.name]) for m in fused}, calendar)
     finished = pl.collect_all([_finish(planned[m.name].lazy(), m, min_days[m.name]) for m in fused], engine="in-memory")
     columns: dict[str, pl.DataFrame] = dict(zip([m.name for m in fused], finished))
     alone = [m for m in measures if m.name not in columns]
@@ -98,8 +99,10 @@ def compute_monthly(
         sorted_daily = prepared.drop(MONTH_ID).lazy()
         with_previous = sorted_daily
         if wants_previous_day:  # sorted by security, month and date: a lent day shares a date with a row of its own
-            own = sorted_daily.drop(SORTED_MARK, FIRST_OF_MONTH, LAST_OF_MONTH)
+            own = sorted_daily.drop(SORTED_MARK, FIRST_OF_MONTH, LAST_OF_MONTH, PAIR_BREAK)
             with_previous = month_flags(with_previous_day(own, previous))
+            if calendar is not None:  # the lent day pairs with the month's first unless an open day lies between
+                with_previous = mark_pair_breaks(with_previous.collect(engine="in-memory"), calendar).lazy()
         for m in alone:
             frame = m.function(with_previous if PREVIOUS_DAY in m.columns else sorted_daily, **options[m.name])
             frame = frame.collect(engine="in-memory") if isinstance(frame, pl.LazyFrame) else frame

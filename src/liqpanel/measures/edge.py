@@ -5,17 +5,24 @@ from __future__ import annotations
 import polars as pl
 
 from liqpanel.contracts import require_columns
+from liqpanel.measures.highlow import check_flat_days
 from liqpanel.measures.neighbours import previous_in_month
 from liqpanel.measures.plan import Plan, log_of, run_plan
 
 
-def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
+def edge_spread(daily: pl.LazyFrame, *, signed: bool = False, flat_days: str = "use") -> pl.LazyFrame:
     """Ardia, Guidotti & Kroencke (2024) efficient estimator of the spread ("EDGE").
 
     Uses each day t of the month together with the security's previous
     trading day t-1 in the same month (convention of this project: the month's
     first day has no previous day and is not used, so months are
-    self-contained). Log prices o, h, l, c; eta = (h + l)/2:
+    self-contained). With the market's trading calendar an open day without
+    a trade between t-1 and t breaks the pair (day t is not used), a closed
+    day between them does not; without one any gap is spanned (the
+    fallback; ``liqpanel.measures.neighbours``). ``flat_days``: "use"
+    (default, the paper's estimator, whose tau already discounts days
+    without price moves) or "drop" day t when day t or t-1 has high = low.
+    Log prices o, h, l, c; eta = (h + l)/2:
 
         r1 = eta_t - o_t,  r2 = o_t - eta_{t-1},  r3 = eta_t - c_{t-1},
         r4 = c_{t-1} - eta_{t-1},  r5 = o_t - c_{t-1}
@@ -51,7 +58,7 @@ def edge_spread(daily: pl.LazyFrame, *, signed: bool = False) -> pl.LazyFrame:
     Output ``edge_spread``; ``n_obs`` days with a previous day in the month.
     """
     require_columns(daily, ["security", "month", "date", "open", "high", "low", "close"], table="daily")
-    return run_plan(daily, edge_plan(signed=signed))
+    return run_plan(daily, edge_plan(signed=signed, flat_days=flat_days))
 
 
 def _quadratic_mean(coefficients: list[pl.Expr], names: list[str]) -> pl.Expr:
@@ -64,7 +71,7 @@ def _quadratic_mean(coefficients: list[pl.Expr], names: list[str]) -> pl.Expr:
     return total / pl.col("n")
 
 
-def edge_plan(*, signed: bool = False) -> Plan:
+def edge_plan(*, signed: bool = False, flat_days: str = "use") -> Plan:
     """The plan of ``edge_spread``: the estimator written in monthly sums.
 
     With the month's constants A = -4/po, B = -4/pc and k_j = mean(r_j)/pt,
@@ -82,6 +89,9 @@ def edge_plan(*, signed: bool = False) -> Plan:
     def masked(expr: pl.Expr) -> pl.Expr:
         return pl.when(valid).then(expr).otherwise(None)
 
+    present = pl.all_horizontal([x.is_not_null() for x in (O, H, L, C1, H1, L1)])
+    if check_flat_days(flat_days, "edge_spread"):
+        present = present & ~((H == L) | (H1 == L1)).fill_null(False)
     names = ("r1", "r2", "r3", "r4", "r5", "tau")
     steps = (
         {
@@ -93,7 +103,7 @@ def edge_plan(*, signed: bool = False) -> Plan:
         },
         {
             "_edge_eta_prev": previous_in_month(eta),
-            "_edge_valid": pl.all_horizontal([x.is_not_null() for x in (O, H, L, C1, H1, L1)]),
+            "_edge_valid": present,
         },
         {
             f"_edge_{name}": masked(expr)

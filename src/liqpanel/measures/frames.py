@@ -17,13 +17,58 @@ BY_NAME_ONLY = frozenset({"gibbs_spread", "lot_mixed", "lot_ysplit", "spread_ble
 TICK_MEASURES = ("effective_tick",)
 
 
-def with_market_settings(selection: dict[str, Any], tick_size: float | None) -> dict[str, Any]:
-    """``selection`` with the market's tick size given to the measures that need it, unless their options set it."""
+def with_market_settings(selection: dict[str, Any], tick_size: float | str | None) -> dict[str, Any]:
+    """``selection`` with the market's tick size given to the measures that need it, unless their options set it.
+
+    ``tick_size``: a number, ``"column"`` (a daily ``tick_size`` column: tick regimes) or None.
+    """
     out = dict(selection)
     for name in TICK_MEASURES:
         if name in out and (out[name] or {}).get("tick_size") is None and tick_size:
-            out[name] = {**(out[name] or {}), "tick_size": float(tick_size)}
+            out[name] = {**(out[name] or {}), "tick_size": tick_size if tick_size == "column" else float(tick_size)}
     return out
+
+
+def market_inputs(
+    daily: pl.LazyFrame, selection: dict[str, Any], market: dict | None, start=None, end=None
+) -> tuple[pl.LazyFrame, dict[str, Any], pl.DataFrame | None]:
+    """What a market profile gives the measures: (daily, selection, calendar).
+
+    - the tick: a single tick goes to the effective tick as its option
+      (``with_market_settings``); tick regimes or price bands add a daily
+      ``tick_size`` column (the tick in force on the day at its close,
+      ``liqpanel.markets.tick_expr``) and set the option to ``"column"``;
+    - the price limit: the daily flag ``limit_day`` (``liqpanel.measures.limits``,
+      False where no limit is in force), which ``limit_days`` counts;
+    - the calendar: the open days ``start``..``end`` of a profile with
+      ``calendar`` or ``holidays`` (``liqpanel.markets.trading_days``; the
+      days before the first month are kept for the previous month's day),
+      else None (the market's days come from the data).
+    """
+    from liqpanel.markets import has_calendar, tick_expr, tick_is_constant, trading_days
+    from liqpanel.measures.limits import LIMIT_DAY, limit_day_flag
+
+    names = daily.collect_schema().names()
+    if market is None:
+        if LIMIT_DAY not in names and any(LIMIT_DAY in REGISTRY[n].columns for n in selection if n in REGISTRY):
+            daily = daily.with_columns(limit_day_flag(None))
+        return daily, with_market_settings(selection, None), None
+    if tick_is_constant(market):
+        selection = with_market_settings(selection, market.get("tick_size"))
+    else:
+        if "tick_size" not in names:
+            daily = daily.with_columns(tick_expr(market).alias("tick_size"))
+        selection = with_market_settings(selection, "column")
+    if LIMIT_DAY not in names:
+        daily = daily.with_columns(limit_day_flag(market))
+    calendar = None
+    if has_calendar(market):
+        if start is None or end is None:
+            span = daily.select(pl.col("date").min().alias("first"), pl.col("date").max().alias("last")).collect()
+            start, end = span["first"][0], span["last"][0]
+        if start is not None:
+            calendar = trading_days(market, start, end).select("date")
+    return daily, selection, calendar
 
 
 def with_twelve_month_measures(monthly: pl.DataFrame) -> pl.DataFrame:
@@ -79,6 +124,8 @@ def compute(
     measures: Iterable[str] | dict[str, dict[str, Any] | None] | None = None,
     *,
     tick_size: float | None = None,
+    market: dict | str | None = None,
+    calendar=None,
 ):
     """Monthly measures from a daily frame, with their diagnostics: the notebook entry point.
 
@@ -95,6 +142,15 @@ def compute(
     default every registered measure whose columns the frame has, except
     the iterative estimators (``gibbs_spread`` and the LOT estimators), which
     run when named, and ``spread_blend``, which needs its weights. ``tick_size``: the market's tick, for the effective tick.
+
+    ``market``: a market profile (a shipped name, a path, or a mapping
+    checked by ``liqpanel.markets.check_market``), whose tick regimes, price
+    limit and trading calendar apply as in the workflow (``market_inputs``):
+    with ``calendar`` or ``holidays`` in the profile, a closed day is not a
+    day, an open day without a row is a day without trades, and it breaks
+    the pairs of consecutive days. ``calendar``: the open days themselves
+    (dates, or a frame with ``date``), instead of a profile's. Without
+    either, the market's days are the dates on which any security trades.
 
     Returns one row per (security, month): ``n_days``, every measure's
     outputs, ``<name>_n`` (observations used) and ``<name>_reason`` (why a
@@ -116,8 +172,26 @@ def compute(
         selection = dict(measures)
     else:
         selection = {name: None for name in measures}
-    monthly = with_twelve_month_measures(compute_monthly(frame.lazy(), with_market_settings(selection, tick_size)))
+    profile = _profile(market)
+    daily, selection, from_profile = market_inputs(frame.lazy(), selection, profile)
+    if profile is None and tick_size is not None:
+        selection = with_market_settings(selection, tick_size)
+    calendar = from_profile if calendar is None else calendar
+    monthly = with_twelve_month_measures(compute_monthly(daily, selection, calendar=calendar))
     return monthly.to_pandas() if from_pandas else monthly
 
 
-__all__ = ["compute", "with_market_settings", "with_twelve_month_measures"]
+def _profile(market: dict | str | None) -> dict | None:
+    """A market profile from its name or path (``liqpanel.config.load_market``) or a mapping, checked."""
+    if market is None:
+        return None
+    if isinstance(market, dict):
+        from liqpanel.markets import check_market
+
+        return market if "_sessions" in market else check_market(market, market.get("name", "(given as a mapping)"))
+    from liqpanel.config import load_market
+
+    return load_market(str(market))
+
+
+__all__ = ["compute", "market_inputs", "with_market_settings", "with_twelve_month_measures"]

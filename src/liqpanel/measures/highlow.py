@@ -4,8 +4,18 @@ Both estimators combine two consecutive trading days. Convention of this
 project: the pair is the security's trading day t and its next trading day
 t+1 within the same month; the pair that would straddle a month boundary is
 not used, so each month is self-contained (a month of n trading days gives
-n - 1 pairs). Days without trades have no row, so a pair may span a gap of
-calendar days.
+n - 1 pairs). Days without trades have no row. With the market's trading
+calendar (a profile with ``calendar`` or ``holidays``), an open day on which
+the security did not trade breaks the pair (the rows either side are not
+consecutive trading days), while a closed day between them does not (a pair
+across a holiday or a weekend is a pair). Without a calendar a pair may span
+any gap of calendar days (the fallback).
+
+Flat days (high = low, e.g. one trade or a price held at its daily limit)
+carry no range. ``flat_days="use"`` (default, what the papers do) keeps
+them; ``"drop"`` leaves out every pair with a flat day. Corwin & Schultz's
+own remedy for such days is not implemented (from memory, their published
+code adjusts some zero-range days; it is not quoted here).
 
 Units: proportional full spreads (0.01 = 1% of the price).
 """
@@ -22,11 +32,30 @@ from liqpanel.measures.neighbours import next_in_month
 from liqpanel.measures.plan import Plan, log_of, missing_reason, prepare, run_plan, with_steps
 
 NEGATIVE_CHOICES = ("zero", "keep")
+FLAT_DAY_CHOICES = ("use", "drop")
 _K = 3.0 - 2.0 * math.sqrt(2.0)  # the constant 3 - 2 sqrt(2) of Corwin & Schultz (2012)
 
 
 def _next_in_month(col: str) -> pl.Expr:
     return next_in_month(pl.col(col))
+
+
+def flat_day() -> pl.Expr:
+    """A day whose high equals its low: no range (``flat_days``)."""
+    return pl.col("high") == pl.col("low")
+
+
+def check_flat_days(flat_days: str, measure: str) -> bool:
+    """Whether pairs with a flat day are dropped; a ConfigError for an unknown choice."""
+    if flat_days not in FLAT_DAY_CHOICES:
+        raise ConfigError(f"measure '{measure}': option `flat_days` must be one of {FLAT_DAY_CHOICES}, got {flat_days!r}")
+    return flat_days == "drop"
+
+
+def _without_flat_pairs(piece: pl.Expr) -> pl.Expr:
+    """``piece`` of the pair (t, t+1), null when either day is flat."""
+    flat = flat_day() | next_in_month(flat_day()).fill_null(False)
+    return pl.when(~flat).then(piece)
 
 
 def _cs_steps() -> tuple[dict[str, pl.Expr], ...]:
@@ -65,11 +94,13 @@ def corwin_schultz_pieces(daily: pl.LazyFrame) -> pl.LazyFrame:
     return with_steps(prepare(daily).lazy(), _cs_steps()).with_columns(pl.col("_cs_two_day").alias("cs_two_day"))
 
 
-def corwin_schultz_plan(*, negative: str = "zero") -> Plan:
+def corwin_schultz_plan(*, negative: str = "zero", flat_days: str = "use") -> Plan:
     """The plan of ``corwin_schultz_spread`` (see there)."""
     if negative not in NEGATIVE_CHOICES:
         raise ConfigError(f"measure 'cs_spread': option `negative` must be one of {NEGATIVE_CHOICES}, got {negative!r}")
     two_day = pl.col("_cs_two_day")
+    if check_flat_days(flat_days, "cs_spread"):
+        two_day = _without_flat_pairs(two_day)
     if negative == "zero":
         two_day = two_day.clip(lower_bound=0.0)
     return Plan(
@@ -83,7 +114,7 @@ def corwin_schultz_plan(*, negative: str = "zero") -> Plan:
     )
 
 
-def corwin_schultz_spread(daily: pl.LazyFrame, *, negative: str = "zero") -> pl.LazyFrame:
+def corwin_schultz_spread(daily: pl.LazyFrame, *, negative: str = "zero", flat_days: str = "use") -> pl.LazyFrame:
     """Corwin & Schultz (2012) high-low spread estimator, monthly.
 
     For consecutive trading days t, t+1 of the month (H, L daily high and low):
@@ -101,7 +132,10 @@ def corwin_schultz_spread(daily: pl.LazyFrame, *, negative: str = "zero") -> pl.
     two-day estimates to zero before averaging; ``"keep"`` averages them as
     they are. Flooring biases the mean up when the spread is small relative
     to daily volatility. The monthly estimate is the mean of the two-day
-    estimates.
+    estimates. Pairs: consecutive trading days of the month; with the
+    market's calendar an open day without a trade breaks a pair and a
+    holiday does not (module docstring). ``flat_days``: "use" (default)
+    or "drop" pairs with a day whose high equals its low.
 
     Assumptions: the daily high is a buyer-initiated trade and the low a
     seller-initiated one; the variance of the efficient price is proportional
@@ -117,7 +151,7 @@ def corwin_schultz_spread(daily: pl.LazyFrame, *, negative: str = "zero") -> pl.
     two-day pairs; ``reason`` "no_consecutive_days" when the month has no pair.
     """
     require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    return run_plan(daily, corwin_schultz_plan(negative=negative))
+    return run_plan(daily, corwin_schultz_plan(negative=negative, flat_days=flat_days))
 
 
 def _ar_piece() -> pl.Expr:
@@ -127,8 +161,10 @@ def _ar_piece() -> pl.Expr:
     return 4.0 * (close - eta) * (close - next_in_month(eta))
 
 
-def _ar_plan(estimate: pl.Expr, name: str) -> Plan:
+def _ar_plan(estimate: pl.Expr, name: str, flat_days: str) -> Plan:
     piece = _ar_piece()
+    if check_flat_days(flat_days, name):
+        piece = _without_flat_pairs(piece)
     n = pl.col("n")
     return Plan(
         sums={"sum": piece, "sum_root": piece.clip(lower_bound=0.0).sqrt(), "n": piece.is_not_null()},
@@ -140,17 +176,17 @@ def _ar_plan(estimate: pl.Expr, name: str) -> Plan:
     )
 
 
-def abdi_ranaldo_two_day_plan() -> Plan:
+def abdi_ranaldo_two_day_plan(*, flat_days: str = "use") -> Plan:
     """The plan of ``abdi_ranaldo_two_day_spread``: the mean of the floored square roots."""
-    return _ar_plan(pl.col("sum_root") / pl.col("n"), "ar_spread_2day")
+    return _ar_plan(pl.col("sum_root") / pl.col("n"), "ar_spread_2day", flat_days)
 
 
-def abdi_ranaldo_monthly_plan() -> Plan:
+def abdi_ranaldo_monthly_plan(*, flat_days: str = "use") -> Plan:
     """The plan of ``abdi_ranaldo_monthly_spread``: the floored square root of the mean piece."""
-    return _ar_plan((pl.col("sum") / pl.col("n")).clip(lower_bound=0.0).sqrt(), "ar_spread_monthly")
+    return _ar_plan((pl.col("sum") / pl.col("n")).clip(lower_bound=0.0).sqrt(), "ar_spread_monthly", flat_days)
 
 
-def abdi_ranaldo_two_day_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
+def abdi_ranaldo_two_day_spread(daily: pl.LazyFrame, *, flat_days: str = "use") -> pl.LazyFrame:
     """Abdi & Ranaldo (2017) close-high-low spread, two-day corrected variant.
 
     With log prices c (close), h, l and the mid-range eta_t = (h_t + l_t)/2,
@@ -171,14 +207,19 @@ def abdi_ranaldo_two_day_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
     spreads from daily close, high, and low prices", Review of Financial
     Studies 30(12), 4437-4480.
 
+    Pairs: consecutive trading days of the month; with the market's
+    calendar an open day without a trade breaks a pair and a holiday does
+    not (module docstring). ``flat_days``: "use" (default, the paper's
+    estimator) or "drop" pairs with a day whose high equals its low.
+
     Output ``ar_spread_2day``; ``n_obs`` pairs used; ``reason``
     "no_consecutive_days" when the month has no pair.
     """
     require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    return run_plan(daily, abdi_ranaldo_two_day_plan())
+    return run_plan(daily, abdi_ranaldo_two_day_plan(flat_days=flat_days))
 
 
-def abdi_ranaldo_monthly_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
+def abdi_ranaldo_monthly_spread(daily: pl.LazyFrame, *, flat_days: str = "use") -> pl.LazyFrame:
     """Abdi & Ranaldo (2017) close-high-low spread, monthly variant.
 
     The monthly estimate is sqrt(max(mean_t s_t^2, 0)) with the two-day pieces
@@ -188,16 +229,20 @@ def abdi_ranaldo_monthly_spread(daily: pl.LazyFrame) -> pl.LazyFrame:
     Close to unbiased when the spread is not small relative to volatility.
 
     Source: Abdi, F. & Ranaldo, A. (2017), Review of Financial Studies 30(12),
-    4437-4480. Units and assumptions as for the two-day variant.
+    4437-4480. Units, assumptions, pairs and ``flat_days`` as for the
+    two-day variant.
 
     Output ``ar_spread_monthly``; ``n_obs`` pairs used; ``reason``
     "no_consecutive_days" when the month has no pair.
     """
     require_columns(daily, ["security", "month", "date", "high", "low", "close"], table="daily")
-    return run_plan(daily, abdi_ranaldo_monthly_plan())
+    return run_plan(daily, abdi_ranaldo_monthly_plan(flat_days=flat_days))
 
 
 __all__ = [
+    "FLAT_DAY_CHOICES",
+    "check_flat_days",
+    "flat_day",
     "abdi_ranaldo_monthly_plan",
     "abdi_ranaldo_monthly_spread",
     "abdi_ranaldo_two_day_plan",

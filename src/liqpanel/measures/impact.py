@@ -49,8 +49,11 @@ def zero_return_share(daily: pl.LazyFrame, *, calendar: str = "market") -> pl.La
     where the days are the month's market trading days within the security's
     listed span and a day without a trade has an unchanged price, i.e. a zero
     return. Convention of this project: with ``calendar="market"`` (default)
-    the market's trading days are the dates on which any security of the input
-    has a row, and the listed span runs from the security's first to its last
+    the market's trading days are the open days of its trading calendar when
+    the profile has one (``calendar`` or ``holidays``; a closed day is not a
+    day, an open day without a row is a day without a trade), else the dates
+    on which any security of the input has a row (the fallback), and the
+    listed span runs from the security's first to its last
     date in the input; with ``calendar="security"`` only the security's own
     rows count. Days whose return is missing (a security's first day) are left
     out of both counts.
@@ -125,7 +128,9 @@ def pastor_stambaugh_gamma(daily: pl.LazyFrame, *, dollar_volume_unit: float = 1
     r_t the security's return, r^e_t = r_t - r_m,t its return in excess of the
     market return ``mkt_ret``, v_t the dollar volume in millions (divided by
     ``dollar_volume_unit``, default 10^6). Day t+1 is the security's next
-    trading day within the same month (convention of this project). gamma is
+    trading day within the same month (convention of this project); with the
+    market's calendar an open day without a trade between t and t+1 drops
+    the observation, a closed day does not (``liqpanel.measures.neighbours``). gamma is
     solved for all security-months at once from group-wise centred cross
     products (the normal equations with the intercept partialled out):
 

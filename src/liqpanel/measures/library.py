@@ -36,6 +36,7 @@ from liqpanel.measures.liu import LM1_DEFLATOR, liu_lm, liu_plan
 from liqpanel.measures.lot import lot_mixed, lot_ysplit
 from liqpanel.measures.registry import Measure, register
 from liqpanel.measures.roll import roll_spread, roll_spread_plan
+from liqpanel.measures.limits import limit_days, limit_days_plan
 from liqpanel.measures.ticks import DECIMAL_MULTIPLES, effective_tick, effective_tick_plan
 from liqpanel.measures.volatility import (
     close_to_close_plan,
@@ -117,7 +118,7 @@ MEASURES = (
         source="Corwin & Schultz (2012), Journal of Finance 67(2)",
         family="spread",
         min_days=MIN_DAYS,
-        options={"negative": "zero"},
+        options={"negative": "zero", "flat_days": "use"},
         description="high-low spread from two-day ranges with the overnight adjustment, monthly mean",
     ),
     Measure(
@@ -129,7 +130,7 @@ MEASURES = (
         source="Abdi & Ranaldo (2017), Review of Financial Studies 30(12)",
         family="spread",
         min_days=MIN_DAYS,
-        options={},
+        options={"flat_days": "use"},
         description="close-high-low spread, mean of floored two-day square roots",
     ),
     Measure(
@@ -141,7 +142,7 @@ MEASURES = (
         source="Abdi & Ranaldo (2017), Review of Financial Studies 30(12)",
         family="spread",
         min_days=MIN_DAYS,
-        options={},
+        options={"flat_days": "use"},
         description="close-high-low spread, square root of the floored monthly mean of two-day pieces",
     ),
     Measure(
@@ -153,7 +154,7 @@ MEASURES = (
         source="Ardia, Guidotti & Kroencke (2024), Journal of Financial Economics 161",
         family="spread",
         min_days=MIN_DAYS,
-        options={"signed": False},
+        options={"signed": False, "flat_days": "use"},
         description="efficient open-high-low-close spread estimator (EDGE)",
     ),
     Measure(
@@ -286,6 +287,18 @@ MEASURES = (
         min_days=1,  # a monthly total: defined whenever the security traded in the month
         options={},
         description="month's share volume divided by shares outstanding at the month's end",
+    ),
+    Measure(
+        name="limit_days",
+        function=limit_days,
+        plan=limit_days_plan,
+        outputs=("limit_days", "flat_days"),
+        columns=("high", "low", "close", "limit_day"),
+        source="common practice (counts of days at the daily price limit and of days with high = low)",
+        family="activity",
+        min_days=1,
+        options={},
+        description="days closing at the daily price limit and days whose high equals their low",
     ),
     Measure(
         name="ps_gamma",

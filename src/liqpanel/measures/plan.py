@@ -50,7 +50,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import polars as pl
 
-from liqpanel.measures.neighbours import FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_MARK, month_flags
+from liqpanel.measures.neighbours import (FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_MARK, mark_pair_breaks, month_flags,
+                                          open_day_numbers)
 
 KEY = ["security", "month"]
 MONTH_ID = "_month_id"
@@ -119,21 +120,26 @@ def _is_sorted(frame: pl.DataFrame) -> bool:
     return bool(frame.select((ordered.fill_null(False) | last).all()).item())
 
 
-def prepare(daily: pl.LazyFrame | pl.DataFrame) -> pl.DataFrame:
+def prepare(daily: pl.LazyFrame | pl.DataFrame, calendar=None) -> pl.DataFrame:
     """The daily table in (security, date) order with the month flags, ``MONTH_ID`` and the logs, in memory.
 
     A table that arrives sorted (the workflow writes its daily files sorted)
     is checked with one comparison of neighbouring rows instead of a sort.
     ``MONTH_ID`` numbers the security-months 0, 1, ... in table order and is
     flagged sorted, so the group-by over it works on contiguous slices.
+    ``calendar``: the market's open days (``liqpanel.markets.trading_days``),
+    which mark the pairs of rows an open day without a trade separates
+    (``liqpanel.measures.neighbours.mark_pair_breaks``); None: no break.
     """
     frame = daily.collect(engine="in-memory") if isinstance(daily, pl.LazyFrame) else daily
     if SORTED_MARK in frame.columns and MONTH_ID in frame.columns:
-        return frame
+        return frame if calendar is None else mark_pair_breaks(frame, calendar)
     if SORTED_MARK not in frame.columns:
         if not _is_sorted(frame):
             frame = frame.sort("security", "date")
         frame = month_flags(frame.lazy()).collect(engine="in-memory")
+    if calendar is not None:
+        frame = mark_pair_breaks(frame, calendar)
     month_id = (pl.col(FIRST_OF_MONTH).cum_sum() - 1).cast(pl.UInt32).set_sorted()
     return frame.with_columns(month_id.alias(MONTH_ID), *_logs(frame))
 
@@ -193,12 +199,15 @@ def with_steps(table: pl.LazyFrame, steps: list[dict[str, pl.Expr]] | tuple[dict
     return table
 
 
-def _market_days(base: pl.DataFrame, prepared: pl.DataFrame) -> pl.Series:
+def _market_days(base: pl.DataFrame, prepared: pl.DataFrame, calendar=None) -> pl.Series:
     """Market trading days of each security-month within the security's listed span.
 
-    The market's trading days are the dates on which any security of the
-    table has a row; the listed span runs from the security's first to its
-    last date in the table (convention of this project, see
+    The market's trading days are the open days of its calendar when one is
+    given (``liqpanel.markets.trading_days``: a closed day is not a day, an
+    open day without a trade is a no-trade day), else, the fallback, the
+    dates on which any security of the table has a row. The listed span
+    runs from the security's first to its last date in the table
+    (convention of this project, see
     ``liqpanel.measures.impact.zero_return_share``). Days are numbered
     through a calendar array (one cell per calendar day), so no join or sort
     of the daily rows is needed.
@@ -206,6 +215,8 @@ def _market_days(base: pl.DataFrame, prepared: pl.DataFrame) -> pl.Series:
     if prepared.height == 0:
         return pl.Series("market_days", [], dtype=pl.Int64)
     day = prepared["date"].cast(pl.Int32).to_numpy()
+    if calendar is not None:
+        return open_days_listed(base, open_day_numbers(calendar))
     origin = int(day.min())
     present = np.zeros(int(day.max()) - origin + 1, dtype=bool)
     present[day - origin] = True
@@ -240,8 +251,27 @@ def _market_days(base: pl.DataFrame, prepared: pl.DataFrame) -> pl.Series:
     return spans.select(days_listed.alias("market_days")).to_series()
 
 
-def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFrame, dict[str, pl.DataFrame]]:
+def open_days_listed(base: pl.DataFrame, calendar: np.ndarray) -> pl.Series:
+    """Open days of the calendar in each security-month within the security's listed span (binary searches)."""
+    listed = base.select(
+        pl.col("_first_date").min().over("security").cast(pl.Int32),
+        pl.col("_last_date").max().over("security").cast(pl.Int32),
+        pl.col("month").cast(pl.Int32).alias("_month_first"),
+        pl.col("month").dt.month_end().cast(pl.Int32).alias("_month_last"),
+    )
+    lo = np.maximum(listed["_month_first"].to_numpy(), listed["_first_date"].to_numpy())
+    hi = np.minimum(listed["_month_last"].to_numpy(), listed["_last_date"].to_numpy())
+    count = np.searchsorted(calendar, hi, side="right") - np.searchsorted(calendar, lo, side="left")
+    return pl.Series("market_days", np.maximum(count, 0), dtype=pl.Int64)
+
+
+def evaluate(
+    prepared: pl.DataFrame, plans: dict[str, Plan], calendar=None
+) -> tuple[pl.DataFrame, dict[str, pl.DataFrame]]:
     """Run the plans in one pass over ``prepare``'s output.
+
+    ``calendar``: the market's open days, for the ``market_days`` context
+    (see ``_market_days``); None infers them from the data.
 
     Returns the months (``security``, ``month``, ``n_days``, in table order:
     sorted by security and month) and, per measure, its ``monthly`` columns
@@ -292,7 +322,7 @@ def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFra
     with ThreadPoolExecutor(max_workers=pl.thread_pool_size()) as pool:
         monthly = pl.concat([one_pass(rows, pool) for rows in _blocks(prepared)])
     if "market_days" in wants_context:
-        monthly = monthly.with_columns(_market_days(monthly, prepared))
+        monthly = monthly.with_columns(_market_days(monthly, prepared, calendar))
     queries = []
     for measure, plan in plans.items():
         local = {**sum_names[measure], **last_names[measure]}
@@ -306,9 +336,12 @@ def evaluate(prepared: pl.DataFrame, plans: dict[str, Plan]) -> tuple[pl.DataFra
     return monthly.select(*KEY, "n_days"), results
 
 
-def run_plan(daily: pl.LazyFrame | pl.DataFrame, plan: Plan) -> pl.LazyFrame:
-    """One measure's plan on a daily table: one row per (security, month) with its monthly columns, sorted."""
-    base, results = evaluate(prepare(daily), {"measure": plan})
+def run_plan(daily: pl.LazyFrame | pl.DataFrame, plan: Plan, calendar=None) -> pl.LazyFrame:
+    """One measure's plan on a daily table: one row per (security, month) with its monthly columns, sorted.
+
+    ``calendar``: the market's open days (see ``prepare`` and ``evaluate``), or None.
+    """
+    base, results = evaluate(prepare(daily, calendar), {"measure": plan}, calendar)
     return pl.concat([base.select(KEY), results["measure"]], how="horizontal").lazy()
 
 
@@ -318,4 +351,4 @@ def missing_reason(condition: pl.Expr, reason: str) -> pl.Expr:
 
 
 __all__ = ["CONTEXTS", "KEY", "LAST_OF_MONTH", "LOGS", "MONTH_ID", "Plan", "evaluate", "log_of", "missing_reason",
-           "month_shifted", "prepare", "run_plan", "with_steps"]
+           "month_shifted", "open_days_listed", "prepare", "run_plan", "with_steps"]

@@ -104,7 +104,12 @@ def roll_spread(daily: pl.LazyFrame, *, series: str = "log_price", convention: s
     ``convention`` for gamma1 >= 0, where the estimator is undefined:
     "missing" (null, default), "zero" (0), or "signed" (-2 sqrt(gamma1)).
     The month's returns include its first day's change from the previous
-    month's close.
+    month's close. Pairs (dp_t, dp_{t-1}) are the security's consecutive
+    returns in the month; with the market's calendar, a return that follows
+    an open day without a trade does not pair with the one before it (the
+    autocovariance leaves that product out, gamma0 keeps both returns),
+    while a closed day (holiday, weekend) between them breaks nothing.
+    Without a calendar every neighbouring pair of rows is a pair.
 
     Outputs (per security-month): ``roll_spread`` (proportional full spread),
     ``roll_efficient_var`` (sigma_u^2 per day, in squared log-return units),

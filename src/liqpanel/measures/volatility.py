@@ -197,7 +197,9 @@ def yang_zhang_volatility(daily: pl.LazyFrame, *, annualise: bool = False, tradi
     """Yang & Zhang (2000) drift-independent volatility including the overnight move.
 
     Formula, over the n days of the month that have a previous trading day in
-    the same month:
+    the same month (with the market's calendar, a day after an open day
+    without a trade has none; a closed day between them does not count,
+    ``liqpanel.measures.neighbours``):
 
         sigma^2 = sigma_o^2 + k sigma_c^2 + (1 - k) sigma_RS^2,
         k = 0.34 / (1.34 + (n + 1) / (n - 1)),
