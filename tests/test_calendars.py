@@ -232,7 +232,7 @@ def test_limit_days_and_flat_days_are_flagged_and_counted():
     [
         ({"calendar": "XQQQ"}, "calendar: unknown exchange calendar 'XQQQ'"),
         ({"timezone": "UTC", "sessions": [["09:00", "17:00"]], "holidays": ["2023-02-30"]},
-         "holidays: '2023-02-30' is not a date"),
+         "holidays[0]: '2023-02-30' is not a date"),
         ({"timezone": "UTC", "sessions": [["09:00", "17:00"]],
           "tick_size": [{"from": "2022-01-01", "tick": 0.01}, {"from": "2021-01-01", "tick": 0.05}]},
          "tick_size[1]: from 2021-01-01 must come after the previous regime's 2022-01-01"),
