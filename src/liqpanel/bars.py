@@ -38,7 +38,10 @@ def trading_bars(trades: pl.LazyFrame, timezone: str | None = None, *, in_order:
     ``trades`` follows the trades contract; if it has no ``date`` column the
     local date is taken in ``timezone``. ``in_order``: the trades are already
     in security and time order (a clean partition is), so the days are
-    aggregated in that order without sorting the security names.
+    aggregated in that order without sorting the security names. Otherwise
+    the sort is stable: trades of one security at the same instant keep
+    their order in ``trades``, so the open, the close and the sums do not
+    change from one run to the next.
     """
     if "date" not in trades.collect_schema().names():
         if timezone is None:
@@ -47,15 +50,17 @@ def trading_bars(trades: pl.LazyFrame, timezone: str | None = None, *, in_order:
     if in_order:
         days = trades.group_by("security", "date", maintain_order=True)
     else:
-        days = trades.sort("security", "ts").group_by("security", "date")
+        days = trades.sort("security", "ts", maintain_order=True).group_by("security", "date")
     bars = (
         days.agg(
             pl.col("price").first().alias("open"),
             pl.col("price").max().alias("high"),
             pl.col("price").min().alias("low"),
             pl.col("price").last().alias("close"),
-            pl.col("size").sum().alias("volume"),
-            (pl.col("price") * pl.col("size")).sum().alias("dollar_volume"),
+            # added in time order (liqpanel.stable): a parallel sum adds partial sums in an order that may
+            # change from run to run, and with it the last digit
+            pl.col("size").drop_nulls().cum_sum().last().alias("volume"),
+            (pl.col("price") * pl.col("size")).drop_nulls().cum_sum().last().alias("dollar_volume"),
             pl.len().cast(pl.Int64).alias("n_trades"),
         )
         .with_columns(
