@@ -17,16 +17,19 @@ MAPPING = yaml.safe_load((REPO / "config" / "daily_example.yaml").read_text())["
 
 def test_daily_file_gives_the_same_measures_as_the_trades():
     # the example file is the demo's daily bars written with 10 decimals, so
-    # measures agree with the trade path to that rounding
+    # measures agree with the trade path to that rounding; each market's days
+    # are its own local days (demo_data/README.md)
+    listing = pl.read_parquet(REPO / "demo_data" / "securities.parquet")
     from_file = read_daily_file(str(REPO / "demo_data" / "daily_example.csv.gz"), MAPPING)
     trades = pl.scan_parquet(REPO / "demo_data" / "trades.parquet").filter(pl.col("true_sign") != 0)
-    from_trades = daily_bars(trades, timezone="America/New_York")
     selection = {"roll_spread": {"convention": "signed"}, "amihud": {}}
-    a = compute_monthly(from_file, selection)
-    b = compute_monthly(from_trades, selection)
-    assert a.height == b.height == 960
-    for column in ("roll_spread", "amihud", "n_days"):
-        assert a[column].to_numpy() == pytest.approx(b[column].to_numpy(), rel=1e-6, abs=1e-8, nan_ok=True), column
+    for code, zone, securities in (("HBR", "America/New_York", 40), ("GUL", "Asia/Singapore", 8)):
+        mine = pl.col("security").is_in(listing.filter(pl.col("market") == code).get_column("security").implode())
+        a = compute_monthly(from_file.filter(mine), selection)
+        b = compute_monthly(daily_bars(trades.filter(mine), timezone=zone), selection)
+        assert a.height == b.height == securities * 24
+        for column in ("roll_spread", "amihud", "n_days"):
+            assert a[column].to_numpy() == pytest.approx(b[column].to_numpy(), rel=1e-6, abs=1e-8, nan_ok=True), column
 
 
 def test_return_is_computed_when_the_file_has_none(tmp_path):

@@ -25,6 +25,7 @@ import pytest
 import yaml
 
 from liqpanel.cli import main
+from tests.demo_config import one_market
 
 ROOT = Path(__file__).resolve().parents[1]
 DAILY_FILE = ROOT / "demo_data" / "daily_example.csv.gz"
@@ -82,7 +83,7 @@ def write_daily_csv(path: Path, rows: list[str], header: str = "ticker,trade_day
 
 
 def small_daily(tmp_path: Path, rows: list[str]) -> dict:
-    config = daily_config(tmp_path)
+    config = one_market(daily_config(tmp_path))
     config["inputs"]["daily"] = str(write_daily_csv(tmp_path / "vendor_daily.csv", rows))
     config["columns"]["daily"] = {"ticker": "security", "trade_day": "date", "first_px": "open", "top_px": "high",
                                   "bottom_px": "low", "last_px": "close", "qty": "volume"}
@@ -157,6 +158,7 @@ def test_results_folder_that_cannot_be_written(tmp_path, capsys):
 
 def test_unknown_market_profile(tmp_path, capsys):
     config = daily_config(tmp_path)
+    config.pop("markets"), config["inputs"].pop("fx")
     config["market"] = "atlantis"
     check(tmp_path, capsys, config, "market: market profile 'atlantis' not found", "known profiles: demo")
 
@@ -167,7 +169,7 @@ def _two_markets(tmp_path: Path, codes: list[str]) -> dict:
     names = pl.read_parquet(ROOT / "demo_data" / "securities.parquet").get_column("security").sort().to_list()
     (tmp_path / "listing.csv").write_text("ticker,exch\n" + "".join(
         f"{name},{codes[i % len(codes)]}\n" for i, name in enumerate(names)))
-    del config["market"]
+    config["inputs"].pop("fx")
     config["markets"] = {"column": "exch", "profiles": {"HBR": "demo", "KPX": "kestrel"}, "reporting_currency": "ZZH"}
     config["inputs"]["securities"] = str(tmp_path / "listing.csv")
     config["columns"] = {"securities": {"ticker": "security"}}
@@ -198,10 +200,10 @@ def test_fx_rate_that_is_not_positive(tmp_path, capsys):
 
 
 def test_per_market_words_in_a_one_market_run(tmp_path, capsys):
-    config = trades_config(tmp_path)
+    config = one_market(trades_config(tmp_path))
     config["models"]["sorts"][0]["breakpoints"] = "per_market"
     check(tmp_path, capsys, config, "models.sorts[roll_terciles]: breakpoints: per_market needs several markets")
-    config = trades_config(tmp_path)
+    config = one_market(trades_config(tmp_path))
     config["models"]["regressions"][0].update(estimator="pooled", covariance="clustered", cluster=["market"])
     check(tmp_path, capsys, config, "models.regressions[roll_only]: market effects or clusters need several markets")
 
@@ -358,6 +360,7 @@ def test_every_problem_is_listed_at_once(tmp_path, capsys):
     config["measurs"] = {}  # a misspelled key: a schema error, listed with the rest
     config["inputs"]["returns"] = str(tmp_path / "absent.parquet")
     config["columns"]["daily"]["VOL"] = "volume"
+    config.pop("markets"), config["inputs"].pop("fx")
     config["market"] = "atlantis"
     config["inputs"]["characteristics"][0]["variables"] = ["log_size", "book_to_market"]
     config["models"]["sorts"] = [{"name": "vw", "variable": "roll_spread", "weight": "value",
@@ -445,6 +448,7 @@ def _liqpanel(*args: str, **kwargs) -> subprocess.Popen:
 def test_plain_snakemake_is_checked_too(tmp_path):
     config = daily_config(tmp_path)
     config["measures"]["roll_spread"]["min_days"] = "fifteen"
+    config.pop("markets"), config["inputs"].pop("fx")
     config["market"] = "atlantis"
     path = tmp_path / "my.yaml"
     path.write_text(yaml.safe_dump(config))
@@ -562,7 +566,7 @@ def test_daily_starter_reads_the_header_with_the_separator(tmp_path, capsys):
 def test_the_study_alone_is_not_held_to_the_models(tmp_path):
     from liqpanel.preflight import errors, preflight, warnings
 
-    config = trades_config(tmp_path)
+    config = one_market(trades_config(tmp_path))
     config["inputs"] = {"trades": config["inputs"]["trades"]}  # no quotes, no characteristics
     # the whole run needs them: log_size for the models, quotes for the effective spread
     assert any("'log_size'" in p.message for p in errors(preflight(config)))

@@ -30,6 +30,7 @@ def panel():
     frame = pl.DataFrame(
         {
             "security": np.repeat([f"Q{i:03d}" for i in range(n_sec)], n_months),
+            "market": np.repeat(["HBR" if i % 5 else "GUL" for i in range(n_sec)], n_months),  # as the demo's two
             "month": np.tile(months.to_numpy(), n_sec),
             "roll_spread": rng.uniform(0.002, 0.04, n_sec * n_months),
             "amihud": rng.lognormal(0, 1, n_sec * n_months),

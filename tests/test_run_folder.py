@@ -23,6 +23,7 @@ from liqpanel import report as rep
 from liqpanel import runtime
 from liqpanel.config import validate_config
 from liqpanel.errors import ConfigError, InputError
+from tests.demo_config import one_market
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -48,7 +49,7 @@ def _config(folder: Path, **run) -> dict:
         ],
     }
     raw.setdefault("run", {}).update(run)
-    return validate_config(raw)
+    return validate_config(one_market(raw))
 
 
 # ---------------------------------------------------------------- run identity

@@ -15,6 +15,7 @@ import yaml
 from liqpanel import stages
 from liqpanel.config import load_config, validate_config
 from liqpanel.errors import ConfigError, InputError
+from tests.demo_config import one_market
 
 DEMO = "config/config.yaml"
 MONTHS = ["2021-03", "2021-04"]
@@ -33,14 +34,23 @@ def _profile(tmp_path):
 
 def _split(tmp_path):
     """The demo's securities: every other one listed in the second market."""
-    names = pl.read_parquet("demo_data/securities.parquet").get_column("security").sort()
+    listing = pl.read_parquet("demo_data/securities.parquet")
+    # the demo's first market (HBR), split here over two markets; its second market (GUL) is left out
+    names = listing.filter(pl.col("market") == "HBR").get_column("security").sort()
     codes = pl.DataFrame({"security": names, "exch": ["HBR" if i % 2 == 0 else "QRW" for i in range(len(names))]})
     codes.write_csv(tmp_path / "securities.csv")
     return codes
 
 
 def _base(tmp_path) -> dict:
-    config = copy.deepcopy(load_config(DEMO))
+    """The demo config on its first market's securities alone (one market, ``tests.demo_config.one_market``)."""
+    config = one_market(copy.deepcopy(load_config(DEMO)))
+    first = pl.read_parquet("demo_data/securities.parquet").filter(pl.col("market") == "HBR").get_column("security")
+    (tmp_path / "hbr").mkdir(exist_ok=True)
+    for key in ("trades", "quotes"):
+        out = tmp_path / "hbr" / f"{key}.parquet"
+        pl.read_parquet(config["inputs"][key]).filter(pl.col("security").is_in(first.implode())).write_parquet(out)
+        config["inputs"][key] = str(out)
     config["sample"] = {"start": MONTHS[0], "end": MONTHS[-1]}
     config["run"]["work_dir"] = str(tmp_path / "work")
     config["measures"] = {k: v for k, v in config["measures"].items() if k not in ("gibbs_spread", "lot_mixed", "lot_ysplit")}
@@ -75,7 +85,7 @@ def _audit(tmp_path, tag: str) -> pl.DataFrame:
 
 def _two_market_config(tmp_path, *, fx=True) -> dict:
     config = _base(tmp_path)
-    del config["market"]
+    config.pop("market")
     config["markets"] = {"column": "exch", "profiles": {"HBR": "demo", "QRW": _profile(tmp_path)},
                          "reporting_currency": "ZZH"}
     config["inputs"]["securities"] = str(tmp_path / "securities.csv")
@@ -209,14 +219,14 @@ def test_market_values_at_the_month_end_rate(tmp_path):
 
 def _daily_with_codes(tmp_path, codes: pl.DataFrame) -> dict:
     """The daily example (an invented vendor layout) with a market-code column, in two markets."""
-    config = validate_config(yaml.safe_load(open("config/daily_example.yaml")))
+    config = validate_config(one_market(yaml.safe_load(open("config/daily_example.yaml"))))
     daily = pl.read_csv("demo_data/daily_example.csv.gz", infer_schema_length=0).filter(
-        pl.col("trade_day").str.starts_with("2021-0"))
+        pl.col("trade_day").str.starts_with("2021-0") & (pl.col("listing") == "HBR")).drop("listing")
     daily = daily.join(codes.rename({"security": "ticker"}), on="ticker", how="left")
     daily.write_csv(tmp_path / "daily.csv")
     config["inputs"].update(daily=str(tmp_path / "daily.csv"), fx=str(tmp_path / "fx.csv"))
     config["sample"] = {"start": "2021-01", "end": "2021-06"}
-    del config["market"]
+    config.pop("market")
     config["markets"] = {"column": "exch", "profiles": {"HBR": "demo", "QRW": _profile(tmp_path)},
                          "reporting_currency": "ZZH"}
     days = pl.date_range(pl.date(2020, 12, 1), pl.date(2021, 7, 31), eager=True)
@@ -257,7 +267,7 @@ def test_two_codes_for_one_security_in_the_daily_file(tmp_path):
 
 def test_config_names_market_or_markets():
     config = yaml.safe_load(open(DEMO))
-    del config["market"]
+    del config["markets"]
     with pytest.raises(ConfigError, match="the top level: needs 'market' or 'markets'"):
         validate_config(config)
     config["markets"] = {"column": "exch", "profiles": {"HBR": "demo"}}

@@ -12,6 +12,7 @@ import yaml
 from liqpanel.config import load_config
 from liqpanel.report import run_id
 from liqpanel.simulate import SimulationSpec, simulate_market, write_market
+from tests.demo_config import one_market
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -25,6 +26,7 @@ def test_study_command_writes_tables_heat_maps_and_summary(tmp_path):
     cfg["sample"] = {"start": "2021-01", "end": "2021-03"}
     cfg["inputs"] = {"trades": str(data / "trades.parquet")}
     cfg["study"] = {"draws": 300, "seed": 5, "bins": 2, "in_report": False}
+    cfg = one_market(cfg)
     path = tmp_path / "config.yaml"
     path.write_text(yaml.safe_dump(cfg))
     done = subprocess.run(

@@ -17,6 +17,7 @@ import pytest
 import yaml
 
 from liqpanel.simulate import SimulationSpec, simulate_market, write_market
+from tests.demo_config import one_market
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -42,6 +43,7 @@ def _config(data: Path) -> dict:
             }
         ],
     }
+    cfg = one_market(cfg)
     cfg["models"]["regressions"] = [
         {"name": "roll_only", "regressors": ["roll_spread"], "estimator": "fama_macbeth", "lags": 2},
         {"name": "roll_size", "regressors": ["roll_spread", "log_size"], "estimator": "fama_macbeth", "lags": 2},
