@@ -381,20 +381,26 @@ def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
 
 
 def audit_of(flagged: pl.DataFrame | pl.LazyFrame, table: str, *, month: str, timestamps: str = "") -> pl.LazyFrame:
-    """Rows read, kept and dropped per rule, per security and local date."""
+    """Rows read, kept and dropped per rule, per security and local date.
+
+    One pass over the rows counts them per security, date, rule (and whether
+    a kept row had a quote); the counts are then spread into the rule columns
+    on that small table.
+    """
     lf = flagged.lazy()
     names = lf.collect_schema().names()
-    unquoted = pl.lit(None, dtype=pl.Int64)
-    if "_quoted" in names:
-        without = (pl.col("drop_rule").is_null() & ~pl.col("_quoted")).sum()
-        unquoted = pl.when(pl.col("_quoted").is_null().all()).then(None).otherwise(without)
+    quoted = pl.col("_quoted") if "_quoted" in names else pl.lit(None, dtype=pl.Boolean)
+    counts = lf.group_by("security", "date", "drop_rule", quoted.alias("_quoted")).agg(pl.len().cast(pl.Int64).alias("_n"))
+    n, kept = pl.col("_n"), pl.col("drop_rule").is_null()
+    without = n.filter(kept & ~pl.col("_quoted")).sum()
     return (
-        lf.group_by("security", "date")
+        counts.group_by("security", "date")
         .agg(
-            pl.len().cast(pl.Int64).alias("rows_read"),
-            pl.col("drop_rule").is_null().sum().cast(pl.Int64).alias("rows_kept"),
-            *[(pl.col("drop_rule") == rule).sum().cast(pl.Int64).alias(f"drop_{rule}") for rule in RULES],
-            unquoted.cast(pl.Int64).alias("kept_without_quote"),
+            n.sum().alias("rows_read"),
+            n.filter(kept).sum().alias("rows_kept"),
+            *[n.filter(pl.col("drop_rule") == rule).sum().alias(f"drop_{rule}") for rule in RULES],
+            pl.when(pl.col("_quoted").is_null().all()).then(None).otherwise(without).cast(pl.Int64)
+            .alias("kept_without_quote"),
         )
         .with_columns(
             pl.lit(table).alias("table"), pl.lit(month).alias("partition"), pl.lit(timestamps).alias("timestamps")
