@@ -220,16 +220,22 @@ def _in_order(frame: pl.DataFrame) -> pl.DataFrame:
     The securities get integer codes in text order (an Enum of the sorted
     distinct names). A vendor's file is usually in time order, so a stable
     sort on the code alone already puts each security's rows in time order;
-    one pass over the result checks that, and only a file where it fails
-    is sorted on the code, time, file and row. Either way the order is
-    that of a sort on the four columns.
+    one pass over the sorted keys checks that, and only a file where it
+    fails is sorted on the code, time, file and row. Either way the order
+    is that of a sort on the four columns. The order is found on the keys
+    alone, then every column is gathered once; the helper columns of values
+    that did not parse are gathered only when they hold any.
     """
+    frame = frame.rechunk()  # a gather from one chunk is about twice as fast
     names = frame.get_column("security").unique().sort()
-    keyed = frame.with_columns(pl.col("security").cast(pl.Enum(names)).to_physical().alias("_code"))
-    ordered = keyed.sort("_code", maintain_order=True)
-    if not ordered.select(_ascending_within("_code", _ORDER[1:])).item():
-        ordered = keyed.sort("_code", *_ORDER[1:])
-    return ordered.drop("_code")
+    key = frame.select(pl.col("security").cast(pl.Enum(names)).to_physical().alias("_code"), *_ORDER[1:])
+    rows = pl.int_range(pl.len(), dtype=pl.UInt32).alias("_at")
+    at = key.select(rows.sort_by("_code", maintain_order=True)).to_series()
+    if not key[at].select(_ascending_within("_code", _ORDER[1:])).item():
+        at = key.select(rows.sort_by("_code", *_ORDER[1:])).to_series()
+    blank = [c for c in ("_bad", "_value") if c in frame.columns and frame.get_column(c).null_count() == frame.height]
+    ordered = frame.drop(blank)[at]
+    return ordered.with_columns(frame.select(blank).clear(ordered.height)).select(frame.columns) if blank else ordered
 
 
 def _ascending_within(group: str, columns: list[str]) -> pl.Expr:
