@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import sys
+from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -32,8 +33,9 @@ if TYPE_CHECKING:
 # starts without them (``python -X importtime -c "import liqpanel.stages"``).
 
 
-def _month_filter(month: str) -> pl.Expr:
-    return pl.col("month") == pl.lit(f"{month}-01").str.to_date()
+def _month_start(month: str) -> date:
+    """'YYYY-MM' as the first day of the month, the value of a table's ``month`` column."""
+    return date.fromisoformat(f"{month}-01")
 
 
 def check_inputs(config: dict) -> None:
@@ -213,8 +215,10 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
     """The daily entry point: a user's own daily file read and checked once, written as month
     partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
     read = _read_daily(config)
+    # one pass cuts the table into its months, each in the table's (security, date) order
+    parts = read.daily.partition_by("month", as_dict=True, maintain_order=True)
     for month, out in zip(months, outs):
-        write_parquet(read.daily.filter(_month_filter(month)), out)
+        write_parquet(parts.get((_month_start(month),), read.daily.clear()), out)
     write_parquet(read.audit, out_audit)
     splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
     write_parquet(splits, out_splits)
