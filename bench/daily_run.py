@@ -14,7 +14,7 @@ CPU time of the command and every process it started (user + system of the
 finished children). Nothing is committed: the files are written to a
 temporary folder and removed.
 
-Run: ``python -m bench.daily_run --help`` (``make bench-daily``). No
+Run: ``python -m bench.daily_run --help`` (``make bench-daily-run``). No
 assertion is made on time: the table is the result.
 """
 
