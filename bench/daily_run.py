@@ -11,8 +11,9 @@ and one Fama-MacBeth regression of next month's return on them.
 
 For each market it prints the rows, the wall time of the whole command, the
 CPU time of the command and every process it started (user + system of the
-finished children). Nothing is committed: the files are written to a
-temporary folder and removed.
+finished children) and the largest peak resident memory among them.
+Nothing is committed: the files are written to a temporary folder and
+removed.
 
 Run: ``python -m bench.daily_run --help`` (``make bench-daily-run``). No
 assertion is made on time: the table is the result.
@@ -72,7 +73,7 @@ def run_once(securities: int, years: int, seed: int, cores: int, root: Path) -> 
         raise RuntimeError(f"liqpanel run failed on {securities} securities x {years} years:\n"
                            f"{done.stdout[-2000:]}\n{done.stderr[-3000:]}")
     return {"securities": securities, "years": years, "rows": rows, "mb": daily.stat().st_size / 1e6,
-            "wall": wall, "cpu": cpu}
+            "wall": wall, "cpu": cpu, "peak_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024}
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -88,12 +89,13 @@ def main(argv: list[str] | None = None) -> None:
         for securities, years in markets:
             results.append(r := run_once(securities, years, args.seed, args.cores, Path(tmp)))
             print(f"  {securities} x {years} years done in {r['wall']:.1f}s", file=sys.stderr)
-    print("| securities | years | rows | CSV (MB) | wall time (s) | CPU time (s) |")
-    print("|---:|---:|---:|---:|---:|---:|")
+    print("| securities | years | rows | CSV (MB) | wall time (s) | CPU time (s) | peak memory (MB) |")
+    print("|---:|---:|---:|---:|---:|---:|---:|")
     for r in results:
-        print(f"| {r['securities']:,} | {r['years']} | {r['rows']:,} | {r['mb']:.0f} | {r['wall']:.1f} | {r['cpu']:.1f} |")
+        print(f"| {r['securities']:,} | {r['years']} | {r['rows']:,} | {r['mb']:.0f} | {r['wall']:.1f} | {r['cpu']:.1f} | {r['peak_mb']:,.0f} |")
     print(f"\n`liqpanel run --cores {args.cores}` from the CSV to the run folder (daily file read once, measures, "
-          "monthly table, panel, Fama-MacBeth regression, factors, report); CPU time of every process it started. "
+          "monthly table, panel, Fama-MacBeth regression, factors, report); CPU time of every process it started; "
+          "peak memory: the largest resident size of any of them so far (it only grows from one market to the next). "
           f"Machine: {machine()}; load average {os.getloadavg()[0]:.1f} at the end.")
 
 
