@@ -12,7 +12,7 @@ DEMO_CONFIG := config/config.yaml
 # results/latest, which follows whatever ran last). Expanded in the shell.
 DEMO_RUN = $$($(BIN)/python -c 'from liqpanel.report import run_folder; print(run_folder("$(DEMO_CONFIG)"))')
 
-.PHONY: demo test study bench bench-measures bench-scale bench-daily bench-rules bench-factors cluster-test clean-work report expected verify lock wheel-test
+.PHONY: demo test study bench bench-measures bench-scale bench-daily bench-daily-run bench-rules bench-factors cluster-test clean-work report expected verify lock wheel-test
 
 # Exact versions from requirements.lock (made by `make lock`), then liqpanel itself.
 $(STAMP): pyproject.toml requirements.lock
@@ -50,7 +50,7 @@ cluster-test: $(VENV)/.installed-cluster
 wheel-test:
 	PYTHON=$(PYTHON) bash .ci/wheel-test.sh
 
-bench: bench-measures bench-scale bench-daily bench-rules bench-factors
+bench: bench-measures bench-scale bench-daily bench-daily-run bench-rules bench-factors
 
 # Measures stage against a naive pandas baseline and a one-pass floor (a few minutes);
 # smaller: make bench-measures BENCH_MEASURES_ARGS="--securities 500 --years 2"
@@ -60,6 +60,10 @@ bench-measures: $(STAMP)
 # A daily file read, checked and audited once against one scan of it per month (under a minute)
 bench-daily: $(STAMP)
 	$(BIN)/python -m bench.daily_file $(BENCH_DAILY_ARGS)
+
+# A daily file of 20 years, one security and 5,000, through `liqpanel run` (several minutes)
+bench-daily-run: $(STAMP)
+	$(BIN)/python -m bench.daily_run $(BENCH_DAILY_RUN_ARGS)
 
 # Month partitions of 1x, 4x and 16x a base market beside a pandas script (about two minutes)
 bench-scale: $(STAMP)

@@ -10,7 +10,10 @@ variance. Each program runs its jobs as its workflow does:
   bars of each month in turn, ``liqpanel.stages.trades_span``);
 - the earlier commit (``--ref``, default the commit before the span jobs):
   one process per month and stage, its own ``src/`` extracted with
-  ``git archive`` into a scratch folder and put first on the path.
+  ``git archive`` into a scratch folder and put first on the path; with
+  ``--spans``, one process per span as this code (for a commit that has
+  span jobs, e.g. ``--ref 5527aae --spans``, the trade jobs before they
+  were made faster).
 
 It reports the CPU time of all processes, start-up included, with one
 polars thread each, and checks that both wrote the same tables (every clean
@@ -39,6 +42,10 @@ from liqpanel import stages
 from liqpanel.config import load_config
 config = load_config("config/config.yaml")
 spec = json.loads(sys.argv[1])
+paths = {k: [os.path.join(spec["out"], f"{k}-{m}.parquet") for m in spec["months"]] for k in ("trades", "audit", "quotes", "bars")}
+if len(spec["stages"]) == 2 and hasattr(stages, "trades_span"):  # a span job as the workflow runs it
+    stages.trades_span(config, spec["months"], paths)
+    spec["months"] = []
 for month in spec["months"]:
     p = {k: os.path.join(spec["out"], f"{k}-{month}.parquet") for k in ("trades", "audit", "quotes", "bars")}
     if "clean" in spec["stages"]:
@@ -66,9 +73,11 @@ def run(specs: list[dict], cwd: Path, path: str | None) -> float:
 
 
 def extract(ref: str, into: Path) -> None:
-    """``src/``, ``config/`` and ``workflow/`` of commit ``ref``, and a link to the demo data."""
-    archive = subprocess.run(["git", "archive", ref, "src", "config", "workflow"], cwd=REPO, capture_output=True,
-                             check=True).stdout
+    """``src/``, ``config/`` and ``workflow/`` (those the commit has) of commit ``ref``, and a link to the demo data."""
+    top = subprocess.run(["git", "ls-tree", "--name-only", ref], cwd=REPO, capture_output=True, text=True,
+                         check=True).stdout.split()
+    folders = [f for f in ("src", "config", "workflow") if f in top]
+    archive = subprocess.run(["git", "archive", ref, *folders], cwd=REPO, capture_output=True, check=True).stdout
     with tarfile.open(fileobj=BytesIO(archive)) as tar:
         tar.extractall(into, filter="data")
     (into / "demo_data").symlink_to(REPO / "demo_data")
@@ -77,6 +86,7 @@ def extract(ref: str, into: Path) -> None:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(prog="python -m bench.rules", description=__doc__.split("\n\n")[0])
     parser.add_argument("--ref", default=BASE_REF, help=f"the earlier commit (default {BASE_REF})")
+    parser.add_argument("--spans", action="store_true", help="run the earlier commit in span jobs too (it has them)")
     args = parser.parse_args(argv)
     sys.path.insert(0, str(REPO / "src"))
     from liqpanel.config import load_config
@@ -94,6 +104,8 @@ def main(argv: list[str] | None = None) -> None:
         span_specs = [{"months": block, "stages": ["clean", "bars"], "out": str(ours)}
                       for block in spans(months, config["run"]["span_months"])]
         month_specs = [{"months": [m], "stages": [stage], "out": str(theirs)} for stage in ("clean", "bars") for m in months]
+        if args.spans:
+            month_specs = [{**s, "out": str(theirs)} for s in span_specs]
         cpu_ours = run(span_specs, REPO, None)
         cpu_base = run(month_specs, root / "base", str(root / "base" / "src"))
         import polars as pl
@@ -105,7 +117,8 @@ def main(argv: list[str] | None = None) -> None:
     trades = pl.scan_parquet(REPO / "demo_data" / "trades.parquet").select(pl.len()).collect().item()
     print(f"demo market, full rule set, {len(months)} months, {trades:,} trades read; one polars thread per process")
     print(f"  this code       {len(span_specs):3d} processes (a span of months each)  {cpu_ours:6.2f} CPU-s")
-    print(f"  commit {args.ref}  {len(month_specs):3d} processes (a month and stage each)  {cpu_base:6.2f} CPU-s")
+    each = "a span of months each" if args.spans else "a month and stage each"
+    print(f"  commit {args.ref}  {len(month_specs):3d} processes ({each})  {cpu_base:6.2f} CPU-s")
     print(f"  {cpu_base / cpu_ours:.1f}x less CPU; the same {len(files)} tables (clean trades, quotes, audit, bars)")
 
 

@@ -317,8 +317,12 @@ def table(results: dict[int, dict], baselines: dict[int, dict], args, start: dic
         f"{k}x: {b['process_cpu'] / results[k]['trades_cpu']:.1f}x (whole chain {b['process_cpu'] / results[k]['cpu']:.1f}x)"
         for k, b in sorted(baselines.items())
     )
-    plans = "; ".join(f"{y} years: {job_plan(y, args.span)[0]} jobs (one per month and stage: {job_plan(y, args.span)[1]})"
-                      for y in (2, 20))
+    plans = "; ".join(
+        f"{y} years: {job_plan(y, args.span)[0]} jobs, {job_plan(y, args.span)[0] * start['process_cpu']:.0f} CPU-s "
+        f"of start-up (one per month and stage: {job_plan(y, args.span)[1]} jobs, "
+        f"{job_plan(y, args.span)[1] * start['process_cpu']:.0f} CPU-s)"
+        for y in (2, 20)
+    )
     b = first
     footer = [
         "",
@@ -329,8 +333,8 @@ def table(results: dict[int, dict], baselines: dict[int, dict], args, start: dic
         f"Trades per CPU second of clean + bars (start-up included) against the pandas script: {ratios}.",
         f"pandas at {min(baselines)}x: {b['peak_mb'] / largest_one:.2f}x the peak memory of liqpanel's largest job; "
         f"same results (largest relative difference: Roll {b['diff_roll']:.1e}, Amihud {b['diff_amihud']:.1e}).",
-        f"Jobs planned: {plans}. Start-up of a job process (Python, polars, liqpanel.stages): "
-        f"{start['process_cpu']:.2f} CPU-s, {start['peak_mb']:.0f} MB.",
+        f"Start-up of a job process (Python, polars, liqpanel.stages): {start['process_cpu']:.2f} CPU-s, "
+        f"{start['peak_mb']:.0f} MB. Jobs planned: {plans}.",
         f"Trade files in {args.order} order. Machine: {machine()}.",
     ]
     return "\n".join(lines + footer)

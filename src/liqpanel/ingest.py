@@ -134,6 +134,22 @@ def list_files(path: str | Path) -> list[str]:
 
 def scan_file(file: str, layout: Layout, n_rows: int | None = None) -> pl.LazyFrame:
     """One file as stored (CSV columns all text), renamed to our names; schema problems raise at once."""
+    lf = open_file(file, layout, n_rows)
+    names = schema_of(lf, file).names()
+    for theirs in layout.mapping:
+        if theirs not in names:
+            raise InputError(
+                f"named in the `columns:` mapping of the {layout.kind}, but the file has no such column; "
+                f"its columns are {names}",
+                path=file, column=theirs,
+            )
+    return lf.rename(layout.mapping, strict=False) if layout.mapping else lf
+
+
+def open_file(file: str, layout: Layout, n_rows: int | None = None) -> pl.LazyFrame:
+    """One file as stored, not renamed and not yet opened: a scan whose schema has not been asked
+    for, so that Polars can still number rows inside the Parquet reader and skip row groups
+    (``scan_file`` checks the file first)."""
     lower = file.lower()
     if lower.endswith(PARQUET):
         lf = pl.scan_parquet(file, n_rows=n_rows)
@@ -146,15 +162,7 @@ def scan_file(file: str, layout: Layout, n_rows: int | None = None) -> pl.LazyFr
         )
     else:
         raise InputError(f"unsupported file type; expected one of {', '.join(PARQUET + CSV)}", path=file)
-    names = schema_of(lf, file).names()
-    for theirs in layout.mapping:
-        if theirs not in names:
-            raise InputError(
-                f"named in the `columns:` mapping of the {layout.kind}, but the file has no such column; "
-                f"its columns are {names}",
-                path=file, column=theirs,
-            )
-    return lf.rename(layout.mapping, strict=False) if layout.mapping else lf
+    return lf
 
 
 def schema_of(lf: pl.LazyFrame, file: str) -> pl.Schema:

@@ -55,15 +55,21 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
             os.unlink(tmp)
 
 
-def write_parquet(frame: pl.DataFrame | pl.LazyFrame, path: str | Path) -> Path:
-    """Write a frame to Parquet atomically with deterministic settings."""
+def write_parquet(frame: pl.DataFrame | pl.LazyFrame, path: str | Path, *, passing: bool = False) -> Path:
+    """Write a frame to Parquet atomically with deterministic settings.
+
+    ``passing``: a large file that only the next stage reads whole (a clean
+    trade partition): lz4 and no statistics, about twice as fast to write as
+    zstd with statistics; the values are the same.
+    """
     if isinstance(frame, pl.LazyFrame):
         # the in-memory engine gives bit-identical floats from run to run
         frame = frame.collect(engine="in-memory")
+    settings = {"compression": "lz4", "statistics": False} if passing else {"compression": "zstd", "statistics": True}
     with atomic_path(path) as tmp:
         # one chunk per column: the bytes written depend on the values alone, not on how
         # the engine happened to split the columns into chunks
-        frame.rechunk().write_parquet(tmp, compression="zstd", statistics=True)
+        frame.rechunk().write_parquet(tmp, **settings)
     return Path(path)
 
 

@@ -209,8 +209,7 @@ def read_table(
         flags = [_flag(bad, column, raw) for bad, column, raw in checks]
         # a fresh scan: once its schema has been asked for, Polars no longer
         # numbers rows inside the reader, and then cannot skip row groups
-        indexed = ingest.scan_file(file, ingest.Layout(kind=layout.kind, path=file, separator=layout.separator,
-                                                       missing=layout.missing)).with_row_index("_row")
+        indexed = ingest.open_file(file, layout).with_row_index("_row")
         indexed = indexed.rename(mapping) if mapping else indexed
         condition = window(schema) if window is not None else None
         if condition is not None:

@@ -34,8 +34,9 @@ if TYPE_CHECKING:
 # starts without them (``python -X importtime -c "import liqpanel.stages"``).
 
 
-def _month_filter(month: str) -> pl.Expr:
-    return pl.col("month") == pl.lit(f"{month}-01").str.to_date()
+def _month_start(month: str) -> date:
+    """'YYYY-MM' as the first day of the month, the value of a table's ``month`` column."""
+    return date.fromisoformat(f"{month}-01")
 
 
 def check_inputs(config: dict) -> None:
@@ -66,20 +67,27 @@ def check_inputs(config: dict) -> None:
             raise ingest.error(layout, dailyfile.ADJUSTED_TWICE, file=file, column="ret")
 
 
-def clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
+def clean_month(
+    config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None
+) -> tuple[pl.DataFrame, pl.DataFrame | None]:
     """Clean one month partition of the trades (and quotes, when the config names them).
 
-    A file the engine cannot read to the end (a corrupt Parquet page, a
-    truncated gzip) stops the run naming that file.
+    Returns the clean trades and quotes as written (quotes None when no
+    ``out_quotes`` is given), so that the bars of the month need not read
+    them back. A file the engine
+    cannot read to the end (a corrupt Parquet page, a truncated gzip) stops
+    the run naming that file.
     """
     try:
-        _clean_month(config, month, out_trades, out_audit, out_quotes)
+        return _clean_month(config, month, out_trades, out_audit, out_quotes)
     except (pl.exceptions.PolarsError, OSError) as exc:
         raise ingest.damaged([config["inputs"][k] for k in ("quotes", "trades") if config["inputs"].get(k)],
                              config.get("formats") or {}, exc) from None
 
 
-def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None) -> None:
+def _clean_month(
+    config: dict, month: str, out_trades: str, out_audit: str, out_quotes: str | None = None
+) -> tuple[pl.DataFrame, pl.DataFrame | None]:
     market = _market(config)
     rules = config["clean"]
     sample = (config["sample"]["start"], config["sample"]["end"])
@@ -107,12 +115,14 @@ def _clean_month(config: dict, month: str, out_trades: str, out_audit: str, out_
     audits.append(audit_of(flagged, "trades", month=month, timestamps=read.describe_timestamps()))
     audit = pl.concat(pl.collect_all(audits), how="diagonal_relaxed").sort("table", "security", "date", nulls_last=True)
     check_conservation(audit)
-    write_parquet(kept, out_trades)
+    write_parquet(kept, out_trades, passing=True)
     write_parquet(audit, out_audit)
     if out_quotes:
-        empty = pl.DataFrame(schema={"security": pl.String, "ts": pl.Datetime("us", "UTC"), "bid": pl.Float64,
-                                     "ask": pl.Float64, "date": pl.Date})
-        write_parquet(quotes if quotes is not None else empty, out_quotes)
+        if quotes is None:
+            quotes = pl.DataFrame(schema={"security": pl.String, "ts": pl.Datetime("us", "UTC"), "bid": pl.Float64,
+                                          "ask": pl.Float64, "date": pl.Date})
+        write_parquet(quotes, out_quotes, passing=True)
+    return kept, quotes
 
 
 def _with_market(read, key: str, config: dict, market: dict) -> pl.LazyFrame:
@@ -133,11 +143,16 @@ def bars_month(clean_trades_path: str, out: str, config: dict | None = None, cle
     if config is None:
         write_parquet(bars_mod.trading_bars(trades), out)
         return
-    market = _market(config)
     quotes = pl.scan_parquet(clean_quotes_path) if clean_quotes_path else None
+    write_parquet(_bars(config, trades, quotes), out)
+
+
+def _bars(config: dict, trades: pl.LazyFrame, quotes: pl.LazyFrame | None) -> pl.LazyFrame:
+    """The bars of one month's clean trades and quotes, with the high-frequency columns the measures read."""
+    market = _market(config)
     columns = bars_mod.needed_columns(config["measures"]) if config.get("measures") else None
     # a clean partition is in security and time order (liqpanel.clean.kept_rows)
-    write_parquet(bars_mod.intraday_bars(trades, quotes, market, config.get("bars"), columns, in_order=True), out)
+    return bars_mod.intraday_bars(trades, quotes, market, config.get("bars"), columns, in_order=True)
 
 
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
@@ -171,8 +186,8 @@ def trades_span(config: dict, months: list[str], paths: dict[str, list[str]]) ->
     own partition, exactly as ``clean_month`` and ``bars_month`` write it.
     """
     for i, month in enumerate(months):
-        clean_month(config, month, paths["trades"][i], paths["audit"][i], paths["quotes"][i])
-        bars_month(paths["trades"][i], paths["bars"][i], config, paths["quotes"][i])
+        trades, quotes = clean_month(config, month, paths["trades"][i], paths["audit"][i], paths["quotes"][i])
+        write_parquet(_bars(config, trades.lazy(), quotes.lazy() if quotes is not None else None), paths["bars"][i])
 
 
 def daily_span(config: dict, bars_paths: list[str], previous_bars_path: str | None, out_paths: list[str]) -> None:
@@ -226,8 +241,10 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
     read = _read_daily(config)
     daily = daily_to_reporting(read.daily.lazy(), config, load_markets(config)).collect() if config.get(
         "markets") else read.daily
+    # one pass cuts the table into its months, each in the table's (security, date) order
+    parts = daily.partition_by("month", as_dict=True, maintain_order=True)
     for month, out in zip(months, outs):
-        write_parquet(daily.filter(_month_filter(month)), out)
+        write_parquet(parts.get((_month_start(month),), daily.clear()), out)
     write_parquet(read.audit, out_audit)
     splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
     write_parquet(splits, out_splits)
