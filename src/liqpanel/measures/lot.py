@@ -60,6 +60,7 @@ KEY = ["security", "month"]
 FORMS = ("mixed", "ysplit")
 LOG_ROOT_2PI = 0.5 * np.log(2.0 * np.pi)
 MIN_RETURNS = 5  # fewest returns for four parameters and a variance (convention of this project)
+CHUNK_MONTHS = 8192  # months fitted together: their working arrays stay in the processor's cache
 
 
 def _log_interval(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
@@ -292,10 +293,15 @@ def fit_rows(ret: np.ndarray, market: np.ndarray, month: np.ndarray, months: int
     """``fit_lot`` on one row per valid day, rows in month order, ``month`` numbering the months 0..``months`` - 1."""
     if form not in FORMS:
         raise ConfigError(f"LOT: `form` must be one of {FORMS}, got {form!r}")
-    data = LotData.from_rows(ret, market, month, months, regions(ret, market, form))
-    theta = _starting_values(data)
-    with np.errstate(all="ignore"):  # trial steps may leave the domain; their likelihood is -inf and they are refused
-        return _iterate(theta, data, max_iterations, tolerance)
+    parts = []
+    for start in range(0, max(months, 1), CHUNK_MONTHS):  # months are independent: a piece at a time stays in cache
+        stop = min(start + CHUNK_MONTHS, months)
+        a, b = np.searchsorted(month, [start, stop])
+        r, x = ret[a:b], market[a:b]
+        data = LotData.from_rows(r, x, month[a:b] - start, stop - start, regions(r, x, form))
+        with np.errstate(all="ignore"):  # trial steps may leave the domain; their likelihood is -inf and they are refused
+            parts.append(_iterate(_starting_values(data), data, max_iterations, tolerance))
+    return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
 
 
 ROUNDING = 1e-15  # relative rounding of a month's log-likelihood: a rise predicted below it cannot be checked
