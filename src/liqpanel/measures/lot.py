@@ -61,6 +61,8 @@ FORMS = ("mixed", "ysplit")
 LOG_ROOT_2PI = 0.5 * np.log(2.0 * np.pi)
 MIN_RETURNS = 5  # fewest returns for four parameters and a variance (convention of this project)
 CHUNK_MONTHS = 8192  # months fitted together: their working arrays stay in the processor's cache
+FIRST_TURNS = 8  # iterations of a piece of months; the months still going then continue together
+RESULTS = ("alpha_1", "alpha_2", "beta", "sigma", "log_likelihood", "iterations", "converged")
 
 
 def _log_interval(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
@@ -139,6 +141,14 @@ class LotData:
     @property
     def months(self) -> int:
         return self.stats.shape[2]
+
+    @classmethod
+    def concat(cls, parts: list["LotData"]) -> "LotData":
+        """The months of ``parts`` one after the other."""
+        offsets = np.cumsum([0, *[part.months for part in parts[:-1]]])
+        return cls(np.concatenate([part.stats for part in parts], axis=2),
+                   np.concatenate([part.zero_market for part in parts]),
+                   np.concatenate([part.zero_month + offset for part, offset in zip(parts, offsets)]))
 
     def subset(self, cols: np.ndarray) -> "LotData":
         """The months ``cols`` (ascending), renumbered 0..len(cols) - 1."""
@@ -293,15 +303,31 @@ def fit_rows(ret: np.ndarray, market: np.ndarray, month: np.ndarray, months: int
     """``fit_lot`` on one row per valid day, rows in month order, ``month`` numbering the months 0..``months`` - 1."""
     if form not in FORMS:
         raise ConfigError(f"LOT: `form` must be one of {FORMS}, got {form!r}")
-    parts = []
+    parts, pending = [], []
+    first = min(max_iterations, FIRST_TURNS)
     for start in range(0, max(months, 1), CHUNK_MONTHS):  # months are independent: a piece at a time stays in cache
         stop = min(start + CHUNK_MONTHS, months)
         a, b = np.searchsorted(month, [start, stop])
         r, x = ret[a:b], market[a:b]
         data = LotData.from_rows(r, x, month[a:b] - start, stop - start, regions(r, x, form))
         with np.errstate(all="ignore"):  # trial steps may leave the domain; their likelihood is -inf and they are refused
-            parts.append(_iterate(_starting_values(data), data, max_iterations, tolerance))
-    return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
+            part = _iterate(_starting_values(data), data, first, tolerance)
+        left = np.flatnonzero(~part["_done"] & (part["iterations"] >= first)) if max_iterations > first else []
+        parts.append(part)
+        pending.append((part, left, data.subset(left) if len(left) else None))
+    pending = [item for item in pending if len(item[1])]
+    if pending:  # the few slow months of every piece go on together, from where they stopped (the same iterates)
+        state = {key: np.concatenate([part[key][..., left] for part, left, _ in pending], axis=-1)
+                 for key in ("_theta", "_damping", "iterations")}
+        with np.errstate(all="ignore"):
+            more = _iterate(state["_theta"], LotData.concat([data for _, _, data in pending]), max_iterations, tolerance,
+                            damping=state["_damping"], iterations=state["iterations"])
+        at = 0
+        for part, left, _ in pending:
+            for key in RESULTS:
+                part[key][left] = more[key][at:at + len(left)]
+            at += len(left)
+    return {key: np.concatenate([part[key] for part in parts]) for key in RESULTS}
 
 
 ROUNDING = 1e-15  # relative rounding of a month's log-likelihood: a rise predicted below it cannot be checked
@@ -378,7 +404,7 @@ def _newton_step(theta, grad, hess, damping):
     return candidate
 
 
-def _iterate(theta, data: LotData, max_iterations, tolerance) -> dict[str, np.ndarray]:
+def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iterations=None) -> dict[str, np.ndarray]:
     """Damped Newton (Levenberg-Marquardt) steps on the months not yet converged, their state kept compact.
 
     A month has converged when its next step, undamped (the damping at or
@@ -393,17 +419,18 @@ def _iterate(theta, data: LotData, max_iterations, tolerance) -> dict[str, np.nd
     """
     months = theta.shape[1]
     out_theta, out_ll, out_grad = theta.copy(), np.full(months, -np.inf), np.zeros((4, months))
-    iterations = np.zeros(months, dtype=np.int64)
+    iterations = np.zeros(months, dtype=np.int64) if iterations is None else iterations.copy()
     done = np.zeros(months, dtype=bool)
     ll, grad, hess = evaluate(theta, data, hessian=True, months_last=True)
-    damping = np.full(months, 1e-3)
+    damping = np.full(months, 1e-3) if damping is None else damping.copy()
+    out_damping = damping.copy()
     cols = np.arange(months)  # the months still iterating, in the order of the compact state
 
     def retire(finished: np.ndarray, converged: np.ndarray) -> None:
         nonlocal cols, theta, ll, grad, hess, damping, data
         where = cols[finished]
         out_theta[:, where], out_ll[where], out_grad[:, where] = theta[:, finished], ll[finished], grad[:, finished]
-        done[where] = converged[finished]
+        out_damping[where], done[where] = damping[finished], converged[finished]
         going = np.flatnonzero(~finished)
         cols, theta, ll, grad, hess, damping = cols[going], theta[:, going], ll[going], grad[:, going], hess[:, :, going], damping[going]
         data = data.subset(going)
@@ -441,6 +468,7 @@ def _iterate(theta, data: LotData, max_iterations, tolerance) -> dict[str, np.nd
     return {
         "alpha_1": theta[0], "alpha_2": theta[1], "beta": theta[2], "sigma": np.exp(theta[3]),
         "log_likelihood": ll, "iterations": iterations, "converged": converged,
+        "_theta": theta, "_damping": out_damping, "_done": done,  # the state a later call resumes from
     }
 
 
