@@ -180,3 +180,18 @@ def test_months_without_zero_returns_equal_scipy_bounded_minimize(form):
         assert -result.fun <= fit["log_likelihood"][m] + 1e-9  # ours is at least as high
         assert fit["beta"][m] == pytest.approx(result.x[2], abs=1e-4)
         assert fit["alpha_2"][m] - fit["alpha_1"][m] == pytest.approx(result.x[1] - result.x[0], abs=1e-5)
+
+
+def test_pieces_of_months_give_the_iterates_of_one_batch(monkeypatch):
+    # The months are fitted in pieces and the slow ones resumed together; the result must not depend on that.
+    from liqpanel.measures import lot
+
+    ret, market = simulate(21, 300, seed=13)
+    valid = np.ones_like(ret, dtype=bool)
+    whole = fit_lot(ret, market, valid, form="mixed")
+    monkeypatch.setattr(lot, "CHUNK_MONTHS", 7)
+    monkeypatch.setattr(lot, "FIRST_TURNS", 2)
+    pieces = fit_lot(ret, market, valid, form="mixed")
+    for key in whole:
+        np.testing.assert_array_equal(pieces[key], whole[key], err_msg=key)
+    assert (whole["iterations"] > 2).any()  # some months were resumed

@@ -42,7 +42,10 @@ month in one pass. A month has converged when its next step is below the
 tolerance and the rise it predicts too (or below the rounding of its
 log-likelihood) and its gradient, projected on the bounds, is near zero.
 The loop runs over iterations only, on a compact state of the months still
-iterating.
+iterating, for ``CHUNK_MONTHS`` months at a time (their arrays stay in the
+processor's cache); after ``FIRST_TURNS`` iterations the few months of every
+piece still going continue together from the state they stopped in, so the
+iterates are those of one batch.
 """
 
 from __future__ import annotations
