@@ -139,3 +139,59 @@ def test_the_stage_reports_convergence_per_month():
         (lambda f: f["alpha_2"] - f["alpha_1"])(fit_lot(ret, market, np.ones_like(ret, dtype=bool))), rel=1e-12)
     short = compute_monthly(daily.filter(pl.col("date") < start + timedelta(days=4)).lazy(), {"lot_ysplit": {"min_days": 1}})
     assert short["lot_ysplit_reason"].to_list() == ["too_few_returns"] * 6
+
+
+def test_batched_cholesky_solve_equals_numpy_linalg_solve():
+    # reference library: numpy.linalg.solve, month by month; a matrix that is not positive definite is reported
+    from liqpanel.measures.lot import _cholesky_solve
+
+    rng = np.random.default_rng(11)
+    a = rng.normal(size=(50, 4, 4))
+    system = a @ a.transpose(0, 2, 1) + 0.1 * np.eye(4)
+    system[7] = np.diag([1.0, -1.0, 1.0, 1.0])
+    rhs = rng.normal(size=(50, 4))
+    solution, failed = _cholesky_solve(np.moveaxis(system, 0, 2), rhs.T)
+    assert np.flatnonzero(failed).tolist() == [7]
+    expected = np.linalg.solve(system, rhs[:, :, None])[:, :, 0].T
+    np.testing.assert_allclose(solution[:, ~failed], expected[:, ~failed], rtol=1e-9, atol=1e-12)
+
+
+@pytest.mark.parametrize("form", ["ysplit", "mixed"])
+def test_months_without_zero_returns_equal_scipy_bounded_minimize(form):
+    # reference library: scipy.optimize.minimize (L-BFGS-B with the bounds alpha_1 <= 0 <= alpha_2) of each month's
+    # negative log-likelihood; without zero returns the fit starts at bounded least squares (its maximum)
+    rng = np.random.default_rng(12)
+    market = rng.normal(0, 0.01, (21, 5))
+    ret = market + rng.normal(0, 0.02, (21, 5))
+    valid = np.ones_like(ret, dtype=bool)
+    fit = fit_lot(ret, market, valid, form=form)
+    assert fit["converged"].all()
+    for m in range(5):
+        r, x = ret[:, [m]], market[:, [m]]
+        masks = regions(r, x, form)
+
+        def negative(t):
+            ll, grad = log_likelihood(t[:, None], r, x, masks, valid[:, [m]])
+            return -ll[0], -grad[:, 0]
+
+        result = minimize(negative, np.array([-0.001, 0.001, 1.0, np.log(0.02)]), jac=True, method="L-BFGS-B",
+                          bounds=[(None, 0.0), (0.0, None), (None, None), (None, None)],
+                          options={"ftol": 1e-15, "gtol": 1e-10, "maxiter": 10000})
+        assert -result.fun <= fit["log_likelihood"][m] + 1e-9  # ours is at least as high
+        assert fit["beta"][m] == pytest.approx(result.x[2], abs=1e-4)
+        assert fit["alpha_2"][m] - fit["alpha_1"][m] == pytest.approx(result.x[1] - result.x[0], abs=1e-5)
+
+
+def test_pieces_of_months_give_the_iterates_of_one_batch(monkeypatch):
+    # The months are fitted in pieces and the slow ones resumed together; the result must not depend on that.
+    from liqpanel.measures import lot
+
+    ret, market = simulate(21, 300, seed=13)
+    valid = np.ones_like(ret, dtype=bool)
+    whole = fit_lot(ret, market, valid, form="mixed")
+    monkeypatch.setattr(lot, "CHUNK_MONTHS", 7)
+    monkeypatch.setattr(lot, "FIRST_TURNS", 2)
+    pieces = fit_lot(ret, market, valid, form="mixed")
+    for key in whole:
+        np.testing.assert_array_equal(pieces[key], whole[key], err_msg=key)
+    assert (whole["iterations"] > 2).any()  # some months were resumed

@@ -61,24 +61,14 @@ def edge_spread(daily: pl.LazyFrame, *, signed: bool = False, flat_days: str = "
     return run_plan(daily, edge_plan(signed=signed, flat_days=flat_days))
 
 
-def _quadratic_mean(coefficients: list[pl.Expr], names: list[str]) -> pl.Expr:
-    """sum_ij a_i a_j sum(u_i u_j) / n from the monthly sums ``names[i]*names[j]`` (products stored once)."""
-    total = pl.lit(0.0)
-    for i, a in enumerate(coefficients):
-        for j, b in enumerate(coefficients):
-            first, second = sorted((names[i], names[j]))
-            total = total + a * b * pl.col(f"{first}*{second}")
-    return total / pl.col("n")
-
-
 def edge_plan(*, signed: bool = False, flat_days: str = "use") -> Plan:
     """The plan of ``edge_spread``: the estimator written in monthly sums.
 
-    With the month's constants A = -4/po, B = -4/pc and k_j = mean(r_j)/pt,
-    x1 = A (r1 r2 - k1 tau r2) + B (r3 r4 - k3 tau r4) and
-    x2 = A (r1 r5 - k1 tau r5) + B (r5 r4 - k5 tau r4), so the means and
-    variances of x1 and x2 follow from the monthly sums of the four products
-    in each and of their pairwise products.
+    The month's constants A = -4/po, B = -4/pc and k_j = mean(r_j)/pt are
+    formed from the first sums and put on every day of the month
+    (``per_month``), so x1 = A d1 r2 + B d3 r4 and x2 = A d1 r5 + B d5 r4
+    with d_j = r_j - tau k_j are per-day columns, and their means and
+    variances come from four sums: of x1, x2, x1^2 and x2^2.
     """
     O, H, L = pl.col("open"), pl.col("high"), pl.col("low")
     H1, L1, C1 = pl.col("_edge_high_prev"), pl.col("_edge_low_prev"), pl.col("_edge_close_prev")
@@ -112,38 +102,27 @@ def edge_plan(*, signed: bool = False, flat_days: str = "use") -> Plan:
         },
     )
     r1, r2, r3, r4, r5, tau = (pl.col(f"_edge_{name}") for name in names)
-    products = {"r1r2": r1 * r2, "tr2": tau * r2, "r3r4": r3 * r4, "tr4": tau * r4,
-                "r1r5": r1 * r5, "tr5": tau * r5, "r5r4": r5 * r4}
-    in_x1, in_x2 = ["r1r2", "tr2", "r3r4", "tr4"], ["r1r5", "tr5", "r5r4", "tr4"]
-    steps = (*steps, {f"_edge_{name}": expr for name, expr in products.items()})
-    products = {name: pl.col(f"_edge_{name}") for name in products}
+    n = pl.col("n")
+    per_month = {  # A = -4 / po, B = -4 / pc, k_j = mean(r_j) / pt = sum(r_j) / sum(tau)
+        "_edge_A": -4.0 * n / pl.col("po"),
+        "_edge_B": -4.0 * n / pl.col("pc"),
+        **{f"_edge_k{r[1]}": pl.col(r) / pl.col("tau") for r in ("r1", "r3", "r5")},
+    }
+    A, B, k1, k3, k5 = (pl.col(name) for name in per_month)
+    d1, d3, d5 = r1 - tau * k1, r3 - tau * k3, r5 - tau * k5
+    x1 = A * d1 * r2 + B * d3 * r4
+    x2 = A * d1 * r5 + B * d5 * r4
     sums: dict[str, pl.Expr] = {
         "n": valid,
         "tau": tau,
         "po": tau * ((O != H).cast(pl.Float64) + (O != L).cast(pl.Float64)),
         "pc": tau * ((C1 != H1).cast(pl.Float64) + (C1 != L1).cast(pl.Float64)),
         "r1": r1, "r3": r3, "r5": r5,
-        **products,
-    }
-    for group in (in_x1, in_x2):
-        for i, first in enumerate(group):
-            for second in group[i:]:
-                a, b = sorted((first, second))
-                sums[f"{a}*{b}"] = products[a] * products[b]
-    n = pl.col("n")
-    pt, po, pc = pl.col("tau") / n, pl.col("po") / n, pl.col("pc") / n
-    constants = {"_A": -4.0 / po, "_B": -4.0 / pc, **{f"_k{r[1]}": pl.col(r) / n / pt for r in ("r1", "r3", "r5")}}
-    A, B, k1, k3, k5 = (pl.col(name) for name in constants)
-    a1 = [A, -A * k1, B, -B * k3]
-    a2 = [A, -A * k1, B, -B * k5]
-    moments = {
-        "_e1": sum((a * pl.col(name) for a, name in zip(a1, in_x1)), pl.lit(0.0)) / n,
-        "_e2": sum((a * pl.col(name) for a, name in zip(a2, in_x2)), pl.lit(0.0)) / n,
-        "_q1": _quadratic_mean(a1, in_x1),
-        "_q2": _quadratic_mean(a2, in_x2),
+        "x1": x1, "x2": x2, "x1^2": x1 * x1, "x2^2": x2 * x2,
     }
     e1, e2 = pl.col("_e1"), pl.col("_e2")
-    variances = {"_v1": pl.col("_q1") - e1 * e1, "_v2": pl.col("_q2") - e2 * e2}
+    moments = {"_e1": pl.col("x1") / n, "_e2": pl.col("x2") / n}
+    variances = {"_v1": pl.col("x1^2") / n - e1 * e1, "_v2": pl.col("x2^2") / n - e2 * e2}
     v1, v2 = pl.col("_v1"), pl.col("_v2")
     s2 = pl.when(v1 + v2 > 0).then((v2 * e1 + v1 * e2) / (v1 + v2)).otherwise((e1 + e2) / 2.0)
     spread = s2.abs().sqrt()
@@ -159,7 +138,8 @@ def edge_plan(*, signed: bool = False, flat_days: str = "use") -> Plan:
     return Plan(
         steps=steps,
         sums=sums,
-        monthly_steps=(constants, moments, variances),
+        per_month=per_month,
+        monthly_steps=(moments, variances),
         monthly=(
             pl.when(reason.is_null()).then(spread).otherwise(None).cast(pl.Float64).alias("edge_spread"),
             n.cast(pl.Int64).alias("n_obs"),

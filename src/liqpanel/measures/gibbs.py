@@ -175,8 +175,9 @@ def sample_roll_model(
     out_s = np.empty((kept, M))
     out_b = np.empty((kept, M)) if use_market else None
     stuck = np.zeros(M, dtype=np.int64)
-    dq = np.empty((L, M))
+    dq = np.empty((L, M))  # work arrays of every sweep, allocated once
     u = np.empty((L, M))
+    uniform = np.empty((L + 1, M))
     long_run = M * sweeps >= LONG_RUN
     every = max(sweeps // 10, 1)
     started = time.perf_counter()
@@ -219,7 +220,7 @@ def sample_roll_model(
                 for block in blocks:
                     block.refresh(Yp)
             w = 2.0 * c / sigma2
-            uniform = rng.random((L + 1, M))
+            rng.random(out=uniform)  # the same stream as rng.random((L + 1, M)), without a new array each sweep
             for block in blocks:
                 block.draw(Qp, c, w, uniform, rng, guard)
             if sweep >= burn:
@@ -252,6 +253,7 @@ class _Block:
         self.position = np.arange(connected.shape[0])[:, None]
         self.work = np.empty(connected.shape)
         self.odds = np.empty(connected.shape)
+        self.plus = np.empty(connected.shape, dtype=bool)
 
     @classmethod
     def build(cls, parity: int, L: int, Vp: np.ndarray, Yp: np.ndarray) -> "_Block":
@@ -276,17 +278,17 @@ class _Block:
         log_odds *= c
         log_odds += self.y_diff
         log_odds *= w
-        # q_k = +1 with probability 1 / (1 + exp(-log_odds))
+        # q_k = +1 with probability 1 / (1 + exp(-log_odds)), written straight into the state
         np.negative(log_odds, out=work)
         np.exp(work, out=work)
         work += 1.0
         work *= uniform[self.parity :: 2]
-        draw = (work < 1.0).astype(float)
-        draw *= 2.0
+        draw = Qp[self.own]
+        np.less(work, 1.0, out=self.plus)
+        np.multiply(self.plus, 2.0, out=draw)
         draw -= 1.0
         if guard:
             self._guard(draw, q_left, q_right, rng)
-        Qp[self.own] = draw
 
     def _guard(self, draw, q_left, q_right, rng) -> None:
         """Redraw the months whose free draw could make every valid dq zero."""

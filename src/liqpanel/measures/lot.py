@@ -26,18 +26,26 @@ The thresholds are bounded, alpha_1 <= 0 <= alpha_2 (LOT 1999: a sell and a
 buy threshold), so a month without zero returns has the cost 0 rather than
 the negative difference of two free intercepts.
 
-Fit: maximum likelihood for every security-month at once. The months are
-padded to (days x months) arrays with a mask and reduced once to what the
-likelihood needs (``LotData``: six sums per region and month for the
-non-zero returns, whose terms are quadratic in the parameters, and the zero
-returns one by one); each iteration computes the analytic gradient and
-Hessian of every month's log-likelihood and a
-Levenberg-Marquardt step per month (a 4 x 4 solve, batched), projected onto
-the bounds, accepted where the likelihood rises (the damping falls) and
-refused elsewhere (the damping rises). A month has converged when its
-largest scaled step and its likelihood change are below the tolerances and
-its gradient (projected on the bounds) is near zero. The loop runs over
-iterations only, on the months not yet converged.
+Fit: maximum likelihood for every security-month at once. The months'
+valid days are rows in month order, reduced once to what the likelihood
+needs (``LotData``: six sums per region and month for the non-zero returns,
+whose terms are quadratic in the parameters, and the zero returns one by
+one). Starting values come from moments (a month without zero returns
+starts at its bounded least-squares fit, which is its maximum or next to
+it). Each iteration is one batched damped Newton (Levenberg-Marquardt) step
+for every month not yet converged: the analytic Hessian, a 4 x 4 Cholesky
+solve written over whole arrays of months, the step projected onto the
+bounds and accepted where the likelihood does not fall (the damping falls)
+or refused (it rises); the likelihood, gradient and Hessian are evaluated
+once per iteration, at the trial point, every per-return term summed per
+month in one pass. A month has converged when its next step is below the
+tolerance and the rise it predicts too (or below the rounding of its
+log-likelihood) and its gradient, projected on the bounds, is near zero.
+The loop runs over iterations only, on a compact state of the months still
+iterating, for ``CHUNK_MONTHS`` months at a time (their arrays stay in the
+processor's cache); after ``FIRST_TURNS`` iterations the few months of every
+piece still going continue together from the state they stopped in, so the
+iterates are those of one batch.
 """
 
 from __future__ import annotations
@@ -49,20 +57,28 @@ import polars as pl
 
 from liqpanel.contracts import require_columns
 from liqpanel.errors import ConfigError
+from liqpanel.measures.neighbours import FIRST_OF_MONTH, in_security_date_order
 
 KEY = ["security", "month"]
 FORMS = ("mixed", "ysplit")
 LOG_ROOT_2PI = 0.5 * np.log(2.0 * np.pi)
 MIN_RETURNS = 5  # fewest returns for four parameters and a variance (convention of this project)
+CHUNK_MONTHS = 8192  # months fitted together: their working arrays stay in the processor's cache
+FIRST_TURNS = 8  # iterations of a piece of months; the months still going then continue together
+RESULTS = ("alpha_1", "alpha_2", "beta", "sigma", "log_likelihood", "iterations", "converged")
 
 
 def _log_interval(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
-    """ln(Phi(hi) - Phi(lo)) accurately in both tails; -inf where hi <= lo."""
+    """ln(Phi(hi) - Phi(lo)) accurately in both tails; -inf where hi <= lo.
+
+    Where both lie in the upper tail the interval is reflected, Phi(hi) -
+    Phi(lo) = Phi(-lo) - Phi(-hi), so each entry needs two ``log_ndtr``.
+    """
     from scipy.special import log_ndtr  # imported here: a clean or bars job reads the registry without scipy
 
-    upper = lo > 0  # both in the upper tail: Phi(hi) - Phi(lo) = Phi(-lo) - Phi(-hi)
-    a = np.where(upper, log_ndtr(-lo), log_ndtr(hi))
-    b = np.where(upper, log_ndtr(-hi), log_ndtr(lo))
+    upper = lo > 0
+    a = log_ndtr(np.where(upper, -lo, hi))
+    b = log_ndtr(np.where(upper, -hi, lo))
     with np.errstate(divide="ignore", invalid="ignore"):
         out = a + np.log1p(-np.exp(b - a))
     return np.where(hi > lo, out, -np.inf)
@@ -75,6 +91,24 @@ def regions(ret: np.ndarray, market: np.ndarray, form: str) -> tuple[np.ndarray,
     return zero, ~zero & below, ~zero & ~below
 
 
+def _as_rows(valid: np.ndarray):
+    """Pick the valid entries of padded (days, months) arrays as rows in month order; also each row's month."""
+    month, day = np.nonzero(np.asarray(valid, dtype=bool).T)
+    return (lambda values: np.asarray(values)[day, month]), month
+
+
+def _month_totals(terms: np.ndarray, month: np.ndarray, months: int) -> np.ndarray:
+    """Per-row ``terms`` (k, rows), rows in month order, summed per month: (k, months), zero for a month without rows.
+
+    One ``reduceat`` over the runs of each month for every term at once.
+    """
+    out = np.zeros((terms.shape[0], months))
+    if len(month):
+        starts = np.flatnonzero(np.r_[True, month[1:] != month[:-1]])
+        out[:, month[starts]] = np.add.reduceat(terms, starts, axis=1)
+    return out
+
+
 @dataclass(frozen=True)
 class LotData:
     """What the likelihood needs of the months: sums over the non-zero returns of each region, and the zero returns.
@@ -83,7 +117,8 @@ class LotData:
     parameters, so six sums per region and month (count, sum R, sum R_m,
     sum R^2, sum R R_m, sum R_m^2; ``stats`` of shape (2, 6, months)) replace
     them; only the zero returns (their market return ``zero_market`` and
-    month ``zero_month``) need the normal distribution at every iteration.
+    month ``zero_month``, in month order) need the normal distribution at
+    every iteration.
     """
 
     stats: np.ndarray
@@ -91,21 +126,35 @@ class LotData:
     zero_month: np.ndarray
 
     @classmethod
+    def from_rows(cls, ret, market, month, months: int, masks) -> "LotData":
+        """From one row per valid day in month order (``month`` numbers the months 0..) and the region masks."""
+        zero, one, two = masks
+        key = 3 * month + np.where(one, 1, np.where(two, 2, 0))  # (month, region) cells; region 0's are dropped
+        sums = [np.bincount(key, weights=w, minlength=3 * months).reshape(months, 3)[:, 1:].T
+                for w in (None, ret, market, ret * ret, ret * market, market * market)]
+        return cls(np.stack(sums, axis=1).astype(float), market[zero], month[zero])
+
+    @classmethod
     def build(cls, ret, market, masks, valid) -> "LotData":
-        zero, one, two = (m & valid for m in masks)
-        sums = []
-        for region in (one, two):
-            r, x = np.where(region, ret, 0.0), np.where(region, market, 0.0)
-            sums.append([region.sum(axis=0), r.sum(axis=0), x.sum(axis=0), (r * r).sum(axis=0), (r * x).sum(axis=0),
-                         (x * x).sum(axis=0)])
-        day, month = np.nonzero(zero)
-        return cls(np.asarray(sums, dtype=float), market[day, month], month)
+        """From padded (days, months) arrays, the region masks (``regions``) and the mask of valid days."""
+        pick, month = _as_rows(valid)
+        masks = tuple(pick(m).astype(bool) for m in masks)
+        return cls.from_rows(pick(ret).astype(float), pick(market).astype(float), month, np.shape(valid)[1], masks)
 
     @property
     def months(self) -> int:
         return self.stats.shape[2]
 
+    @classmethod
+    def concat(cls, parts: list["LotData"]) -> "LotData":
+        """The months of ``parts`` one after the other."""
+        offsets = np.cumsum([0, *[part.months for part in parts[:-1]]])
+        return cls(np.concatenate([part.stats for part in parts], axis=2),
+                   np.concatenate([part.zero_market for part in parts]),
+                   np.concatenate([part.zero_month + offset for part, offset in zip(parts, offsets)]))
+
     def subset(self, cols: np.ndarray) -> "LotData":
+        """The months ``cols`` (ascending), renumbered 0..len(cols) - 1."""
         position = np.full(self.months, -1)
         position[cols] = np.arange(len(cols))
         where = position[self.zero_month]
@@ -118,7 +167,16 @@ def log_likelihood(theta: np.ndarray, ret, market, masks, valid, *, hessian: boo
     return evaluate(theta, LotData.build(ret, market, masks, valid), hessian=hessian)
 
 
-def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False):
+UPPER = np.triu_indices(4)
+
+
+def _squares(stats: np.ndarray, a: np.ndarray, beta: np.ndarray) -> np.ndarray:
+    """Q_k = sum over region k's non-zero returns of (R + alpha_k - beta R_m)^2 from its sums; ``a`` (2, months)."""
+    n, sr, sx, srr, srx, sxx = stats.transpose(1, 0, 2)
+    return srr + n * a * a + beta * beta * sxx + 2.0 * a * sr - 2.0 * beta * srx - 2.0 * a * beta * sx
+
+
+def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False, months_last: bool = False):
     """Each month's log-likelihood, its gradient and (``hessian=True``) its Hessian in (alpha_1, alpha_2, beta, ln sigma).
 
     ``theta`` has shape (4, months); the gradient (4, months), the Hessian
@@ -126,78 +184,107 @@ def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False):
     Q_k / (2 sigma^2) with Q_k = sum (R + alpha_k - beta R_m)^2, expanded in
     the region's sums. A zero return contributes ln D with l = (alpha_1 -
     beta R_m) / sigma, h = (alpha_2 - beta R_m) / sigma, D = Phi(h) -
-    Phi(l), u = phi(h) / D, v = phi(l) / D: d ln D / dp = u h_p - v l_p and
+    Phi(l), u = phi(h) / D, v = phi(l) / D: g_p = d ln D / dp = u h_p - v l_p and
     d^2 ln D / dp dq = -h u h_p h_q + u h_pq + l v l_p l_q - v l_pq - g_p g_q.
+    The second derivatives of l and h are nonzero only against ln sigma
+    (l_{a1,t} = -1/s, l_{b,t} = X/s, l_{t,t} = l, and h alike with alpha_2),
+    which makes u h_pt - v l_pt = -g_p. Every per-return term is summed per
+    month in one pass. ``months_last=True`` gives the Hessian as (4, 4, months).
     """
     a1, a2, beta, log_s = theta
     months = theta.shape[1]
     var = np.exp(2.0 * log_s)
     n, sr, sx, srr, srx, sxx = data.stats.transpose(1, 0, 2)  # each (2, months): regions 1 and 2
     a = np.stack([a1, a2])
-    q = srr + n * a * a + beta * beta * sxx + 2.0 * a * sr - 2.0 * beta * srx - 2.0 * a * beta * sx
-    moved = n.sum(axis=0)
-    ll = -moved * (log_s + LOG_ROOT_2PI) - q.sum(axis=0) / (2.0 * var)
+    q = _squares(data.stats, a, beta)
+    q_total, moved = q.sum(axis=0), n.sum(axis=0)
+    ll = -moved * (log_s + LOG_ROOT_2PI) - q_total / (2.0 * var)
     d_a = -(n * a + sr - beta * sx) / var  # (2, months)
     d_b = -(beta * sxx - srx - a * sx).sum(axis=0) / var
-    d_t = -moved + q.sum(axis=0) / var
+    d_t = -moved + q_total / var
     # zero returns, one entry each
     m, x = data.zero_month, data.zero_market
-    s = np.exp(log_s)[m]
-    lo, hi = (a1[m] - beta[m] * x) / s, (a2[m] - beta[m] * x) / s
+    inv = np.exp(-log_s)[m]
+    xi = x * inv
+    lo, hi = a1[m] * inv - beta[m] * xi, a2[m] * inv - beta[m] * xi
     log_d = _log_interval(lo, hi)
     u = np.exp(-0.5 * hi * hi - LOG_ROOT_2PI - log_d)
     v = np.exp(-0.5 * lo * lo - LOG_ROOT_2PI - log_d)
-    inv = 1.0 / s
-    zeros = np.zeros_like(x)
-    l_p = np.stack([inv, zeros, -x * inv, -lo])
-    h_p = np.stack([zeros, inv, -x * inv, -hi])
-    g_zero = u * h_p - v * l_p
-
-    def total(values: np.ndarray) -> np.ndarray:
-        return np.bincount(m, weights=values, minlength=months)
-
-    ll = ll + total(log_d)
-    grad = np.stack([d_a[0], d_a[1], d_b, d_t]) + np.stack([total(g) for g in g_zero])
-    grad = np.nan_to_num(grad, nan=0.0, posinf=0.0, neginf=0.0)
+    g_zero = np.stack([-v * inv, u * inv, (v - u) * xi, v * lo - u * hi])
+    terms = [log_d[None], g_zero]
+    if hessian:
+        zeros = np.zeros_like(x)
+        l_p = np.stack([inv, zeros, -xi, -lo])
+        h_p = np.stack([zeros, inv, -xi, -hi])
+        i, j = UPPER
+        terms.append((-hi * u) * h_p[i] * h_p[j] + (lo * v) * l_p[i] * l_p[j] - g_zero[i] * g_zero[j])
+    totals = _month_totals(np.concatenate(terms), m, months)
+    ll = ll + totals[0]
+    zero_grad = totals[1:5]
+    grad = np.nan_to_num(np.stack([d_a[0], d_a[1], d_b, d_t]) + zero_grad, nan=0.0, posinf=0.0, neginf=0.0)
     if not hessian:
         return ll, grad
-    h = np.zeros((months, 4, 4))
-    h[:, 0, 0], h[:, 1, 1] = -n[0] / var, -n[1] / var
-    h[:, 0, 2], h[:, 1, 2] = sx[0] / var, sx[1] / var
-    h[:, 2, 2] = -sxx.sum(axis=0) / var
-    h[:, 0, 3], h[:, 1, 3], h[:, 2, 3] = -2.0 * d_a[0], -2.0 * d_a[1], -2.0 * d_b
-    h[:, 3, 3] = -2.0 * q.sum(axis=0) / var
-    for i in range(4):
-        for j in range(i, 4):
-            term = -hi * u * h_p[i] * h_p[j] + lo * v * l_p[i] * l_p[j] - g_zero[i] * g_zero[j]
-            h[:, i, j] += total(term)
-    # second derivatives of l and h: l_{a1,t} = -1/s, l_{b,t} = X/s, l_{t,t} = l (and h alike with alpha_2)
-    h[:, 0, 3] += total(v * inv)
-    h[:, 1, 3] -= total(u * inv)
-    h[:, 2, 3] += total((u - v) * x * inv)
-    h[:, 3, 3] += total(u * hi - v * lo)
-    lower = np.tril_indices(4, -1)
-    h[:, lower[0], lower[1]] = h[:, lower[1], lower[0]]
-    return ll, grad, np.nan_to_num(h)
+    h = np.empty((4, 4, months))  # months last: each entry a contiguous row
+    h[i, j] = totals[5:]
+    h[0, 0] -= n[0] / var
+    h[1, 1] -= n[1] / var
+    h[0, 2] += sx[0] / var
+    h[1, 2] += sx[1] / var
+    h[2, 2] -= sxx.sum(axis=0) / var
+    h[0, 3] -= 2.0 * d_a[0] + zero_grad[0]
+    h[1, 3] -= 2.0 * d_a[1] + zero_grad[1]
+    h[2, 3] -= 2.0 * d_b + zero_grad[2]
+    h[3, 3] -= 2.0 * q_total / var + zero_grad[3]
+    h[j, i] = h[i, j]
+    h = np.nan_to_num(h, copy=False)
+    return ll, grad, (h if months_last else np.moveaxis(h, 2, 0))
+
+
+def _starting_values(data: LotData) -> np.ndarray:
+    """Moments of the month's returns (see ``starting_values``); a month without zero returns starts at least squares.
+
+    With no zero return the likelihood is that of a regression of R on the
+    region intercepts -alpha_k and R_m, so the bounded least-squares fit
+    (an intercept past its bound held at zero and the rest refitted) with
+    sigma^2 = Q / n is the maximum itself, or next to it.
+    """
+    from scipy.special import ndtri  # imported here: a clean or bars job reads the registry without scipy
+
+    n, sr, sx, srr, srx, sxx = data.stats.sum(axis=0)  # the non-zero returns of both regions
+    count = np.maximum(n, 1.0)
+    mx, my = sx / count, sr / count
+    cxx, cxy = sxx - n * mx * mx, srx - n * mx * my
+    beta = np.where(cxx > 0, cxy / np.where(cxx > 0, cxx, 1.0), 0.0)
+    sigma = np.sqrt(np.maximum(srr - 2.0 * beta * srx + beta * beta * sxx, 0.0) / count)
+    sigma = np.where(sigma > 0, sigma, 0.01)
+    zeros = np.bincount(data.zero_month, minlength=data.months)
+    z = zeros / np.maximum(n + zeros, 1.0)
+    half = sigma * ndtri((1.0 + np.minimum(z, 0.99)) / 2.0)
+    theta = np.stack([-half, half, beta, np.log(sigma)])
+    # least squares in (alpha_1, alpha_2, beta): n_k alpha_k - sx_k beta = -sr_k, -sum_k sx_k alpha_k + sxx beta = srx
+    k_n, k_r, k_x, _, k_rx, k_xx = data.stats.transpose(1, 0, 2)
+    system = np.zeros((3, 3, data.months))
+    system[0, 0], system[1, 1], system[2, 2] = k_n[0], k_n[1], k_xx.sum(axis=0)
+    system[0, 2] = system[2, 0] = -k_x[0]
+    system[1, 2] = system[2, 1] = -k_x[1]
+    rhs = np.stack([-k_r[0], -k_r[1], k_rx.sum(axis=0)])
+    free = np.stack([k_n[0] > 0, k_n[1] > 0, np.ones(data.months, dtype=bool)])
+    fit, failed = _masked_solve(system, rhs, free)
+    free &= np.stack([fit[0] <= 0.0, fit[1] >= 0.0, free[2]])  # the bounds alpha_1 <= 0 <= alpha_2
+    fit, again = _masked_solve(system, rhs, free)
+    q = _squares(data.stats, fit[:2], fit[2]).sum(axis=0)
+    use = (zeros == 0) & ~failed & ~again & (q > 0) & (n > 0)
+    theta[:3, use] = fit[:, use]
+    theta[3, use] = 0.5 * np.log(q[use] / n[use])
+    return theta
 
 
 def starting_values(ret, market, valid) -> np.ndarray:
-    """beta from OLS on the non-zero returns, sigma their residual sd, alpha_2 = -alpha_1 = sigma Phi^{-1}((1 + z) / 2)."""
-    from scipy.special import ndtri  # imported here: a clean or bars job reads the registry without scipy
+    """beta from OLS on the non-zero returns, sigma their residual sd, alpha_2 = -alpha_1 = sigma Phi^{-1}((1 + z) / 2).
 
-    moved = valid & (ret != 0)
-    n = np.maximum(moved.sum(axis=0), 1)
-    mx = np.where(moved, market, 0).sum(axis=0) / n
-    my = np.where(moved, ret, 0).sum(axis=0) / n
-    sxx = np.where(moved, (market - mx) ** 2, 0).sum(axis=0)
-    sxy = np.where(moved, (market - mx) * (ret - my), 0).sum(axis=0)
-    beta = np.where(sxx > 0, sxy / np.where(sxx > 0, sxx, 1.0), 0.0)
-    resid = np.where(moved, ret - beta * market, 0.0)
-    sigma = np.sqrt((resid**2).sum(axis=0) / n)
-    sigma = np.where(sigma > 0, sigma, 0.01)
-    z = (valid & (ret == 0)).sum(axis=0) / np.maximum(valid.sum(axis=0), 1)
-    half = sigma * ndtri((1.0 + np.minimum(z, 0.99)) / 2.0)
-    return np.stack([-half, half, beta, np.log(sigma)])
+    Padded (days, months) arrays; z is the month's share of zero returns.
+    """
+    return _starting_values(LotData.build(ret, market, regions(np.asarray(ret), np.asarray(market), "ysplit"), valid))
 
 
 def fit_lot(ret: np.ndarray, market: np.ndarray, valid: np.ndarray, *, form: str = "ysplit", max_iterations: int = 200,
@@ -209,69 +296,182 @@ def fit_lot(ret: np.ndarray, market: np.ndarray, valid: np.ndarray, *, form: str
     method). ``tolerance``: on the largest step relative to sigma (alphas,
     ln sigma) or to 1 (beta), and on the change of the log-likelihood.
     """
+    pick, month = _as_rows(valid)
+    return fit_rows(pick(ret).astype(float), pick(market).astype(float), month, np.shape(valid)[1], form=form,
+                    max_iterations=max_iterations, tolerance=tolerance)
+
+
+def fit_rows(ret: np.ndarray, market: np.ndarray, month: np.ndarray, months: int, *, form: str = "ysplit",
+             max_iterations: int = 200, tolerance: float = 1e-8) -> dict[str, np.ndarray]:
+    """``fit_lot`` on one row per valid day, rows in month order, ``month`` numbering the months 0..``months`` - 1."""
     if form not in FORMS:
         raise ConfigError(f"LOT: `form` must be one of {FORMS}, got {form!r}")
-    ret = np.where(valid, ret, 0.0)
-    market = np.where(valid, market, 0.0)
-    masks = regions(ret, market, form)
-    theta = starting_values(ret, market, valid)
-    with np.errstate(all="ignore"):  # trial steps may leave the domain; their likelihood is -inf and they are refused
-        return _iterate(theta, LotData.build(ret, market, masks, valid), max_iterations, tolerance)
+    parts, pending = [], []
+    first = min(max_iterations, FIRST_TURNS)
+    for start in range(0, max(months, 1), CHUNK_MONTHS):  # months are independent: a piece at a time stays in cache
+        stop = min(start + CHUNK_MONTHS, months)
+        a, b = np.searchsorted(month, [start, stop])
+        r, x = ret[a:b], market[a:b]
+        data = LotData.from_rows(r, x, month[a:b] - start, stop - start, regions(r, x, form))
+        with np.errstate(all="ignore"):  # trial steps may leave the domain; their likelihood is -inf and they are refused
+            part = _iterate(_starting_values(data), data, first, tolerance)
+        left = np.flatnonzero(~part["_done"] & (part["iterations"] >= first)) if max_iterations > first else []
+        parts.append(part)
+        pending.append((part, left, data.subset(left) if len(left) else None))
+    pending = [item for item in pending if len(item[1])]
+    if pending:  # the few slow months of every piece go on together, from where they stopped (the same iterates)
+        state = {key: np.concatenate([part[key][..., left] for part, left, _ in pending], axis=-1)
+                 for key in ("_theta", "_damping", "iterations")}
+        with np.errstate(all="ignore"):
+            more = _iterate(state["_theta"], LotData.concat([data for _, _, data in pending]), max_iterations, tolerance,
+                            damping=state["_damping"], iterations=state["iterations"])
+        at = 0
+        for part, left, _ in pending:
+            for key in RESULTS:
+                part[key][left] = more[key][at:at + len(left)]
+            at += len(left)
+    return {key: np.concatenate([part[key] for part in parts]) for key in RESULTS}
 
 
-def _iterate(theta, all_data: LotData, max_iterations, tolerance) -> dict[str, np.ndarray]:
-    months = theta.shape[1]
-    ll, grad = evaluate(theta, all_data)
-    damping = np.full(months, 1e-3)
-    done = np.zeros(months, dtype=bool)
-    iterations = np.zeros(months, dtype=np.int64)
-    eye = np.eye(4)
-    for _ in range(max_iterations):
-        active = ~done
-        if not active.any():
-            break
-        cols = np.flatnonzero(active)
-        th, data = theta[:, cols], (all_data if len(cols) == months else all_data.subset(cols))
-        g = grad[:, cols]
-        scale = np.stack([np.exp(th[3])] * 2 + [np.ones(len(cols)), np.ones(len(cols))])  # sigma for the alphas
-        hessian = evaluate(th, data, hessian=True)[2]
-        curvature = np.abs(np.diagonal(hessian, axis1=1, axis2=2)) + 1e-12
-        system = -hessian + damping[cols, None, None] * curvature[:, :, None] * eye
-        # a threshold held at its bound by its gradient stays there: its row and column leave the system
-        held = np.zeros((len(cols), 4), dtype=bool)
-        held[:, 0] = (th[0] >= 0.0) & (g[0] > 0.0)
-        held[:, 1] = (th[1] <= 0.0) & (g[1] < 0.0)
-        free = ~held
-        system = np.where(free[:, :, None] & free[:, None, :], system, eye)
-        rhs = np.where(free, g.T, 0.0)[:, :, None]
-        try:
-            step = np.linalg.solve(system, rhs)[:, :, 0].T
-        except np.linalg.LinAlgError:  # a singular month: the pseudo-inverse step
-            step = (np.linalg.pinv(system) @ rhs)[:, :, 0].T
-        candidate = th + step
-        candidate[0] = np.minimum(candidate[0], 0.0)  # the bounds of LOT (1999): alpha_1 <= 0 <= alpha_2
-        candidate[1] = np.maximum(candidate[1], 0.0)
-        step = candidate - th
-        new_ll, new_grad = evaluate(candidate, data)
-        better = np.isfinite(new_ll) & (new_ll >= ll[cols])
-        iterations[cols] += 1
-        size = np.max(np.abs(step) / scale, axis=0)
-        change = np.where(better, new_ll - ll[cols], 0.0)
-        theta[:, cols] = np.where(better, candidate, th)
-        ll[cols] = np.where(better, new_ll, ll[cols])
-        grad[:, cols] = np.where(better, new_grad, g)
-        damping[cols] = np.where(better, np.maximum(damping[cols] / 3.0, 1e-9), damping[cols] * 4.0)
-        finished = better & (size < tolerance) & (change < tolerance)
-        stalled = damping[cols] > 1e12
-        done[cols] = finished | stalled
+ROUNDING = 1e-15  # relative rounding of a month's log-likelihood: a rise predicted below it cannot be checked
+
+
+def _gradient_small(theta: np.ndarray, grad: np.ndarray) -> np.ndarray:
+    """The gradient, projected on the bounds and scaled by sigma for the alphas, below 1e-4 in every component."""
     projected = grad.copy()  # a bound that holds a threshold at zero against its gradient takes no part
     projected[0] = np.where((theta[0] >= 0.0) & (grad[0] > 0.0), 0.0, grad[0])
     projected[1] = np.where((theta[1] <= 0.0) & (grad[1] < 0.0), 0.0, grad[1])
-    gradient_small = np.max(np.abs(projected) * np.stack([np.exp(theta[3])] * 2 + [np.ones(months)] * 2), axis=0) < 1e-4
-    converged = done & gradient_small & np.isfinite(ll)
+    scale = np.stack([np.exp(theta[3])] * 2 + [np.ones(theta.shape[1])] * 2)
+    return np.max(np.abs(projected) * scale, axis=0) < 1e-4
+
+
+def _cholesky_solve(system: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Solve every month's symmetric (k, k) system (``system`` (k, k, months), ``rhs`` (k, months)) by Cholesky at once.
+
+    Returns the solutions (k, months) and the months whose system is not
+    positive definite (their solution is left unspecified). Whole-array
+    operations over the months, a few dozen for k = 4, instead of one small
+    LAPACK call per month.
+    """
+    k, months = system.shape[0], system.shape[2]
+    low = [[None] * k for _ in range(k)]
+    failed = np.zeros(months, dtype=bool)
+
+    def dot(pairs) -> np.ndarray:
+        return sum(pairs, np.zeros(months))
+
+    for j in range(k):
+        pivot = system[j, j] - dot(low[j][p] ** 2 for p in range(j))
+        failed |= ~(pivot > 0)
+        low[j][j] = np.sqrt(np.where(pivot > 0, pivot, 1.0))
+        for i in range(j + 1, k):
+            low[i][j] = (system[i, j] - dot(low[i][p] * low[j][p] for p in range(j))) / low[j][j]
+    y = [None] * k
+    for i in range(k):
+        y[i] = (rhs[i] - dot(low[i][p] * y[p] for p in range(i))) / low[i][i]
+    x = [None] * k
+    for i in reversed(range(k)):
+        x[i] = (y[i] - dot(low[p][i] * x[p] for p in range(i + 1, k))) / low[i][i]
+    return np.stack(x), failed
+
+
+def _masked_solve(system: np.ndarray, rhs: np.ndarray, free: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``_cholesky_solve`` with the unknowns not ``free`` (k, months) held at zero: their rows and columns leave the system."""
+    k = system.shape[0]
+    if not free.all():
+        system = np.where(free[:, None] & free[None, :], system, np.eye(k)[:, :, None])
+        rhs = np.where(free, rhs, 0.0)
+    return _cholesky_solve(system, rhs)
+
+
+def _newton_step(theta, grad, hess, damping):
+    """The damped Newton step of each month (``hess`` (4, 4, months)), projected on the bounds."""
+    system = -hess
+    diagonal = np.arange(4)
+    system[diagonal, diagonal] += damping * (np.abs(hess[diagonal, diagonal]) + 1e-12)
+    # a threshold held at its bound by its gradient stays there
+    free = np.ones((4, theta.shape[1]), dtype=bool)
+    free[0] = ~((theta[0] >= 0.0) & (grad[0] > 0.0))
+    free[1] = ~((theta[1] <= 0.0) & (grad[1] < 0.0))
+    step, failed = _masked_solve(system, grad, free)
+    if failed.any():  # a system that is not positive definite: LU, or for a singular month the pseudo-inverse step
+        system = np.where(free[:, None] & free[None, :], system, np.eye(4)[:, :, None])
+        stacked, right = np.moveaxis(system[:, :, failed], 2, 0), np.where(free, grad, 0.0)[:, failed].T[:, :, None]
+        try:
+            step[:, failed] = np.linalg.solve(stacked, right)[:, :, 0].T
+        except np.linalg.LinAlgError:
+            step[:, failed] = (np.linalg.pinv(stacked) @ right)[:, :, 0].T
+    candidate = theta + step
+    candidate[0] = np.minimum(candidate[0], 0.0)  # the bounds of LOT (1999): alpha_1 <= 0 <= alpha_2
+    candidate[1] = np.maximum(candidate[1], 0.0)
+    return candidate
+
+
+def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iterations=None) -> dict[str, np.ndarray]:
+    """Damped Newton (Levenberg-Marquardt) steps on the months not yet converged, their state kept compact.
+
+    A month has converged when its next step, undamped (the damping at or
+    below its starting value), is below ``tolerance`` relative to sigma
+    (alphas, ln sigma) or to 1 (beta) and the rise of the likelihood it
+    predicts (g . step) is below ``tolerance`` too: the point is within the
+    tolerance of the maximum, and the step is not taken. Otherwise the step is
+    tried: accepted where the likelihood does not fall (the damping falls),
+    refused elsewhere (the damping rises). A month whose damping passes 1e12
+    has stalled. The Hessian is computed with each trial point and kept with
+    an accepted one, so an iteration evaluates the likelihood once.
+    """
+    months = theta.shape[1]
+    out_theta, out_ll, out_grad = theta.copy(), np.full(months, -np.inf), np.zeros((4, months))
+    iterations = np.zeros(months, dtype=np.int64) if iterations is None else iterations.copy()
+    done = np.zeros(months, dtype=bool)
+    ll, grad, hess = evaluate(theta, data, hessian=True, months_last=True)
+    damping = np.full(months, 1e-3) if damping is None else damping.copy()
+    out_damping = damping.copy()
+    cols = np.arange(months)  # the months still iterating, in the order of the compact state
+
+    def retire(finished: np.ndarray, converged: np.ndarray) -> None:
+        nonlocal cols, theta, ll, grad, hess, damping, data
+        where = cols[finished]
+        out_theta[:, where], out_ll[where], out_grad[:, where] = theta[:, finished], ll[finished], grad[:, finished]
+        out_damping[where], done[where] = damping[finished], converged[finished]
+        going = np.flatnonzero(~finished)
+        cols, theta, ll, grad, hess, damping = cols[going], theta[:, going], ll[going], grad[:, going], hess[:, :, going], damping[going]
+        data = data.subset(going)
+
+    for _ in range(max_iterations + 1):
+        if not len(cols):
+            break
+        candidate = _newton_step(theta, grad, hess, damping)
+        step = candidate - theta
+        scale = np.stack([np.exp(theta[3])] * 2 + [np.ones(len(cols))] * 2)  # sigma for the alphas
+        gain = np.abs((grad * step).sum(axis=0))  # the rise of the likelihood the step predicts
+        small = ((np.max(np.abs(step) / scale, axis=0) < tolerance) & (gain < tolerance) & (damping <= 1e-3)) | (
+            (gain < ROUNDING * (1.0 + np.abs(ll))) & _gradient_small(theta, grad))
+        small &= np.isfinite(ll)
+        stalled = damping > 1e12
+        out_of_turns = iterations[cols] >= max_iterations
+        if (small | stalled | out_of_turns).any():
+            finished = small | stalled | out_of_turns
+            retire(finished, small | stalled)
+            if not len(cols):
+                break
+            candidate = candidate[:, ~finished]
+        new_ll, new_grad, new_hess = evaluate(candidate, data, hessian=True, months_last=True)
+        better = np.isfinite(new_ll) & (new_ll >= ll)
+        iterations[cols] += 1
+        theta = np.where(better, candidate, theta)
+        ll = np.where(better, new_ll, ll)
+        grad = np.where(better, new_grad, grad)
+        hess = np.where(better, new_hess, hess)
+        damping = np.where(better, np.maximum(damping / 3.0, 1e-9), damping * 4.0)
+    if len(cols):
+        retire(np.ones(len(cols), dtype=bool), np.zeros(len(cols), dtype=bool))
+    theta, ll, grad = out_theta, out_ll, out_grad
+    converged = done & _gradient_small(theta, grad) & np.isfinite(ll)
     return {
         "alpha_1": theta[0], "alpha_2": theta[1], "beta": theta[2], "sigma": np.exp(theta[3]),
         "log_likelihood": ll, "iterations": iterations, "converged": converged,
+        "_theta": theta, "_damping": out_damping, "_done": done,  # the state a later call resumes from
     }
 
 
@@ -298,43 +498,37 @@ def lot_cost(daily: pl.LazyFrame, *, form: str = "ysplit", max_iterations: int =
         raise ConfigError(f"measure 'lot_{form}': option `form` must be one of {FORMS}")
     require_columns(daily, ["security", "month", "date", "ret", "mkt_ret"], table="daily")
     name = f"lot_{form}"
-    ok = pl.col("ret").is_finite() & pl.col("mkt_ret").is_finite()
+    ok = (pl.col("ret").is_finite() & pl.col("mkt_ret").is_finite()).fill_null(False)
     frame = (
-        daily.select(*KEY, "date", "ret", "mkt_ret")
-        .sort("security", "month", "date")
-        .with_columns(ok.fill_null(False).alias("_ok"))
-        .with_columns(pl.col("_ok").cum_sum().over(KEY).alias("_pos"))
+        in_security_date_order(daily)  # a table the measures stage has sorted and flagged is kept as it is
+        .select(*KEY, FIRST_OF_MONTH, ok.alias("_ok"), "ret", "mkt_ret")
         .collect(engine="in-memory")
     )
-    months = frame.group_by(KEY, maintain_order=True).agg(pl.col("_ok").sum().cast(pl.Int64).alias("n_obs"))
-    fitted = months.filter(pl.col("n_obs") >= MIN_RETURNS).with_row_index("_g")
-    rows = frame.filter(pl.col("_ok")).join(fitted.select(*KEY, "_g"), on=KEY, how="inner")
-    cost = np.full(fitted.height, np.nan)
-    converged = np.zeros(fitted.height)
-    iterations = np.zeros(fitted.height)
-    if fitted.height:
-        days = int(fitted["n_obs"].max())
-        shape = (days, fitted.height)
-        at = (rows["_pos"].to_numpy() - 1, rows["_g"].to_numpy())
-        ret, market, valid = np.zeros(shape), np.zeros(shape), np.zeros(shape, dtype=bool)
-        ret[at], market[at], valid[at] = rows["ret"].to_numpy(), rows["mkt_ret"].to_numpy(), True
-        fit = fit_lot(ret, market, valid, form=form, max_iterations=max_iterations, tolerance=tolerance)
-        cost = np.where(fit["converged"], fit["alpha_2"] - fit["alpha_1"], np.nan)
-        converged = fit["converged"].astype(float)
-        iterations = fit["iterations"].astype(float)
-    estimates = fitted.select(*KEY, pl.Series(name, cost, nan_to_null=True), pl.Series(f"{name}_converged", converged),
-                              pl.Series(f"{name}_iterations", iterations))
-    return (
-        months.join(estimates, on=KEY, how="left", maintain_order="left")
-        .with_columns(
-            pl.when(pl.col("n_obs") < MIN_RETURNS).then(pl.lit("too_few_returns"))
-            .when(pl.col(name).is_null()).then(pl.lit("not_converged"))
-            .otherwise(None).cast(pl.String).alias("reason")
-        )
-        .select(*KEY, name, f"{name}_converged", f"{name}_iterations", "n_obs", "reason")
-        .sort(KEY)
-        .lazy()
-    )
+    month = np.cumsum(frame[FIRST_OF_MONTH].to_numpy()) - 1  # security-months numbered in (security, month) order
+    used = frame["_ok"].to_numpy()
+    n_obs = np.bincount(month[used], minlength=int(month[-1]) + 1 if len(month) else 0)
+    fitted = np.flatnonzero(n_obs >= MIN_RETURNS)
+    number = np.full(len(n_obs), -1)
+    number[fitted] = np.arange(len(fitted))
+    rows = used & (number[month] >= 0)
+    cost, converged, iterations = np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan)
+    if len(fitted):
+        fit = fit_rows(frame["ret"].to_numpy()[rows], frame["mkt_ret"].to_numpy()[rows], number[month[rows]], len(fitted),
+                       form=form, max_iterations=max_iterations, tolerance=tolerance)
+        cost[fitted] = np.where(fit["converged"], fit["alpha_2"] - fit["alpha_1"], np.nan)
+        converged[fitted] = fit["converged"]
+        iterations[fitted] = fit["iterations"]
+    return frame.filter(pl.col(FIRST_OF_MONTH)).select(
+        *KEY,
+        pl.Series(name, cost, nan_to_null=True),
+        pl.Series(f"{name}_converged", converged, nan_to_null=True),
+        pl.Series(f"{name}_iterations", iterations, nan_to_null=True),
+        pl.Series("n_obs", n_obs, dtype=pl.Int64),
+    ).with_columns(
+        pl.when(pl.col("n_obs") < MIN_RETURNS).then(pl.lit("too_few_returns"))
+        .when(pl.col(name).is_null()).then(pl.lit("not_converged"))
+        .otherwise(None).cast(pl.String).alias("reason")
+    ).lazy()
 
 
 def lot_mixed(daily: pl.LazyFrame, **options) -> pl.LazyFrame:
@@ -347,4 +541,4 @@ def lot_ysplit(daily: pl.LazyFrame, **options) -> pl.LazyFrame:
     return lot_cost(daily, form="ysplit", **options)
 
 
-__all__ = ["FORMS", "LotData", "evaluate", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values"]
+__all__ = ["FORMS", "LotData", "evaluate", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values", "fit_rows"]

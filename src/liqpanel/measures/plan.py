@@ -17,6 +17,13 @@ return). A ``Plan`` says exactly that and nothing more:
   column only with the same expression.
 - ``lasts``: named per-day values whose last non-null value in the month is
   kept (shares outstanding at the month's end).
+- ``per_month``: month constants, expressions over the plan's sums (by their
+  names) and ``n_days``, that per-day expressions may use: each is
+  computed once per month and put on every day of its month as a column of
+  that name (a constant repeated, no join or window). Sums that use them
+  are summed after the others. A formula of the form "sum over the days of
+  f(day, month's means)" (a variance around the month's mean) then needs
+  the sums of f, not the expansion of f into sums of every cross product.
 - ``monthly_steps``: monthly intermediate columns over those sums (each a
   mapping of name to expression, one ``with_columns`` in order), so a
   month's constant used many times in a formula is computed once; names
@@ -95,6 +102,7 @@ class Plan:
     lasts: dict[str, pl.Expr] = field(default_factory=dict)
     context: tuple[str, ...] = ()
     monthly_steps: tuple[dict[str, pl.Expr], ...] = ()
+    per_month: dict[str, pl.Expr] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         unknown = [c for c in self.context if c not in CONTEXTS]
@@ -173,6 +181,17 @@ def _steps(plans: dict[str, Plan]) -> list[dict[str, pl.Expr]]:
                 elif not known.meta.eq(expr):
                     raise ValueError(f"measure '{measure}': intermediate column {name!r} is defined differently by another measure")
     return levels
+
+
+def _per_month(plans: dict[str, Plan]) -> dict[str, tuple[str, pl.Expr]]:
+    """Every plan's month constants: name -> (measure, expression); a name defined twice must mean the same."""
+    out: dict[str, tuple[str, pl.Expr]] = {}
+    for measure, plan in plans.items():
+        for name, expr in plan.per_month.items():
+            if name in out and not out[name][1].meta.eq(expr):
+                raise ValueError(f"measure '{measure}': month constant {name!r} is defined differently by another measure")
+            out.setdefault(name, (measure, expr))
+    return out
 
 
 def _blocks(prepared: pl.DataFrame, rows: int | None = None) -> list[pl.DataFrame]:
@@ -280,6 +299,11 @@ def evaluate(
     sums, sum_names = _distinct(plans, "sums")
     lasts, last_names = _distinct(plans, "lasts")
     wants_context = {c for plan in plans.values() for c in plan.context}
+    constants = _per_month(plans)
+    # Sums that use a month constant come second: the constants are formed from the first ones, per slice.
+    late = [i for i, expr in enumerate(sums) if set(expr.meta.root_names()) & set(constants)]
+    early = [i for i in range(len(sums)) if i not in late]
+    late_inputs = sorted({c for i in late for c in sums[i].meta.root_names()} - set(constants))
     # The per-day quantities are columns of the whole sorted table (shifts and
     # fills cross security-months there; the month flags mask them). Each
     # security-month is a run of contiguous rows, so a monthly sum is a
@@ -287,24 +311,46 @@ def evaluate(
     # every run, one column per thread of the polars pool) and the month's
     # keys are read off its first row.
     quantities = [
-        *[expr.cast(pl.Float64).fill_null(0.0).alias(f"_sums{i}") for i, expr in enumerate(sums)],
+        *[sums[i].cast(pl.Float64).fill_null(0.0).alias(f"_sums{i}") for i in early],
         *[expr.alias(f"_lasts{i}") for i, expr in enumerate(lasts)],
     ]
     levels = _steps(plans)
 
-    def one_pass(rows: pl.DataFrame, pool: ThreadPoolExecutor) -> pl.DataFrame:
-        values = with_steps(rows.lazy(), levels).select(MONTH_ID, FIRST_OF_MONTH, LAST_OF_MONTH, *quantities).collect(engine="in-memory")
-        starts = values.select(pl.arg_where(pl.col(FIRST_OF_MONTH))).to_series().to_numpy()
+    def segment_sums(values: pl.DataFrame, indices: list[int], starts: np.ndarray, pool) -> dict[int, np.ndarray]:
         if len(starts) == 0:  # no rows: reduceat needs at least one segment
-            totals = [np.zeros(0) for _ in sums]
-        else:
-            totals = pool.map(lambda i: np.add.reduceat(values[f"_sums{i}"].to_numpy(), starts), range(len(sums)))
+            return {i: np.zeros(0) for i in indices}
+        return dict(zip(indices, pool.map(lambda i: np.add.reduceat(values[f"_sums{i}"].to_numpy(), starts), indices)))
+
+    def month_constants(totals: dict[int, np.ndarray], n_days: np.ndarray) -> pl.DataFrame:
+        """The month constants of every plan that has them, one row per month of the slice."""
+        columns = []
+        for name, (measure, expr) in constants.items():
+            local = {key: pl.Series(key, totals[int(column[5:])]) for key, column in sum_names[measure].items()
+                     if int(column[5:]) in totals}
+            frame = pl.DataFrame([pl.Series("n_days", n_days), *local.values()])
+            columns.append(frame.select(expr.cast(pl.Float64).alias(name)).to_series())
+        return pl.DataFrame(columns)
+
+    def one_pass(rows: pl.DataFrame, pool: ThreadPoolExecutor) -> pl.DataFrame:
+        values = (
+            with_steps(rows.lazy(), levels)
+            .select(MONTH_ID, FIRST_OF_MONTH, LAST_OF_MONTH, *quantities, *late_inputs)
+            .collect(engine="in-memory")
+        )
+        starts = values.select(pl.arg_where(pl.col(FIRST_OF_MONTH))).to_series().to_numpy()
+        n_days = np.diff(np.append(starts, rows.height))
+        totals = segment_sums(values, early, starts, pool)
+        if late:  # the month constants on every day of their month, then the sums that use them
+            repeated = month_constants(totals, n_days).select(pl.all().gather(np.repeat(np.arange(len(starts)), n_days)))
+            second = pl.concat([values.select(late_inputs), repeated], how="horizontal").select(
+                *[sums[i].cast(pl.Float64).fill_null(0.0).alias(f"_sums{i}") for i in late])
+            totals.update(segment_sums(second, late, starts, pool))
         first = rows.select(*KEY, "date", FIRST_OF_MONTH).filter(pl.col(FIRST_OF_MONTH))
         monthly = first.select(
             *KEY,
-            pl.Series("n_days", np.diff(np.append(starts, rows.height)), dtype=pl.Int64),
+            pl.Series("n_days", n_days, dtype=pl.Int64),
             *([pl.col("date").alias("_first_date")] if wants_context else []),
-        ).with_columns(pl.Series(f"_sums{i}", total) for i, total in enumerate(totals))
+        ).with_columns(pl.Series(f"_sums{i}", totals[i]) for i in range(len(sums)))
         if wants_context:
             last_date = rows.select("date", LAST_OF_MONTH).filter(pl.col(LAST_OF_MONTH))["date"]
             monthly = monthly.with_columns(last_date.alias("_last_date"))
