@@ -89,6 +89,21 @@ def test_hand_written_holidays_and_weekend():
     assert days == [date(2023, 3, d) for d in (1, 2, 5, 7, 8, 9)]
 
 
+def test_a_closed_day_has_no_session_for_the_clean_stage():
+    # A trade stamped on a holiday or on the weekend is bad data: the clean
+    # stage's outside_session rule drops it (a closed day has no session).
+    profile = check_market({"timezone": "UTC", "sessions": [["09:00", "17:00"]], "holidays": ["2023-01-16"]}, "h.yaml")
+    sample = for_sample(profile, date(2023, 1, 1), date(2023, 1, 31))
+    days = [date(2023, 1, 13), date(2023, 1, 14), date(2023, 1, 16), date(2023, 1, 17), date(2023, 2, 4)]
+    frame = pl.DataFrame({"day": days, "clock": [time(12, 0)] * len(days)})
+    got = frame.select(session_index(sample, pl.col("clock"), pl.col("day")))
+    # Fri 13 open, Sat 14 weekend, Mon 16 the holiday, Tue 17 open (calendar arithmetic); 4 February is
+    # beyond the span prepared, so only the clock decides
+    assert got.to_series().to_list() == [0, None, None, 0, 0]
+    plain = frame.select(session_index(profile, pl.col("clock"), pl.col("day"))).to_series().to_list()
+    assert plain == [0] * len(days)  # the profile alone, without the sample's calendar: the clock only
+
+
 def test_profile_without_a_calendar_has_no_trading_days():
     profile = check_market({"timezone": "UTC", "sessions": [["09:00", "17:00"]]}, "plain.yaml")
     with pytest.raises(ConfigError, match="no trading calendar"):

@@ -12,7 +12,9 @@ named rule it breaks. Trades, in this order:
 - ``nonpositive``: price <= 0 or size <= 0 (common practice; Barndorff-Nielsen,
   Hansen, Lunde & Shephard 2009, rule P2, for zero prices)
 - ``outside_session``: local time outside every session of the market
-  profile, half days honoured (BNHLS 2009, rule P1)
+  profile, half days honoured (BNHLS 2009, rule P1); with a trading
+  calendar (``calendar`` or ``holidays`` in the profile) every time of a
+  closed day is outside (``liqpanel.markets.for_sample``)
 - ``excluded_venue``: a venue not in ``clean.venues`` (BNHLS 2009, rule P3)
 - ``correction``: a correction indicator that ``clean.corrections`` maps
   to drop (BNHLS 2009, rule T1)

@@ -144,7 +144,12 @@ def _early_close(market: dict, day: pl.Expr) -> pl.Expr | None:
 
 
 def session_index(market: dict, local_time: pl.Expr, day: pl.Expr) -> pl.Expr:
-    """0-based index of the session holding each local time, null outside every session."""
+    """0-based index of the session holding each local time, null outside every session.
+
+    A profile prepared by ``for_sample`` with an explicit calendar has no
+    session on a closed day (a holiday or the weekend) within the sample's
+    span: every time of that day is outside.
+    """
     early = _early_close(market, day)
     index = pl.lit(None, dtype=pl.Int32)
     for k, (open_, close) in reversed(list(enumerate(sessions_of(market)))):
@@ -152,6 +157,10 @@ def session_index(market: dict, local_time: pl.Expr, day: pl.Expr) -> pl.Expr:
         if early is not None:
             inside = inside & (early.is_null() | (local_time <= early))
         index = pl.when(inside).then(pl.lit(k, dtype=pl.Int32)).otherwise(index)
+    if market.get("_open_days") is not None:
+        first, last, open_days = market["_open_days"]
+        closed = day.is_between(pl.lit(first), pl.lit(last)) & ~day.is_in(pl.Series(open_days, dtype=pl.Date).implode())
+        index = pl.when(closed).then(pl.lit(None, dtype=pl.Int32)).otherwise(index)
     return index
 
 
@@ -474,18 +483,21 @@ def sample_span(first_month: str, last_month: str) -> tuple[date, date]:
 
 
 def for_sample(market: dict, start, end) -> dict:
-    """The profile with the library's early closes of ``start``..``end`` among its half days (its own win).
+    """The profile with the library's early closes of ``start``..``end`` among its half days (its own win),
+    and, with an explicit calendar, its open days of that span (``session_index`` closes the others).
 
-    What the clean stage needs of a calendar-backed profile: the library's
-    half days of the sample's years. A profile without ``calendar`` is
-    returned as it is (no library is loaded).
+    What the clean stage needs of a profile with a calendar: the library's
+    half days of the sample's years, and its closed days, on which every
+    trade and quote is outside the session. A profile without ``calendar``
+    or ``holidays`` is returned as it is (no library is loaded).
     """
     market = _checked(market)
-    if market.get("calendar") is None:
+    if not has_calendar(market):
         return market
     days = trading_days(market, start, end)
     library = dict(days.filter(pl.col("early_close").is_not_null()).select("date", "early_close").iter_rows())
-    return {**market, "_half_days": {**library, **market["_half_days"]}}
+    return {**market, "_half_days": {**library, **market["_half_days"]},
+            "_open_days": (_date(start, "start"), _date(end, "end"), tuple(days.get_column("date").to_list()))}
 
 
 def _regime_expr(regimes, day: pl.Expr, value) -> pl.Expr:
