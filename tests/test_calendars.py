@@ -362,3 +362,22 @@ def test_the_study_calibrates_its_window_on_the_calendar():
     # Window: the 9 open days of 9-20 January (the 16th closed); 8 traded, so one day in nine without a trade.
     assert ours["n_days"].item() == 9 and ours["no_trade_share"].item() == pytest.approx(1 / 9)
     assert inferred["n_days"].item() == 8 and inferred["no_trade_share"].item() == pytest.approx(0.0)
+
+
+def test_daily_rows_on_closed_days_are_dropped_and_counted(tmp_path):
+    from liqpanel import stages
+
+    profile = tmp_path / "isle.yaml"
+    profile.write_text(yaml.safe_dump({"name": "Isle (invented)", "timezone": "UTC", "sessions": [["09:00", "17:00"]],
+                                       "holidays": ["2023-01-16"]}))
+    days = ["2023-01-12", "2023-01-13", "2023-01-14", "2023-01-16", "2023-01-17"]  # Thu, Fri, Sat, holiday Mon, Tue
+    rows = "".join(f"QOLM,{d},10,10.5,9.5,{10 + k / 10},100\n" for k, d in enumerate(days))
+    (tmp_path / "daily.csv").write_text("security,date,open,high,low,close,volume\n" + rows)
+    config = {"sample": {"start": "2023-01", "end": "2023-01"}, "market": str(profile),
+              "inputs": {"daily": str(tmp_path / "daily.csv")}, "columns": {}}
+    read = stages._read_daily(config)
+    assert read.daily["date"].cast(pl.String).to_list() == ["2023-01-12", "2023-01-13", "2023-01-17"]
+    audit = read.audit.row(0, named=True)
+    assert (audit["rows_read"], audit["rows_kept"], audit["drop_closed_day"]) == (5, 3, 2)
+    # the Tuesday's return runs from the Friday's close: the closed days are not days (calendar arithmetic)
+    assert read.daily["ret"].to_list()[-1] == pytest.approx(10.4 / 10.1 - 1)

@@ -23,6 +23,9 @@ breaks, in this order (``liqpanel.ingest`` reads the values):
 - ``outside_sample``: a valid day before the first or after the last month
   of ``sample:`` (the last such day before the sample still gives the
   sample's first return its previous close)
+- ``closed_day``: a day its market's trading calendar has closed (a holiday
+  or the weekend; only for a market profile with ``calendar`` or
+  ``holidays``, ``liqpanel.markets``): not a day of the market
 
 Kept rows whose other numbers (ret, dollar_volume, shares_out, ...) are not
 finite keep the row with that value missing, counted in ``repaired_non_finite``.
@@ -36,6 +39,7 @@ rows_read = rows_kept + the drops, checked before anything is written.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from datetime import date
 
 import polars as pl
 
@@ -46,7 +50,7 @@ from liqpanel.errors import InputError
 
 RULES = (
     "unparseable", "missing_key", "duplicate", "non_finite", "no_trade", "nonpositive_price", "negative_volume",
-    "bad_range", "outside_sample",
+    "bad_range", "outside_sample", "closed_day",
 )
 REPAIRS = ("repaired_range", "repaired_non_finite")
 PRICES = ("open", "high", "low", "close")
@@ -88,8 +92,34 @@ def _content_rule(settings: dict) -> tuple[pl.Expr, pl.Expr]:
     return chain.otherwise(pl.lit(None, dtype=pl.String)).alias("_rule"), bad_range.fill_null(False)
 
 
+@dataclass(frozen=True)
+class OpenDays:
+    """The open days of the markets with a trading calendar over ``first``..``last``: ``days`` holds
+    ``date`` (one market) or ``market``, ``date`` (several, with ``codes``: security -> market); a day of
+    the span that is not listed for a row's market is closed. Markets not in ``days`` have no calendar."""
+
+    first: date
+    last: date
+    days: pl.DataFrame
+    codes: pl.DataFrame | None = None
+
+    def closed(self, frame: pl.DataFrame) -> pl.Series:
+        """Whether each row of ``frame`` (security, date) falls on a closed day of its market."""
+        keys = frame.select("security", "date")
+        on = ["date"]
+        if self.codes is not None:
+            keys = keys.join(self.codes, on="security", how="left", maintain_order="left")
+            on = ["market", "date"]
+        marked = keys.join(self.days.select(*on).unique().with_columns(pl.lit(True).alias("_open")), on=on,
+                           how="left", maintain_order="left")
+        calendared = pl.lit(True) if self.codes is None else pl.col("market").is_in(
+            self.days.get_column("market").unique().implode())
+        inside = pl.col("date").is_between(pl.lit(self.first), pl.lit(self.last))
+        return marked.select((calendared & inside & pl.col("_open").is_null()).fill_null(False)).to_series()
+
+
 def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], settings: dict,
-              sample: tuple[str, str]) -> pl.DataFrame:
+              sample: tuple[str, str], open_days: OpenDays | None = None) -> pl.DataFrame:
     """Every row read with ``_rule`` (the first rule it breaks, null when kept) and the repairs applied."""
     if settings.get("unparseable", "error") == "error":
         problem = ingest.first_bad(frame, layout, files, fix="; fix the file, or set `daily: unparseable: drop`")
@@ -106,7 +136,12 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
     frame = _duplicates(frame, layout, files, settings.get("duplicates", "error"))
     content, bad_range = _content_rule(settings)
     outside = pl.when((pl.col("date") < first) | (month_of("date") > last)).then(pl.lit("outside_sample"))
-    frame = frame.with_columns(pl.coalesce("_rule", content, outside).alias("_rule"), bad_range.alias("_bad_range"))
+    closed = pl.lit(None, dtype=pl.String)
+    if open_days is not None:
+        frame = frame.with_columns(open_days.closed(frame).alias("_closed"))
+        closed = pl.when(pl.col("_closed")).then(pl.lit("closed_day"))
+    frame = frame.with_columns(pl.coalesce("_rule", content, outside, closed).alias("_rule"),
+                               bad_range.alias("_bad_range"))
     # a valid day outside the sample still gives the first return inside it its previous close
     valid = pl.col("_rule").is_null() | (pl.col("_rule") == "outside_sample")
     kept = pl.col("_rule").is_null()
@@ -255,7 +290,7 @@ def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFra
 
 
 def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
-               adjustments: pl.DataFrame | None = None) -> DailyRead:
+               adjustments: pl.DataFrame | None = None, open_days: OpenDays | None = None) -> DailyRead:
     """The daily table of a user's file (contract: DEVELOPERS.md), its audit and the suspected splits."""
     frame, files = ingest.read_frame(layout, SPEC)
     if not frame.height:
@@ -263,7 +298,7 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     problem = ingest.impossible_return(frame, layout, files)
     if problem is not None:
         raise problem
-    flagged = flag_rows(frame, layout, files, settings or {}, sample)
+    flagged = flag_rows(frame, layout, files, settings or {}, sample, open_days)
     audit = audit_of(flagged)
     check_balance(audit, layout.path)
     kept = flagged.filter(pl.col("_valid"))

@@ -223,7 +223,25 @@ def _read_daily(config: dict, path: str | None = None, mapping: dict | None = No
         "daily", path, mapping, (config.get("formats") or {}).get("daily"))
     sample = (config["sample"]["start"], config["sample"]["end"]) if "sample" in config else ("0001-01", "9999-12")
     adjustments = _adjustments(config) if config.get("inputs") else None
-    return dailyfile.read_daily(layout, config.get("daily", {}), sample, adjustments)
+    return dailyfile.read_daily(layout, config.get("daily", {}), sample, adjustments, _open_days(config))
+
+
+def _open_days(config: dict) -> "dailyfile.OpenDays | None":
+    """The open days of the run's markets that have a trading calendar, over the sample (None: none has one)."""
+    from liqpanel.dailyfile import OpenDays
+    from liqpanel.markets import has_calendar, trading_days
+
+    if "sample" not in config or not (config.get("market") or config.get("markets")):
+        return None
+    market = load_markets(config)
+    first, last = _calendar_span(config)
+    members = market["_members"] if several(market) else {None: market}
+    frames = [trading_days(profile, first, last).select("date").with_columns(pl.lit(code).alias(MARKET))
+              for code, profile in members.items() if has_calendar(profile)]
+    if not frames:
+        return None
+    days = pl.concat(frames)
+    return OpenDays(first, last, days if several(market) else days.drop(MARKET), market.get("_codes"))
 
 
 def _adjustments(config: dict) -> pl.DataFrame | None:
