@@ -26,7 +26,7 @@ HALF = np.array([0.001, 0.004, 0.015])
 
 @pytest.fixture(scope="module")
 def roll_market():
-    # known half-spreads c; quotes bid = e^(m - c), ask = e^(m + c) at every trade (simulate.py)
+    # known half-spreads c; quotes bid = e^(m - c), ask = e^(m + c) at every trade (liqpanel.simulate)
     return simulate_security_months(HALF, 0.02, 40.0, n_days=21, seed=7)
 
 
@@ -42,7 +42,7 @@ def _monthly(market, selection):
 
 def test_effective_spread_recovers_the_true_spread(roll_market):
     # with quotes e^(m +- c) and trades at them, 2 q (p - mid)/mid = 2 tanh(c) per
-    # trade (simulate.py docstring), within (2/3) c^3 of the true 2c; so the
+    # trade (liqpanel.simulate docstring), within (2/3) c^3 of the true 2c; so the
     # monthly means equal 2 tanh(c) up to floating-point rounding
     monthly = _monthly(roll_market, {"effective_spread": None, "quoted_spread": None})
     truth = 2 * np.tanh(HALF)
@@ -204,7 +204,7 @@ def test_monthly_benchmarks_follow_the_minimum_days_rule():
     row = monthly.row(0, named=True)
     assert row["effective_spread"] is None and row["effective_spread_reason"].startswith("too_few_days")
     relaxed = _monthly(market, {"effective_spread": {"min_days": 5}})
-    # every trade's effective spread is exactly 2 tanh(c) (simulate.py docstring)
+    # every trade's effective spread is exactly 2 tanh(c) (liqpanel.simulate docstring)
     assert relaxed["effective_spread"][0] == pytest.approx(2 * np.tanh(0.002), rel=1e-9)
 
 

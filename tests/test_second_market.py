@@ -78,7 +78,7 @@ def test_default_output_is_unchanged():
 
 
 def test_first_market_is_the_one_market_draw_for_draw(two, one):
-    # the second market draws from streams of its own (simulate.py docstring)
+    # the second market draws from streams of its own (liqpanel.simulate docstring)
     assert set(two.securities["market"]) == {"HBR", "GUL"}
     assert two.securities.filter(market="HBR").drop("market").equals(one.securities)
     for name in ("trades", "quotes", "characteristics", "returns", "truth"):
@@ -148,7 +148,7 @@ def test_trades_fall_inside_the_sessions_in_the_market_time_zone(two):
 
 
 def test_every_price_of_the_second_market_is_on_its_tick_grid(two):
-    # quotes rounded outwards to the tick and trades at a quote (simulate.py docstring)
+    # quotes rounded outwards to the tick and trades at a quote (liqpanel.simulate docstring)
     trades = of_market(two.trades, two, "GUL").filter(pl.col("price") > 0)
     quotes = of_market(two.quotes, two, "GUL")
     assert on_grid(trades["price"], TICK).all()
@@ -175,7 +175,7 @@ def test_exchange_rates_cover_every_open_day_and_are_positive(two):
 
 
 def test_market_factor_converts_the_second_market_into_the_first_currency(two):
-    # (1 + r) x rate_t / rate_t-1 - 1 in the first market's currency, weights cap x rate (simulate.py)
+    # (1 + r) x rate_t / rate_t-1 - 1 in the first market's currency, weights cap x rate (liqpanel.simulate)
     factor = market_factor_returns(two).to_pandas().set_index("month")["mkt"]
     chars = two.characteristics.join(two.securities.select("security", "market"), on="security")
     rates = chars.join(two.fx, on="date", how="left").with_columns(

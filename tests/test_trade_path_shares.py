@@ -60,7 +60,7 @@ def test_turnover_and_liu_lm_have_values_on_the_trade_path(folder):
     assert daily["shares_out"].null_count() == 0
     monthly = compute_monthly(daily.lazy(), {"turnover": {}, "liu_lm": {}}).sort("security", "month")
     # turnover = the month's volume / shares outstanding (common practice): the volume of the clean
-    # trades over the simulator's own shares outstanding (constant, simulate.py)
+    # trades over the simulator's own shares outstanding (constant, liqpanel.simulate)
     volume = daily.group_by("security", "month").agg(pl.col("volume").sum())
     expected = volume.join(market.securities.select("security", "shares_out"), on="security").with_columns(
         (pl.col("volume") / pl.col("shares_out")).alias("expected")).sort("security", "month")
