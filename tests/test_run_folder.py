@@ -23,6 +23,7 @@ from liqpanel import report as rep
 from liqpanel import runtime
 from liqpanel.config import validate_config
 from liqpanel.errors import ConfigError, InputError
+from liqpanel.io import write_parquet
 from tests.demo_config import one_market
 
 REPO = Path(__file__).resolve().parents[1]
@@ -187,7 +188,7 @@ def test_manifest_lists_every_output_with_its_checksum(tmp_path):
     cfg = _config(a)
     run = tmp_path / "run"
     rep.write_table(pl.DataFrame({"k": ["x"], "v": [1.5]}), run / "tables" / "t", caption="c", label="l")
-    rep.write_parquet(pl.DataFrame({"v": [1, 2, 3]}), run / "data" / "d.parquet")
+    write_parquet(pl.DataFrame({"v": [1, 2, 3]}), run / "data" / "d.parquet")
     rep.write_manifest(run, config=cfg, inputs=rep.input_listing(cfg), rid="r1", started=rep.now(), command="x")
     manifest = json.loads((run / "manifest.json").read_text())
     on_disk = {str(p.relative_to(run)) for p in run.rglob("*") if p.is_file() and p.name != "manifest.json"}

@@ -15,7 +15,7 @@ from liqpanel.simulate.spec import Market, SimulationSpec
 
 
 def simulate_market(spec: SimulationSpec | None = None, **overrides) -> Market:
-    """Simulate the invented market described in the module docstring.
+    """Simulate the invented market described in the docstring of ``liqpanel.simulate``.
 
     ``overrides`` replace fields of ``spec`` (or of the default spec), e.g.
     ``simulate_market(n_securities=5, half_spread=0.002)``.

@@ -15,9 +15,10 @@ from liqpanel.simulate.names import _HEADS, _KINDS, _MIDS, _TAILS
 UTC = pl.Datetime("us", "UTC")
 TABLES = ("trades", "quotes", "securities", "characteristics", "returns", "truth")
 
+
 @dataclass(frozen=True)
 class SimulationSpec:
-    """Every parameter of the invented market (see the module docstring).
+    """Every parameter of the invented market (see the package docstring, ``liqpanel.simulate``).
 
     Units: proportions for spreads, volatilities and returns (0.01 = 1%);
     volatilities and intensities per business day; sizes in shares; market

@@ -45,7 +45,7 @@ def run_study(
     measures: dict[str, Any] | None = None,
     market: Market | None = None,
 ) -> StudyResult:
-    """Draw, simulate, estimate and evaluate (steps 2-5 of the module docstring).
+    """Draw, simulate, estimate and evaluate (steps 2-5 of the docstring of ``liqpanel.study``).
 
     ``pool``: calibrated security-months (from ``calibrate``, or any frame
     with ``spread``, ``daily_vol``, ``trades_per_day``, ``n_days`` and
