@@ -170,7 +170,8 @@ def cross_section_tests(cs: pl.DataFrame, lags: int | None) -> tuple[pl.DataFram
     (1987) standard errors with ``lags``. Returns the long table (model,
     variable, coef, std_error, tstat, n_portfolio_months, n_months, r2) and the lags used.
     """
-    from liqpanel.models.regressions import ModelSpec, fit_model
+    from liqpanel.models.model_spec import ModelSpec
+    from liqpanel.models.regressions import fit_model
 
     results = [fit_model(cs, ModelSpec(name=name, regressors=x, estimator="fama_macbeth", covariance="newey_west",
                                        lags=lags)) for name, x in MODELS]

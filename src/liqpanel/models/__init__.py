@@ -5,14 +5,10 @@ dependent ``ret_next`` is the return of month t+1), testable without Snakemake.
 """
 
 from liqpanel.models.factor import factor_summary, liquidity_factor
-from liqpanel.models.regressions import (
-    ModelResult,
-    ModelSpec,
-    automatic_lags,
-    fit_model,
-    newey_west_mean,
-    regression_table,
-)
+from liqpanel.models.model_spec import ModelSpec
+from liqpanel.models.newey_west import automatic_lags, newey_west_mean
+from liqpanel.models.regression_table import regression_table
+from liqpanel.models.regressions import ModelResult, fit_model
 from liqpanel.models.sorts import DoubleSortResult, HighMinusLow, SortResult, double_sort, sort_portfolios
 from liqpanel.models.validation import validate_proxies
 

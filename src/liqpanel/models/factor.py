@@ -18,7 +18,7 @@ import numpy as np
 import polars as pl
 
 from liqpanel.errors import InputError
-from liqpanel.models.regressions import automatic_lags, newey_west_mean
+from liqpanel.models.newey_west import automatic_lags, newey_west_mean
 from liqpanel.models.sorts import double_sort
 
 FACTORS_DATED = ("return_month", "formation_month")

@@ -13,7 +13,9 @@ from typing import Any
 import polars as pl
 
 from liqpanel.models.factor import factor_summary, liquidity_factor, summary_table
-from liqpanel.models.regressions import ModelSpec, fit_model, regression_table
+from liqpanel.models.model_spec import ModelSpec
+from liqpanel.models.regression_table import regression_table
+from liqpanel.models.regressions import fit_model
 from liqpanel.models.sorts import double_sort, sort_portfolios
 from liqpanel.models.validation import validate_proxies
 

@@ -32,7 +32,7 @@ universe):
   ``market_cap``), so no information from month ``t + 1`` is used.
 * High-minus-low: portfolio ``n`` minus portfolio 1 in each month where both
   have a return; its mean gets a Newey & West (1987) t-statistic
-  (:func:`liqpanel.models.regressions.newey_west_mean`).
+  (:func:`liqpanel.models.newey_west.newey_west_mean`).
 """
 
 from __future__ import annotations
@@ -42,7 +42,7 @@ from dataclasses import dataclass
 import polars as pl
 
 from liqpanel.errors import InputError
-from liqpanel.models.regressions import newey_west_mean
+from liqpanel.models.newey_west import newey_west_mean
 from liqpanel.stable import ordered_mean, ordered_sum
 
 KEY = ("security", "month")
