@@ -41,20 +41,11 @@ from dataclasses import dataclass
 
 import polars as pl
 
-from liqpanel.errors import InputError
 from liqpanel.models.newey_west import newey_west_mean
-from liqpanel.stable import ordered_mean, ordered_sum
-
-KEY = ("security", "month")
-BREAKPOINTS = ("pooled", "per_market")
-MARKET = "market"  # the panel's market code (liqpanel.marketset)
-
-
-def _groups(breakpoints: str) -> list[str]:
-    """The columns within which breakpoints are formed, besides the month."""
-    if breakpoints not in BREAKPOINTS:
-        raise ValueError(f"breakpoints must be one of {BREAKPOINTS}, got {breakpoints!r}")
-    return [MARKET] if breakpoints == "per_market" else []
+from liqpanel.models.portfolio_steps import (
+    assign, breakpoint_groups, check_inputs, complete_grid, high_minus_low_series, month_grid, portfolio_returns,
+    portfolio_summary, usable_rows,
+)
 
 
 @dataclass(frozen=True)
@@ -143,159 +134,6 @@ class DoubleSortResult:
     weight: str | None
 
 
-# ------------------------------------------------------------------ internals
-
-
-def _check_inputs(panel, needed_numeric, weight, breakpoint_universe, characteristics, n_values, min_securities,
-                  groups=()):
-    lazy = panel.lazy() if isinstance(panel, pl.DataFrame) else panel
-    schema = lazy.collect_schema()
-    names = schema.names()
-    for column in groups:
-        if column not in names:
-            raise InputError(f"breakpoints per market need the panel's '{column}' column (a run with `markets:`); "
-                             f"the panel has {sorted(names)}", column=column)
-    for column in (*KEY, *needed_numeric, *([weight] if weight else []), *characteristics,
-                   *([breakpoint_universe] if breakpoint_universe else [])):
-        if column not in names:
-            raise InputError(
-                f"the portfolio sort needs a column '{column}' in the panel table, which has {sorted(names)}",
-                column=column,
-            )
-    for column in (*needed_numeric, *([weight] if weight else []), *characteristics):
-        if not schema[column].is_numeric():
-            raise InputError(f"panel column '{column}' must be numeric for the sort, found {schema[column]}",
-                             column=column)
-    if breakpoint_universe and schema[breakpoint_universe] != pl.Boolean:
-        raise InputError(
-            f"breakpoint universe column '{breakpoint_universe}' must be boolean (true = sets breakpoints), "
-            f"found {schema[breakpoint_universe]}",
-            column=breakpoint_universe,
-        )
-    for label, value in n_values.items():
-        if isinstance(value, bool) or not isinstance(value, int) or value < 2:
-            raise ValueError(f"{label} must be an integer of at least 2, got {value!r}")
-    if isinstance(min_securities, bool) or not isinstance(min_securities, int) or min_securities < 1:
-        raise ValueError(f"min_securities must be a positive integer, got {min_securities!r}")
-    return lazy
-
-
-def _usable(lazy, needed_numeric, weight, breakpoint_universe, characteristics, groups=()):
-    """Key, breakpoint groups, sort inputs and characteristics; flags rows complete in the sort inputs."""
-    numeric = [*needed_numeric, *([weight] if weight else [])]
-    cols = list(dict.fromkeys([*KEY, *groups, *numeric, *characteristics]))
-    frame = lazy.select(
-        *cols,
-        (pl.col(breakpoint_universe).fill_null(False) if breakpoint_universe else pl.lit(True)).alias("_universe"),
-    ).with_columns(pl.col(list(dict.fromkeys([*numeric, *characteristics]))).cast(pl.Float64))
-    ok = pl.all_horizontal([pl.col(c).is_not_null() & pl.col(c).is_finite() for c in numeric]
-                           + [pl.col(c).is_not_null() for c in groups])
-    if weight:
-        ok = ok & (pl.col(weight) > 0)
-    return frame.with_columns(ok.alias("_complete"))
-
-
-def _assign(frame: pl.LazyFrame, on: str, n: int, by: list[str], label: str) -> tuple[pl.LazyFrame, pl.LazyFrame]:
-    """Portfolio labels 1..n from the k/n quantiles of ``on`` in the universe, per ``by`` group."""
-    in_universe = pl.col("_universe")
-    bps = frame.group_by(by).agg(
-        pl.col(on).filter(in_universe).count().alias("n_universe"),
-        *[
-            pl.col(on).filter(in_universe).quantile(k / n, interpolation="linear").alias(f"breakpoint_{k}")
-            for k in range(1, n)
-        ],
-    )
-    bps = bps.with_columns(
-        [pl.when(pl.col("n_universe") >= n).then(pl.col(f"breakpoint_{k}")).otherwise(None).alias(f"breakpoint_{k}")
-         for k in range(1, n)]
-    )
-    rank = pl.lit(1, dtype=pl.Int32)
-    for k in range(1, n):
-        rank = rank + (pl.col(on) > pl.col(f"breakpoint_{k}")).cast(pl.Int32)
-    assigned = (
-        frame.join(bps, on=by, how="left")
-        .with_columns(pl.when(pl.col("n_universe") >= n).then(rank).otherwise(None).alias(label))
-        .drop("n_universe", *[f"breakpoint_{k}" for k in range(1, n)])
-    )
-    return assigned, bps
-
-
-def _portfolio_returns(assigned: pl.LazyFrame, labels: list[str], ret: str, weight: str | None,
-                       characteristics: list[str]) -> pl.LazyFrame:
-    # sums run over each cell's securities in name order (liqpanel.stable), so
-    # their last digit does not depend on the order in which rows arrive
-    if weight:
-        value = ordered_sum(pl.col(ret) * pl.col(weight)) / ordered_sum(pl.col(weight))
-    else:
-        value = ordered_mean(pl.col(ret))
-    return assigned.group_by(["month", *labels]).agg(
-        pl.len().cast(pl.Int64).alias("n_securities"),
-        value.alias("ret"),
-        *[ordered_mean(pl.col(c)).alias(c) for c in characteristics],
-    )
-
-
-def _grid(months: pl.LazyFrame, sizes: dict[str, int]) -> pl.LazyFrame:
-    grid = months
-    for label, size in sizes.items():
-        grid = grid.join(pl.LazyFrame({label: pl.int_range(1, size + 1, eager=True, dtype=pl.Int32)}), how="cross")
-    return grid
-
-
-def _complete_grid(cells: pl.LazyFrame, grid: pl.LazyFrame, labels: list[str], min_securities: int,
-                   characteristics: list[str]) -> pl.DataFrame:
-    out = (
-        grid.join(cells, on=["month", *labels], how="left")
-        .with_columns(pl.col("n_securities").fill_null(0))
-        .with_columns(
-            pl.when(pl.col("n_securities") >= min_securities).then(pl.col("ret")).otherwise(None).alias("ret"),
-            *[pl.when(pl.col("n_securities") >= min_securities).then(pl.col(c)).otherwise(None).alias(c)
-              for c in characteristics],
-        )
-        .sort(["month", *labels])
-        .collect(engine="in-memory")  # bit-stable means run to run
-    )
-    return out
-
-
-def _summary(cells: pl.DataFrame, labels: list[str], characteristics: list[str], lags: int | None) -> pl.DataFrame:
-    """Per portfolio: mean return with Newey-West t, months, average size, characteristics."""
-    base = (
-        cells.filter(pl.col("ret").is_not_null())
-        .group_by(labels)
-        .agg(
-            pl.col("ret").sort_by("month").alias("_series"),
-            pl.len().cast(pl.Int64).alias("n_months"),
-            pl.col("n_securities").mean().alias("mean_n_securities"),
-            *[pl.col(c).mean().alias(c) for c in characteristics],
-        )
-        .sort(labels)
-    )
-    stats = [newey_west_mean(series.to_numpy(), lags=lags) for series in base.get_column("_series")]
-    every = cells.select(labels).unique().sort(labels)
-    summary = base.drop("_series").with_columns(
-        pl.Series("mean_ret", [s["mean"] for s in stats], dtype=pl.Float64),
-        pl.Series("std_error", [s["std_error"] for s in stats], dtype=pl.Float64),
-        pl.Series("tstat", [s["tstat"] for s in stats], dtype=pl.Float64),
-    )
-    summary = every.join(summary, on=labels, how="left").with_columns(pl.col("n_months").fill_null(0))
-    return summary.select(*labels, "mean_ret", "std_error", "tstat", "n_months", "mean_n_securities",
-                          *characteristics).sort(labels)
-
-
-def _spread(cells: pl.DataFrame, label: str, n: int, by: list[str]) -> pl.DataFrame:
-    high = cells.filter(pl.col(label) == n).select("month", *by, pl.col("ret").alias("_high"))
-    low = cells.filter(pl.col(label) == 1).select("month", *by, pl.col("ret").alias("_low"))
-    return (
-        high.join(low, on=["month", *by], how="inner")
-        .filter(pl.col("_high").is_not_null() & pl.col("_low").is_not_null())
-        .select("month", *by, (pl.col("_high") - pl.col("_low")).alias("ret"))
-        .sort(["month", *by])
-    )
-
-
-# ------------------------------------------------------------------ public API
-
 
 def sort_portfolios(
     panel: pl.DataFrame,
@@ -326,23 +164,23 @@ def sort_portfolios(
     ``breakpoints="per_market"`` forms ``B_k`` within each month and market.
     """
     characteristics = list(characteristics)
-    groups = _groups(breakpoints)
-    lazy = _check_inputs(panel, [on, ret], weight, breakpoint_universe, characteristics, {"n": n}, min_securities,
+    groups = breakpoint_groups(breakpoints)
+    lazy = check_inputs(panel, [on, ret], weight, breakpoint_universe, characteristics, {"n": n}, min_securities,
                          groups)
-    frame = _usable(lazy, [on, ret], weight, breakpoint_universe, characteristics, groups)
+    frame = usable_rows(lazy, [on, ret], weight, breakpoint_universe, characteristics, groups)
     counts = frame.select(pl.len().alias("rows"), pl.col("_complete").sum().alias("complete")).collect()
     complete = frame.filter(pl.col("_complete"))
-    assigned, bps = _assign(complete, on, n, ["month", *groups], "portfolio")
-    cells = _portfolio_returns(assigned.filter(pl.col("portfolio").is_not_null()), ["portfolio"], ret, weight,
+    assigned, bps = assign(complete, on, n, ["month", *groups], "portfolio")
+    cells = portfolio_returns(assigned.filter(pl.col("portfolio").is_not_null()), ["portfolio"], ret, weight,
                                characteristics)
     bps = bps.sort("month", *groups).collect()
     valid_months = bps.filter(pl.col("n_universe") >= n).select("month").unique().sort("month")
-    result_cells = _complete_grid(cells, _grid(valid_months.lazy(), {"portfolio": n}), ["portfolio"],
+    result_cells = complete_grid(cells, month_grid(valid_months.lazy(), {"portfolio": n}), ["portfolio"],
                                   min_securities, characteristics)
     nobs = int(result_cells.get_column("n_securities").sum())
     returns = result_cells.select("month", "portfolio", "ret", "n_securities")
-    summary = _summary(result_cells, ["portfolio"], characteristics, lags)
-    hml_returns = _spread(result_cells, "portfolio", n, [])
+    summary = portfolio_summary(result_cells, ["portfolio"], characteristics, lags)
+    hml_returns = high_minus_low_series(result_cells, "portfolio", n, [])
     n_complete = int(counts.item(0, "complete"))
     return SortResult(
         returns=returns,
@@ -397,19 +235,19 @@ def double_sort(
     characteristics = list(characteristics)
     if first == second:
         raise ValueError(f"double_sort needs two different columns, got '{first}' twice")
-    groups = _groups(breakpoints)
-    lazy = _check_inputs(panel, [first, second, ret], weight, breakpoint_universe, characteristics,
+    groups = breakpoint_groups(breakpoints)
+    lazy = check_inputs(panel, [first, second, ret], weight, breakpoint_universe, characteristics,
                          {"n1": n1, "n2": n2}, min_securities, groups)
-    frame = _usable(lazy, [first, second, ret], weight, breakpoint_universe, characteristics, groups)
+    frame = usable_rows(lazy, [first, second, ret], weight, breakpoint_universe, characteristics, groups)
     counts = frame.select(pl.len().alias("rows"), pl.col("_complete").sum().alias("complete")).collect()
     complete = frame.filter(pl.col("_complete"))
     labels = ["portfolio_first", "portfolio_second"]
-    stage1, bps1 = _assign(complete, first, n1, ["month", *groups], "portfolio_first")
+    stage1, bps1 = assign(complete, first, n1, ["month", *groups], "portfolio_first")
     if dependent:
-        stage2, bps2 = _assign(stage1.filter(pl.col("portfolio_first").is_not_null()), second, n2,
+        stage2, bps2 = assign(stage1.filter(pl.col("portfolio_first").is_not_null()), second, n2,
                                ["month", *groups, "portfolio_first"], "portfolio_second")
     else:
-        stage2, bps2 = _assign(stage1, second, n2, ["month", *groups], "portfolio_second")
+        stage2, bps2 = assign(stage1, second, n2, ["month", *groups], "portfolio_second")
     assigned = stage2.filter(pl.col("portfolio_first").is_not_null() & pl.col("portfolio_second").is_not_null())
 
     bps1 = bps1.collect()
@@ -426,12 +264,12 @@ def double_sort(
     valid_months = valid.select("month").unique().sort("month")
     if groups:  # a market's month without all its breakpoints leaves its securities out of the cells
         assigned = assigned.join(valid.lazy(), on=["month", *groups], how="semi")
-    cells = _portfolio_returns(assigned, labels, ret, weight, characteristics)
-    grid = _grid(valid_months.lazy(), {"portfolio_first": n1, "portfolio_second": n2})
-    result_cells = _complete_grid(cells, grid, labels, min_securities, characteristics)
+    cells = portfolio_returns(assigned, labels, ret, weight, characteristics)
+    grid = month_grid(valid_months.lazy(), {"portfolio_first": n1, "portfolio_second": n2})
+    result_cells = complete_grid(cells, grid, labels, min_securities, characteristics)
     nobs = int(result_cells.get_column("n_securities").sum())
 
-    by_first = _spread(result_cells, "portfolio_second", n2, ["portfolio_first"])
+    by_first = high_minus_low_series(result_cells, "portfolio_second", n2, ["portfolio_first"])
     hml_by_first_rows = []
     for g in range(1, n1 + 1):
         series = by_first.filter(pl.col("portfolio_first") == g).get_column("ret").to_numpy()
@@ -453,7 +291,7 @@ def double_sort(
     n_complete = int(counts.item(0, "complete"))
     return DoubleSortResult(
         returns=result_cells.select("month", *labels, "ret", "n_securities"),
-        summary=_summary(result_cells, labels, characteristics, lags),
+        summary=portfolio_summary(result_cells, labels, characteristics, lags),
         hml_by_first=hml_by_first,
         hml=HighMinusLow.from_series(hml_returns.get_column("ret").to_numpy(), lags),
         hml_returns=hml_returns,
