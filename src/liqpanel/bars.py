@@ -200,12 +200,39 @@ def intraday_bars(
     return bars.with_columns([pl.col(c).cast(t) for c, t in types.items()]).sort(key)
 
 
+# The high-frequency daily columns each measure reads (those of its registered
+# ``columns`` that ``liqpanel.intraday`` offers); a measure not listed reads none.
+# Kept here so that a bars job decides its columns without importing the measure
+# registry (and numpy with it); tests/test_intraday.py checks it against the registry.
+BAR_COLUMNS_OF: dict[str, tuple[str, ...]] = {
+    "closing_spread": ("close_bid", "close_ask"),
+    "effective_spread": ("effective_spread", "effective_spread_size_weighted"),
+    "kyle_lambda": ("kyle_lambda",),
+    "price_impact": ("price_impact", "price_impact_size_weighted"),
+    "quoted_spread": ("quoted_spread", "quoted_spread_size_weighted"),
+    "realized_spread": ("realized_spread", "realized_spread_size_weighted"),
+    "realized_variance": ("realized_variance", "realized_variance_returns"),
+}
+# the registered measures that read no high-frequency column
+READS_NO_BAR_COLUMN = frozenset({
+    "amihud", "amivest", "ar_spread_2day", "ar_spread_monthly", "cs_spread", "edge_spread", "effective_tick",
+    "fht_spread", "gibbs_spread", "limit_days", "liu_lm", "lot_mixed", "lot_ysplit", "ps_gamma", "roll_spread",
+    "spread_blend", "turnover", "vol_close", "vol_garman_klass", "vol_parkinson", "vol_rogers_satchell",
+    "vol_yang_zhang", "zero_return_share", "zero_return_share_traded",
+})
+
+
 def needed_columns(measures: Iterable[str]) -> list[str]:
     """The high-frequency daily columns (``liqpanel.intraday``) that the named measures read.
 
-    From each measure's registered daily columns (``liqpanel.measures``).
+    From ``BAR_COLUMNS_OF`` when it knows every name, else from each measure's
+    registered daily columns (``liqpanel.measures``); both give the same list.
     """
+    names = list(measures)
+    offered = intraday.daily_columns()
+    if all(name in BAR_COLUMNS_OF or name in READS_NO_BAR_COLUMN for name in names):
+        wanted = {c for name in names for c in BAR_COLUMNS_OF.get(name, ())}
+        return [c for c in offered if c in wanted]
     from liqpanel.measures import REGISTRY
 
-    offered = intraday.daily_columns()
-    return [c for c in offered if any(c in REGISTRY[name].columns for name in measures)]
+    return [c for c in offered if any(c in REGISTRY[name].columns for name in names)]
