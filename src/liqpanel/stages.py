@@ -134,15 +134,16 @@ def _clean_months(
     audits.append(audit_of(flagged, "trades", month=month, timestamps=read.describe_timestamps(), sample=sample))
     audit = pl.concat(pl.collect_all(audits), how="diagonal_relaxed").sort("table", "security", "date", nulls_last=True)
     check_conservation(audit)
+    numbers = [month_number(m) for m in months]
     if quotes is None:
-        quotes = pl.DataFrame(schema={"security": pl.String, "ts": pl.Datetime("us", "UTC"), "bid": pl.Float64,
-                                      "ask": pl.Float64, "date": pl.Date})
-    if several_months:  # each month's rows, in the frame's order
-        kept, quotes = (_by_month(kept, "_month", [month_number(m) for m in months]),
-                        _by_month(quotes, "_month", [month_number(m) for m in months]))
-        audit = _by_month(audit, "partition", months, keep=True)
+        quotes = [pl.DataFrame(schema={"security": pl.String, "ts": pl.Datetime("us", "UTC"), "bid": pl.Float64,
+                                       "ask": pl.Float64, "date": pl.Date})] * len(months)
     else:
-        kept, quotes, audit = [kept], [quotes], [audit]
+        quotes = _by_month(quotes, "_month", numbers) if several_months else [quotes]
+    if several_months:  # each month's rows, in the frame's order
+        kept, audit = _by_month(kept, "_month", numbers), _by_month(audit, "partition", months, keep=True)
+    else:
+        kept, audit = [kept], [audit]
     for i in range(len(months)):
         write_parquet(kept[i], out_trades[i], passing=True)
         write_parquet(audit[i], out_audit[i])
