@@ -157,7 +157,8 @@ def intraday_bars(
     ``columns``: the daily columns wanted beyond the trading bars (see
     ``needed_columns``); the spread benchmarks are computed only when one of
     theirs is wanted, the realized variance likewise; None wants all.
-    ``in_order``: the trades are in security and time order (``trading_bars``).
+    ``in_order``: the trades and quotes are in security and time order
+    (``trading_bars``; clean partitions are), at least within each security-day.
     """
     options = {**BAR_OPTIONS, **(options or {})}
     rv_options = {**BAR_OPTIONS["realized_variance"], **(options.get("realized_variance") or {})}
@@ -183,7 +184,9 @@ def intraday_bars(
             horizon_minutes=float(options["horizon_minutes"]),
             past_close=options["past_close"],
         )
-        benchmarks = intraday.daily_benchmarks(per_trade, interval_minutes=float(options["lambda_interval_minutes"]))
+        # the daily means and Kyle's lambda both read the per-trade frame: computed once
+        benchmarks = intraday.daily_benchmarks(per_trade.cache(), interval_minutes=float(options["lambda_interval_minutes"]),
+                                               in_order=True)
         bars = bars.join(benchmarks, on=key, how="left")
     if "variance" in groups:
         price = rv_options["price"]
@@ -194,7 +197,7 @@ def intraday_bars(
         else:
             series = trades.select("security", "ts", "price")
         variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]),
-                                              in_order=in_order and not on_quotes)
+                                              in_order=in_order)
         bars = bars.join(variance, on=key, how="left")
     types = {c: t for group in groups.values() for c, t in group.items()}
     return bars.with_columns([pl.col(c).cast(t) for c, t in types.items()]).sort(key)
