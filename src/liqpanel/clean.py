@@ -388,7 +388,7 @@ def _match_quotes(frame: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float)
 def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
     from liqpanel.outliers import neighbourhood_outliers  # numpy: loaded only when the filter is on
 
-    kept = flagged.filter(pl.col("drop_rule").is_null()).select("_file", "_row", "security", "date", "price")
+    kept = flagged.filter(pl.col("drop_rule").is_null()).select("security", "date", "price")
     group = kept.select(pl.struct("security", "date").rle_id()).to_series().to_numpy()
     outlier = neighbourhood_outliers(
         group,
@@ -398,11 +398,11 @@ def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
         gamma=float(setting.get("gamma", 0.02)),
         threshold=float(setting.get("threshold", 3.0)),
     )
-    hits = kept.filter(pl.Series(outlier)).select("_file", "_row", pl.lit(True).alias("_outlier"))
-    if not hits.height:
+    if not outlier.any():
         return flagged
-    joined = flagged.join(hits, on=["_file", "_row"], how="left", maintain_order="left")
-    return _mark(joined.lazy(), pl.col("_outlier"), "outlier").drop("_outlier").collect()
+    # the outliers' rows in the flagged frame: kept rows, so their rule is still empty
+    at = flagged.get_column("drop_rule").is_null().arg_true().filter(pl.Series(outlier))
+    return flagged.with_columns(flagged.get_column("drop_rule").clone().scatter(at, "outlier"))
 
 
 def audit_of(
