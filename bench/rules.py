@@ -12,14 +12,14 @@ and quotes, and the demo's settings on one market (``one_market`` of
 earlier commit that has several markets). Each program runs its jobs as its
 workflow does:
 
-- this code: one process per span of ``run.span_months`` months (clean and
-  bars of each month in turn, ``liqpanel.stages.trades_span``);
-- the earlier commit (``--ref``, default the commit before the span jobs):
-  one process per month and stage, its own ``src/`` extracted with
-  ``git archive`` into a scratch folder and put first on the path; with
-  ``--spans``, one process per span as this code (for a commit that has
-  span jobs, e.g. ``--ref 5527aae --spans``, the trade jobs before they
-  were made faster).
+- this code: one process per span of ``run.span_months`` months
+  (``liqpanel.stages.trades_span``);
+- the earlier commit (``--ref``, default the span jobs before they were
+  made faster): one process per span as this code, its own ``src/``
+  extracted with ``git archive`` into a scratch folder and put first on the
+  path; with ``--month-jobs``, one process per month and stage (for a commit
+  before the span jobs; the one-market input needs a commit whose config
+  check knows today's config keys).
 
 It reports the CPU time of all processes, start-up included, with one
 polars thread each, and checks that both wrote the same tables (every clean
@@ -40,7 +40,7 @@ from io import BytesIO
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
-BASE_REF = "602a09d"  # the last commit that ran one job per month and stage
+BASE_REF = "5527aae"  # the span jobs before they were made faster
 
 JOB = r"""
 import json, os, sys
@@ -50,7 +50,7 @@ spec = json.loads(sys.argv[1])
 try:  # as the workflow checks the config in a job's own process (liqpanel/workflow/rules/common.smk)
     from liqpanel.config import read_config, validate_config
     config = validate_config(read_config(spec["config"]), source=spec["config"], checked_before=True)
-except TypeError:  # a commit that checks the config in full in every job
+except (ImportError, TypeError):  # a commit that checks the config in full in every job
     config = load_config(spec["config"])
 paths = {k: [os.path.join(spec["out"], f"{k}-{m}.parquet") for m in spec["months"]] for k in ("trades", "audit", "quotes", "bars")}
 if len(spec["stages"]) == 2 and hasattr(stages, "trades_span"):  # a span job as the workflow runs it
@@ -119,7 +119,8 @@ def one_market_input(folder: Path) -> tuple[str, str]:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(prog="python -m bench.rules", description=__doc__.split("\n\n")[0])
     parser.add_argument("--ref", default=BASE_REF, help=f"the earlier commit (default {BASE_REF})")
-    parser.add_argument("--spans", action="store_true", help="run the earlier commit in span jobs too (it has them)")
+    parser.add_argument("--month-jobs", action="store_true",
+                        help="run the earlier commit one process per month and stage (a commit before span jobs)")
     parser.add_argument("--input", choices=("one-market", "demo"), default="one-market",
                         help="the demo's first market alone (default), or the demo as it is")
     args = parser.parse_args(argv)
@@ -145,7 +146,7 @@ def main(argv: list[str] | None = None) -> None:
                       for block in spans(months, config["run"]["span_months"])]
         month_specs = [{"months": [m], "stages": [stage], "out": str(theirs), "config": config_path}
                        for stage in ("clean", "bars") for m in months]
-        if args.spans:
+        if not args.month_jobs:
             month_specs = [{**s, "out": str(theirs)} for s in span_specs]
         cpu_ours = run(span_specs, REPO, None)
         cpu_base = run(month_specs, root / "base", str(root / "base" / "src"))
@@ -158,7 +159,7 @@ def main(argv: list[str] | None = None) -> None:
     what = f"the demo's first market ({market}) alone" if args.input == "one-market" else "the demo"
     print(f"{what}, full rule set, {len(months)} months, {trades:,} trades read; one polars thread per process")
     print(f"  this code       {len(span_specs):3d} processes (a span of months each)  {cpu_ours:6.2f} CPU-s")
-    each = "a span of months each" if args.spans else "a month and stage each"
+    each = "a month and stage each" if args.month_jobs else "a span of months each"
     print(f"  commit {args.ref}  {len(month_specs):3d} processes ({each})  {cpu_base:6.2f} CPU-s")
     print(f"  {cpu_base / cpu_ours:.1f}x less CPU; the same {len(files)} tables (clean trades, quotes, audit, bars)")
 
