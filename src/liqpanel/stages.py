@@ -251,6 +251,8 @@ def _trades_months(config: dict, months: list[str], paths: dict[str, list[str]])
         (trades, quotes), = cleaned
         write_parquet(_bars(config, trades.lazy(), quotes.lazy() if quotes is not None else None), paths["bars"][0])
         return
+    # the months one after another: each security-day's rows are still together and in time order, which is
+    # all the bars need (they work per security-day); the bars are cut into their months again
     trades = pl.concat([t for t, _ in cleaned])
     quotes = pl.concat([q for _, q in cleaned]) if cleaned[0][1] is not None else None
     bars = _bars(config, trades.lazy(), quotes.lazy() if quotes is not None else None).collect(engine="in-memory")
@@ -258,9 +260,10 @@ def _trades_months(config: dict, months: list[str], paths: dict[str, list[str]])
         write_parquet(part, out)
 
 
-def _rows_per_month(config: dict) -> float | None:
-    """The trade and quote rows of an average month of the sample: Parquet files by their row counts
-    (metadata only), other files by their size at 40 bytes a row (8 compressed); None without a file to count."""
+def _rows_per_month(config: dict, counted: int = 20) -> float | None:
+    """The trade and quote rows of an average month of the sample, estimated: Parquet files by the row
+    counts in their metadata (of the first ``counted`` files, scaled by size to the rest of a glob), other
+    files by their size at 40 bytes a row (8 compressed); None without a file to count."""
     from liqpanel.io import month_range
 
     rows = 0.0
@@ -268,12 +271,15 @@ def _rows_per_month(config: dict) -> float | None:
         path = config["inputs"].get(key)
         if not path:
             continue
-        for file in readers.list_files(path):
-            name = str(file).lower()
-            if name.endswith(".parquet"):
-                rows += pl.scan_parquet(file).select(pl.len()).collect().item()
-            else:
-                rows += Path(file).stat().st_size / (8 if name.endswith((".gz", ".zst", ".bz2", ".xz")) else 40)
+        files = readers.list_files(path)
+        parquet = [f for f in files if str(f).lower().endswith(".parquet")]
+        if parquet:
+            sizes = [Path(f).stat().st_size for f in parquet]
+            sample = sum(pl.scan_parquet(f).select(pl.len()).collect().item() for f in parquet[:counted])
+            rows += sample * sum(sizes) / max(sum(sizes[:counted]), 1)
+        for file in (f for f in files if f not in parquet):
+            compressed = str(file).lower().endswith((".gz", ".zst", ".bz2", ".xz"))
+            rows += Path(file).stat().st_size / (8 if compressed else 40)
     months = len(month_range(config["sample"]["start"], config["sample"]["end"]))
     return rows / months if rows else None
 
