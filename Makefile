@@ -69,7 +69,7 @@ bench-daily-run: $(STAMP)
 bench-scale: $(STAMP)
 	$(BIN)/python -m bench.scale $(BENCH_SCALE_ARGS)
 
-# Clean + bars of the demo with every rule, this code against the commit before span jobs (about a minute)
+# Clean + bars of the demo's first market with every rule, this code against the span jobs before they were made faster (about a minute)
 bench-rules: $(STAMP)
 	$(BIN)/python -m bench.rules $(BENCH_RULES_ARGS)
 

@@ -4,16 +4,22 @@ The demo market (``demo_data/``, 24 months, trades and quotes) goes through
 clean and bars with every rule of ``config/config.yaml``: the quote rules,
 the same-time merges, the outside-quotes rule, the Brownlees & Gallo
 outlier filter, trade signing, the spread benchmarks and the realized
-variance. Each program runs its jobs as its workflow does:
+variance. The demo holds two markets, which an earlier commit may not know;
+so that both programs clean the same input, both run by default on its
+first market alone (``--input one-market``): that market's securities' trades
+and quotes, and the demo's settings on one market (``one_market`` of
+``tests/demo_config.py``). ``--input demo`` runs the demo as it is (for an
+earlier commit that has several markets). Each program runs its jobs as its
+workflow does:
 
-- this code: one process per span of ``run.span_months`` months (clean and
-  bars of each month in turn, ``liqpanel.stages.trades_span``);
-- the earlier commit (``--ref``, default the commit before the span jobs):
-  one process per month and stage, its own ``src/`` extracted with
-  ``git archive`` into a scratch folder and put first on the path; with
-  ``--spans``, one process per span as this code (for a commit that has
-  span jobs, e.g. ``--ref 5527aae --spans``, the trade jobs before they
-  were made faster).
+- this code: one process per span of ``run.span_months`` months
+  (``liqpanel.stages.trades_span``);
+- the earlier commit (``--ref``, default the span jobs before they were
+  made faster): one process per span as this code, its own ``src/``
+  extracted with ``git archive`` into a scratch folder and put first on the
+  path; with ``--month-jobs``, one process per month and stage (for a commit
+  before the span jobs; the one-market input needs a commit whose config
+  check knows today's config keys).
 
 It reports the CPU time of all processes, start-up included, with one
 polars thread each, and checks that both wrote the same tables (every clean
@@ -34,14 +40,18 @@ from io import BytesIO
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
-BASE_REF = "602a09d"  # the last commit that ran one job per month and stage
+BASE_REF = "5527aae"  # the span jobs before they were made faster
 
 JOB = r"""
 import json, os, sys
 from liqpanel import stages
 from liqpanel.config import load_config
-config = load_config("config/config.yaml")
 spec = json.loads(sys.argv[1])
+try:  # as the workflow checks the config in a job's own process (liqpanel/workflow/rules/common.smk)
+    from liqpanel.config import read_config, validate_config
+    config = validate_config(read_config(spec["config"]), source=spec["config"], checked_before=True)
+except (ImportError, TypeError):  # a commit that checks the config in full in every job
+    config = load_config(spec["config"])
 paths = {k: [os.path.join(spec["out"], f"{k}-{m}.parquet") for m in spec["months"]] for k in ("trades", "audit", "quotes", "bars")}
 if len(spec["stages"]) == 2 and hasattr(stages, "trades_span"):  # a span job as the workflow runs it
     stages.trades_span(config, spec["months"], paths)
@@ -83,41 +93,73 @@ def extract(ref: str, into: Path) -> None:
     (into / "demo_data").symlink_to(REPO / "demo_data")
 
 
+def one_market_input(folder: Path) -> tuple[str, str]:
+    """The demo's first market alone: its securities' trades and quotes, and a config of the demo's
+    settings on that market (``tests/demo_config.py``), written under ``folder``; (config path, market code)."""
+    import polars as pl
+    import yaml
+
+    sys.path.insert(0, str(REPO / "tests"))
+    from demo_config import one_market
+
+    raw = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
+    code, profile = next(iter(raw["markets"]["profiles"].items()))
+    config = one_market(raw, profile)
+    codes = pl.read_parquet(REPO / raw["inputs"]["securities"]).filter(pl.col(raw["markets"]["column"]) == code)
+    folder.mkdir()
+    for key in ("trades", "quotes"):
+        path = folder / f"{key}.parquet"
+        pl.read_parquet(REPO / raw["inputs"][key]).join(codes.select("security"), on="security", how="semi",
+                                                          maintain_order="left").write_parquet(path)
+        config["inputs"][key] = str(path)
+    (folder / "config.yaml").write_text(yaml.safe_dump(config, sort_keys=False))
+    return str(folder / "config.yaml"), code
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(prog="python -m bench.rules", description=__doc__.split("\n\n")[0])
     parser.add_argument("--ref", default=BASE_REF, help=f"the earlier commit (default {BASE_REF})")
-    parser.add_argument("--spans", action="store_true", help="run the earlier commit in span jobs too (it has them)")
+    parser.add_argument("--month-jobs", action="store_true",
+                        help="run the earlier commit one process per month and stage (a commit before span jobs)")
+    parser.add_argument("--input", choices=("one-market", "demo"), default="one-market",
+                        help="the demo's first market alone (default), or the demo as it is")
     args = parser.parse_args(argv)
     sys.path.insert(0, str(REPO / "src"))
+    import polars as pl
+
     from liqpanel.config import load_config
     from liqpanel.io import month_range
     from liqpanel.partition import spans
 
-    config = load_config(REPO / "config" / "config.yaml")
-    months = month_range(config["sample"]["start"], config["sample"]["end"])
     with tempfile.TemporaryDirectory(prefix="liqpanel-bench-rules-") as tmp:
         root = Path(tmp)
+        config_path = str(REPO / "config" / "config.yaml")
+        if args.input == "one-market":
+            config_path, market = one_market_input(root / "input")
+        config = load_config(config_path)
+        months = month_range(config["sample"]["start"], config["sample"]["end"])
         extract(args.ref, root / "base")
         ours, theirs = root / "ours", root / "base-out"
         ours.mkdir()
         theirs.mkdir()
-        span_specs = [{"months": block, "stages": ["clean", "bars"], "out": str(ours)}
+        span_specs = [{"months": block, "stages": ["clean", "bars"], "out": str(ours), "config": config_path}
                       for block in spans(months, config["run"]["span_months"])]
-        month_specs = [{"months": [m], "stages": [stage], "out": str(theirs)} for stage in ("clean", "bars") for m in months]
-        if args.spans:
+        month_specs = [{"months": [m], "stages": [stage], "out": str(theirs), "config": config_path}
+                       for stage in ("clean", "bars") for m in months]
+        if not args.month_jobs:
             month_specs = [{**s, "out": str(theirs)} for s in span_specs]
         cpu_ours = run(span_specs, REPO, None)
         cpu_base = run(month_specs, root / "base", str(root / "base" / "src"))
-        import polars as pl
         from polars.testing import assert_frame_equal
 
         files = sorted(p.name for p in theirs.glob("*.parquet"))
         for name in files:
             assert_frame_equal(pl.read_parquet(ours / name), pl.read_parquet(theirs / name))
-    trades = pl.scan_parquet(REPO / "demo_data" / "trades.parquet").select(pl.len()).collect().item()
-    print(f"demo market, full rule set, {len(months)} months, {trades:,} trades read; one polars thread per process")
+        trades = pl.scan_parquet(config["inputs"]["trades"]).select(pl.len()).collect().item()
+    what = f"the demo's first market ({market}) alone" if args.input == "one-market" else "the demo"
+    print(f"{what}, full rule set, {len(months)} months, {trades:,} trades read; one polars thread per process")
     print(f"  this code       {len(span_specs):3d} processes (a span of months each)  {cpu_ours:6.2f} CPU-s")
-    each = "a span of months each" if args.spans else "a month and stage each"
+    each = "a month and stage each" if args.month_jobs else "a span of months each"
     print(f"  commit {args.ref}  {len(month_specs):3d} processes ({each})  {cpu_base:6.2f} CPU-s")
     print(f"  {cpu_base / cpu_ours:.1f}x less CPU; the same {len(files)} tables (clean trades, quotes, audit, bars)")
 

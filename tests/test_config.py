@@ -25,6 +25,25 @@ def test_demo_config_is_valid_and_defaults_are_filled():
     assert cfg["run"]["work_dir"] == "work"
 
 
+def test_a_config_checked_before_gets_the_same_defaults_without_loading_the_measures():
+    # a cluster job's process: the main process checked the config in full; the job fills the same
+    # defaults but loads neither the measure registry nor the study (a fresh interpreter tells)
+    import json
+    import subprocess
+    import sys
+
+    assert validate_config(_demo(), checked_before=True) == load_config(DEMO)
+    job = ("import json, sys, yaml; from liqpanel.config import validate_config; "
+           "validate_config(yaml.safe_load(open(sys.argv[1])), checked_before=True); print(json.dumps(sorted(sys.modules)))")
+    done = subprocess.run([sys.executable, "-c", job, str(DEMO)], capture_output=True, text=True, check=True)
+    loaded = json.loads(done.stdout)
+    assert "liqpanel.config" in loaded and "jsonschema" in loaded  # the schema was applied
+    assert not [m for m in loaded if m.startswith(("liqpanel.measures", "liqpanel.study", "liqpanel.models"))]
+    cfg = _demo()
+    cfg["measures"]["rol_spread"] = {}  # left to the main process's full check
+    assert "rol_spread" in validate_config(cfg, checked_before=True)["measures"]
+
+
 @pytest.mark.parametrize(
     "path, bad_key",
     [((), "measurs"), (("clean",), "dupliactes"), (("inputs",), "trade_file"), (("run",), "colour")],

@@ -236,3 +236,22 @@ def test_bars_compute_only_the_columns_the_selected_measures_read(roll_market, m
     assert narrow.columns == base + expected
     assert_frame_equal(narrow, full.select(narrow.columns))
     assert full.height == 3 * 21 and full["effective_spread"].null_count() == 0  # the full bars had values to compare
+
+
+def test_static_bar_columns_agree_with_the_measure_registry():
+    # the table a bars job reads instead of importing the registry: for every registered measure,
+    # the same columns as its registered ones that liqpanel.intraday offers, in the same order
+    from liqpanel.bars import BAR_COLUMNS_OF, READS_NO_BAR_COLUMN
+    from liqpanel.intraday import daily_columns
+    from liqpanel.measures import REGISTRY
+
+    offered = daily_columns()
+    assert set(BAR_COLUMNS_OF) | READS_NO_BAR_COLUMN == set(REGISTRY)
+    assert not set(BAR_COLUMNS_OF) & READS_NO_BAR_COLUMN
+    for name, measure in REGISTRY.items():
+        registered = [c for c in offered if c in measure.columns]
+        assert list(BAR_COLUMNS_OF.get(name, ())) == registered, name
+        assert needed_columns([name]) == registered, name
+    everything = [c for c in offered if any(c in m.columns for m in REGISTRY.values())]
+    assert needed_columns(REGISTRY) == everything
+    assert "effective_spread" in everything and "realized_variance" in everything  # the table is not empty

@@ -286,3 +286,39 @@ def test_spans_are_calendar_blocks_that_cover_every_month_once():
     assert [s[0] for s in spans(months, 3)][:3] == ["2021-03", "2021-04", "2021-07"]
     assert len(spans(month_range("2001-01", "2020-12"), 12)) == 20  # 20 years: 20 jobs per span stage
     assert spans(months, 1) == [[m] for m in months]
+
+
+# ---------------------------------------------------------------- a span in one pass
+
+
+@pytest.mark.parametrize("with_quotes", [True, False])
+def test_a_span_cleaned_in_one_pass_writes_the_partitions_of_month_by_month(tmp_path, monkeypatch, with_quotes):
+    # the demo's two markets (each on its own clock), with and without its quotes and every rule, over four
+    # months so that the first and last partitions take the rows before and after the sample: the files
+    # written by one pass over the span are, byte for byte, those written one month at a time
+    from liqpanel.config import load_config
+
+    demo = Path(__file__).resolve().parents[1] / "config" / "config.yaml"
+    config = load_config(demo)
+    config["sample"] = {"start": "2021-10", "end": "2022-01"}
+    if not with_quotes:
+        config["inputs"]["quotes"] = None
+    months = month_range("2021-10", "2022-01")
+    written = {}
+    for name, rows in (("by_month", 0), ("one_pass", 10**9)):
+        monkeypatch.setattr(stages, "ROWS_PER_PASS", rows)
+        paths = {k: [str(tmp_path / name / f"{k}-{m}.parquet") for m in months] for k in ("trades", "audit", "quotes", "bars")}
+        (tmp_path / name).mkdir()
+        stages.trades_span(config, months, paths)
+        written[name] = {Path(p).name: Path(p).read_bytes() for ps in paths.values() for p in ps}
+    assert len(written["one_pass"]) == 16
+    assert written["one_pass"] == written["by_month"]
+    # every row of the files lands in exactly one partition: a row of the second market near a month end
+    # belongs to the month of its own clock, which the read window must reach
+    audit = pl.concat([pl.read_parquet(tmp_path / "one_pass" / f"audit-{m}.parquet") for m in months])
+    assert audit.get_column("partition").unique().sort().to_list() == months
+    for table in ("trades", "quotes") if with_quotes else ("trades",):
+        read = audit.filter(pl.col("table") == table).get_column("rows_read").sum()
+        assert read == pl.scan_parquet(config["inputs"][table]).select(pl.len()).collect().item()
+    bars = pl.read_parquet(tmp_path / "one_pass" / "bars-2021-12.parquet")
+    assert bars.height > 0 and bars.get_column("month").unique().to_list() == [date(2021, 12, 1)]

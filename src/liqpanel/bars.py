@@ -157,7 +157,8 @@ def intraday_bars(
     ``columns``: the daily columns wanted beyond the trading bars (see
     ``needed_columns``); the spread benchmarks are computed only when one of
     theirs is wanted, the realized variance likewise; None wants all.
-    ``in_order``: the trades are in security and time order (``trading_bars``).
+    ``in_order``: the trades and quotes are in security and time order
+    (``trading_bars``; clean partitions are), at least within each security-day.
     """
     options = {**BAR_OPTIONS, **(options or {})}
     rv_options = {**BAR_OPTIONS["realized_variance"], **(options.get("realized_variance") or {})}
@@ -183,7 +184,9 @@ def intraday_bars(
             horizon_minutes=float(options["horizon_minutes"]),
             past_close=options["past_close"],
         )
-        benchmarks = intraday.daily_benchmarks(per_trade, interval_minutes=float(options["lambda_interval_minutes"]))
+        # the daily means and Kyle's lambda both read the per-trade frame: computed once
+        benchmarks = intraday.daily_benchmarks(per_trade.cache(), interval_minutes=float(options["lambda_interval_minutes"]),
+                                               in_order=True)
         bars = bars.join(benchmarks, on=key, how="left")
     if "variance" in groups:
         price = rv_options["price"]
@@ -194,18 +197,45 @@ def intraday_bars(
         else:
             series = trades.select("security", "ts", "price")
         variance = intraday.realized_variance(series, market, interval_minutes=float(rv_options["interval_minutes"]),
-                                              in_order=in_order and not on_quotes)
+                                              in_order=in_order)
         bars = bars.join(variance, on=key, how="left")
     types = {c: t for group in groups.values() for c, t in group.items()}
     return bars.with_columns([pl.col(c).cast(t) for c, t in types.items()]).sort(key)
 
 
+# The high-frequency daily columns each measure reads (those of its registered
+# ``columns`` that ``liqpanel.intraday`` offers); a measure not listed reads none.
+# Kept here so that a bars job decides its columns without importing the measure
+# registry (and numpy with it); tests/test_intraday.py checks it against the registry.
+BAR_COLUMNS_OF: dict[str, tuple[str, ...]] = {
+    "closing_spread": ("close_bid", "close_ask"),
+    "effective_spread": ("effective_spread", "effective_spread_size_weighted"),
+    "kyle_lambda": ("kyle_lambda",),
+    "price_impact": ("price_impact", "price_impact_size_weighted"),
+    "quoted_spread": ("quoted_spread", "quoted_spread_size_weighted"),
+    "realized_spread": ("realized_spread", "realized_spread_size_weighted"),
+    "realized_variance": ("realized_variance", "realized_variance_returns"),
+}
+# the registered measures that read no high-frequency column
+READS_NO_BAR_COLUMN = frozenset({
+    "amihud", "amivest", "ar_spread_2day", "ar_spread_monthly", "cs_spread", "edge_spread", "effective_tick",
+    "fht_spread", "gibbs_spread", "limit_days", "liu_lm", "lot_mixed", "lot_ysplit", "ps_gamma", "roll_spread",
+    "spread_blend", "turnover", "vol_close", "vol_garman_klass", "vol_parkinson", "vol_rogers_satchell",
+    "vol_yang_zhang", "zero_return_share", "zero_return_share_traded",
+})
+
+
 def needed_columns(measures: Iterable[str]) -> list[str]:
     """The high-frequency daily columns (``liqpanel.intraday``) that the named measures read.
 
-    From each measure's registered daily columns (``liqpanel.measures``).
+    From ``BAR_COLUMNS_OF`` when it knows every name, else from each measure's
+    registered daily columns (``liqpanel.measures``); both give the same list.
     """
+    names = list(measures)
+    offered = intraday.daily_columns()
+    if all(name in BAR_COLUMNS_OF or name in READS_NO_BAR_COLUMN for name in names):
+        wanted = {c for name in names for c in BAR_COLUMNS_OF.get(name, ())}
+        return [c for c in offered if c in wanted]
     from liqpanel.measures import REGISTRY
 
-    offered = intraday.daily_columns()
-    return [c for c in offered if any(c in REGISTRY[name].columns for name in measures)]
+    return [c for c in offered if any(c in REGISTRY[name].columns for name in names)]

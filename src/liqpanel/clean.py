@@ -96,16 +96,24 @@ def _with_helpers(frame: pl.LazyFrame) -> pl.LazyFrame:
     return frame.with_columns(extra) if extra else frame
 
 
-def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[str, str]) -> pl.LazyFrame:
-    """The rows of one month partition in (security, ts, file, row) order, with local date and time of day.
+def months_of(month: str | list[str]) -> list[str]:
+    """A month partition ('YYYY-MM') or a list of consecutive ones, as a list."""
+    return [month] if isinstance(month, str) else list(month)
+
+
+def _partition(frame: pl.LazyFrame, market: dict, *, month: str | list[str], sample: tuple[str, str]) -> pl.LazyFrame:
+    """The rows of one month partition (or of consecutive ones, ``month`` a list) in (security, ts, file,
+    row) order, with local date and time of day and the local month number ``_month``.
 
     Rows dated before the sample (or without a timestamp) belong to the first
     partition, rows after it to the last, so every row lands in one partition.
     The rows are put in order before the local columns are added, so the
-    sort moves fewer columns.
+    sort moves fewer columns. Several months are one frame in that order:
+    each month's rows are then in the order of that month's own partition.
     """
     first, last = sample
-    near = attach(_with_helpers(frame).filter(_near_month(month, first, last)), market)
+    months = months_of(month)
+    near = attach(_with_helpers(frame).filter(_near_months(months, first, last)), market)
     frame = _in_order(near.with_columns(pl.col("security").fill_null(MISSING_SECURITY)).collect())
     # the rows' own first and last instants bound the local clock's offsets: a month's
     # window, or more in the first and last partitions (liqpanel.markets.local_clock)
@@ -117,12 +125,12 @@ def _partition(frame: pl.LazyFrame, market: dict, *, month: str, sample: tuple[s
         (day.dt.year().cast(pl.Int32) * 12 + day.dt.month().cast(pl.Int32) - 1).alias("_month"),
         clock.alias("_time"),
     )
-    lo, hi = _month_number(first), _month_number(last)
+    lo, hi = month_number(first), month_number(last)
     home = pl.col("_month").fill_null(lo).clip(lo, hi)  # before the sample: the first month; after: the last
-    return frame.filter(home == _month_number(month))
+    return frame.filter(home.is_between(month_number(months[0]), month_number(months[-1])))
 
 
-def _month_number(month: str) -> int:
+def month_number(month: str) -> int:
     """'YYYY-MM' as months since year 0, the number ``_partition`` gives each row's local month."""
     year, mon = map(int, month.split("-"))
     return year * 12 + mon - 1
@@ -135,18 +143,18 @@ def _window(month: str) -> tuple[datetime, datetime]:
     return start - timedelta(days=2), end + timedelta(days=2)
 
 
-def _near_month(month: str, first: str, last: str) -> pl.Expr:
-    """A cheap UTC pre-filter: rows within two days of the local month (no offset exceeds 14 hours).
+def _near_months(months: list[str], first: str, last: str) -> pl.Expr:
+    """A cheap UTC pre-filter: rows within two days of the local months (no offset exceeds 14 hours).
 
     Lets each partition skip most of a large file before any local-time work;
-    the exact local-month test follows.
+    the exact local-month test follows. ``months``: consecutive months.
     """
-    lo, hi = _window(month)
+    lo, hi = _window(months[0])[0], _window(months[-1])[1]
     ts = pl.col("ts")
     keep = ts.is_null() | ((ts >= lo) & (ts < hi))
-    if month == first:
+    if months[0] == first:
         keep = keep | (ts < hi)
-    if month == last:
+    if months[-1] == last:
         keep = keep | (ts >= lo)
     return keep
 
@@ -188,7 +196,7 @@ def _common_rules(frame: pl.LazyFrame, market: dict, rules: dict, *, numeric: tu
     missing = pl.any_horizontal([pl.col(c).is_null() for c in required]) | (pl.col("security") == MISSING_SECURITY)
     reason = pl.when(pl.col("_bad").is_not_null()).then(pl.lit("unparseable"))
     reason = reason.when(missing).then(pl.lit("missing_field"))
-    outside = ~pl.col("_month").is_between(_month_number(first), _month_number(last))
+    outside = ~pl.col("_month").is_between(month_number(first), month_number(last))
     reason = reason.when(outside).then(pl.lit("outside_sample"))
     if rules.get("nonpositive", True):
         reason = reason.when(pl.any_horizontal([pl.col(c) <= 0 for c in numeric])).then(pl.lit("nonpositive"))
@@ -291,8 +299,12 @@ def _merge_same_time(frame: pl.DataFrame, medians: list[str], sums: list[str]) -
     return _on_ties(frame, merge, [*medians, *sums, "drop_rule"])
 
 
-def flag_quotes(quotes: pl.LazyFrame, market: dict, rules: dict, *, month: str, sample: tuple[str, str]) -> pl.LazyFrame:
-    """Every quote of the partition with ``drop_rule`` (null when kept)."""
+def flag_quotes(
+    quotes: pl.LazyFrame, market: dict, rules: dict, *, month: str | list[str], sample: tuple[str, str]
+) -> pl.LazyFrame:
+    """Every quote of the partition (or of consecutive partitions, ``month`` a list) with ``drop_rule``
+    (null when kept). Every rule works within a security and timestamp or a security-day, so the
+    quotes of several months are flagged as each month's alone."""
     frame = _partition(quotes, market, month=month, sample=sample)
     frame = frame.with_columns(_common_rules(frame, market, rules, numeric=("bid", "ask"), sample=sample)
                                .otherwise(None).cast(pl.String).alias("drop_rule")).collect()
@@ -317,7 +329,7 @@ def flag_trades(
     market: dict,
     rules: dict,
     *,
-    month: str,
+    month: str | list[str],
     sample: tuple[str, str],
     quotes: pl.LazyFrame | None = None,
 ) -> pl.DataFrame:
@@ -325,7 +337,10 @@ def flag_trades(
 
     ``quotes`` are the partition's clean quotes (or None): they feed the
     outside-quotes and no-quote rules. Collected here because the outlier
-    filter works on a whole partition at once.
+    filter works on a whole partition at once. ``month`` a list of
+    consecutive months: their trades in one frame, each flagged as in its
+    own month (every rule works within a security and timestamp or a
+    security-day, and the quotes are matched within the security-day).
     """
     frame = _partition(trades, market, month=month, sample=sample)
     names = frame.collect_schema().names()
@@ -373,7 +388,7 @@ def _match_quotes(frame: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float)
 def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
     from liqpanel.outliers import neighbourhood_outliers  # numpy: loaded only when the filter is on
 
-    kept = flagged.filter(pl.col("drop_rule").is_null()).select("_file", "_row", "security", "date", "price")
+    kept = flagged.filter(pl.col("drop_rule").is_null()).select("security", "date", "price")
     group = kept.select(pl.struct("security", "date").rle_id()).to_series().to_numpy()
     outlier = neighbourhood_outliers(
         group,
@@ -383,52 +398,69 @@ def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
         gamma=float(setting.get("gamma", 0.02)),
         threshold=float(setting.get("threshold", 3.0)),
     )
-    hits = kept.filter(pl.Series(outlier)).select("_file", "_row", pl.lit(True).alias("_outlier"))
-    if not hits.height:
+    if not outlier.any():
         return flagged
-    joined = flagged.join(hits, on=["_file", "_row"], how="left", maintain_order="left")
-    return _mark(joined.lazy(), pl.col("_outlier"), "outlier").drop("_outlier").collect()
+    # the outliers' rows in the flagged frame: kept rows, so their rule is still empty
+    at = flagged.get_column("drop_rule").is_null().arg_true().filter(pl.Series(outlier))
+    return flagged.with_columns(flagged.get_column("drop_rule").clone().scatter(at, "outlier"))
 
 
-def audit_of(flagged: pl.DataFrame | pl.LazyFrame, table: str, *, month: str, timestamps: str = "") -> pl.LazyFrame:
+def audit_of(
+    flagged: pl.DataFrame | pl.LazyFrame, table: str, *, month: str | list[str], timestamps: str = "",
+    sample: tuple[str, str] | None = None,
+) -> pl.LazyFrame:
     """Rows read, kept and dropped per rule, per security and local date.
 
     One pass over the rows counts them per security, date, rule (and whether
     a kept row had a quote); the counts are then spread into the rule columns
-    on that small table.
+    on that small table. ``month`` a list of consecutive months (with the
+    ``sample``): each security-day's row names its own month partition in
+    ``partition`` (a local date lies in one month; a row without one in the
+    first month of the sample, as in ``_partition``).
     """
+    months = months_of(month)
     lf = flagged.lazy()
     names = lf.collect_schema().names()
     quoted = pl.col("_quoted") if "_quoted" in names else pl.lit(None, dtype=pl.Boolean)
-    counts = lf.group_by("security", "date", "drop_rule", quoted.alias("_quoted")).agg(pl.len().cast(pl.Int64).alias("_n"))
+    home = []
+    partition = pl.lit(months[0]).alias("partition")
+    if len(months) > 1:
+        lo, hi = month_number(sample[0]), month_number(sample[1])
+        home = [pl.col("_month").fill_null(lo).clip(lo, hi).alias("_home")]
+        partition = pl.col("_home").first().replace_strict(
+            {month_number(m): m for m in months}, return_dtype=pl.String).alias("partition")
+    counts = lf.group_by("security", "date", "drop_rule", quoted.alias("_quoted"), *home).agg(
+        pl.len().cast(pl.Int64).alias("_n"))
     n, kept = pl.col("_n"), pl.col("drop_rule").is_null()
     without = n.filter(kept & ~pl.col("_quoted")).sum()
     return (
         counts.group_by("security", "date")
         .agg(
+            partition,
             n.sum().alias("rows_read"),
             n.filter(kept).sum().alias("rows_kept"),
             *[n.filter(pl.col("drop_rule") == rule).sum().alias(f"drop_{rule}") for rule in RULES],
             pl.when(pl.col("_quoted").is_null().all()).then(None).otherwise(without).cast(pl.Int64)
             .alias("kept_without_quote"),
         )
-        .with_columns(
-            pl.lit(table).alias("table"), pl.lit(month).alias("partition"), pl.lit(timestamps).alias("timestamps")
-        )
+        .with_columns(pl.lit(table).alias("table"), pl.lit(timestamps).alias("timestamps"))
         .select("table", "partition", "security", "date", pl.exclude("table", "partition", "security", "date"))
         .sort("table", "security", "date", nulls_last=True)
     )
 
 
-def kept_rows(flagged: pl.DataFrame | pl.LazyFrame, columns: list[str]) -> pl.LazyFrame:
+def kept_rows(flagged: pl.DataFrame | pl.LazyFrame, columns: list[str], *, month_number: bool = False) -> pl.LazyFrame:
     """The kept rows with ``columns`` (those present) and the local ``date``, in the flagged frame's order.
 
     ``flag_trades`` and ``flag_quotes`` leave their rows in security, time and
     input order, so the clean tables come out in that order without a sort.
+    ``month_number``: also the local month number ``_month`` (a kept row's
+    month partition, ``month_number``), to cut several months apart.
     """
     lf = flagged.lazy()
     names = lf.collect_schema().names()
-    return lf.filter(pl.col("drop_rule").is_null()).select(*[c for c in columns if c in names], "date")
+    extra = ["_month"] if month_number else []
+    return lf.filter(pl.col("drop_rule").is_null()).select(*[c for c in columns if c in names], "date", *extra)
 
 
 def clean_trades(trades: pl.LazyFrame, market: dict, rules: dict, **partition) -> tuple[pl.LazyFrame, pl.LazyFrame]:

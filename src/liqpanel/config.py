@@ -91,10 +91,15 @@ def _fill_defaults(instance: Any, schema: dict, root: dict | None = None) -> Any
     return instance
 
 
-def validate_config(config: dict, *, source: str = "config") -> dict:
+def validate_config(config: dict, *, source: str = "config", checked_before: bool = False) -> dict:
     """Validate ``config`` against the schema; return a copy with defaults filled.
 
     Raises ConfigError naming the offending key and what was expected.
+    ``checked_before``: the run's main process has already checked this same
+    config in full (a cluster job's own process): the schema is applied and
+    the defaults filled, but the measure options, models and study settings
+    are not checked again, so the job does not load the measure registry,
+    the models and the study for nothing.
     """
     if not isinstance(config, dict):
         raise ConfigError(f"{source}: the config must be a mapping of keys to values")
@@ -106,6 +111,8 @@ def validate_config(config: dict, *, source: str = "config") -> dict:
     if errors:
         raise ConfigError(f"{source}: {_message(errors[0])}")
     filled = _fill_defaults(copy.deepcopy(config), schema)
+    if checked_before:
+        return filled
     # measure names and options are checked against the registry
     from liqpanel.measures import get_measure, resolve_options
 

@@ -159,17 +159,23 @@ def _size_weighted(x: pl.Expr, size: pl.Expr) -> pl.Expr:
     return (x * size).filter(defined).sum() / size.filter(defined).sum()
 
 
-def daily_benchmarks(per_trade: pl.LazyFrame, *, interval_minutes: float = 5.0) -> pl.LazyFrame:
-    """Equal- and size-weighted daily means of the per-trade measures, the closing quote and Kyle's lambda."""
+def daily_benchmarks(per_trade: pl.LazyFrame, *, interval_minutes: float = 5.0, in_order: bool = False) -> pl.LazyFrame:
+    """Equal- and size-weighted daily means of the per-trade measures, the closing quote and Kyle's lambda.
+
+    ``in_order``: ``per_trade`` is in security and time order (``trade_benchmarks`` leaves it so), so the
+    closing quote is the last quoted trade's without sorting each day by time (trades at the same
+    instant of a security-day share their prevailing quote, so their order does not change it).
+    """
     size = pl.col("size")
     quoted = pl.col("mid").is_not_null()
+    in_time = (lambda e: e) if in_order else (lambda e: e.sort_by("ts"))
     means = per_trade.group_by(BY).agg(
         quoted.sum().cast(pl.Int64).alias("n_quoted"),
         (quoted & pl.col("sign").is_not_null()).sum().cast(pl.Int64).alias("n_signed"),
         *[pl.col(m).mean().alias(m) for m in SPREAD_MEASURES],
         *[_size_weighted(pl.col(m), size).alias(f"{m}_size_weighted") for m in SPREAD_MEASURES],
-        pl.col("bid").sort_by("ts").filter(quoted.sort_by("ts")).last().alias("close_bid"),
-        pl.col("ask").sort_by("ts").filter(quoted.sort_by("ts")).last().alias("close_ask"),
+        in_time(pl.col("bid")).filter(in_time(quoted)).last().alias("close_bid"),
+        in_time(pl.col("ask")).filter(in_time(quoted)).last().alias("close_ask"),
     )
     return means.join(kyle_lambda(per_trade, interval_minutes=interval_minutes), on=BY, how="left")
 

@@ -51,7 +51,8 @@ def next_month(month: str) -> str:
 
 
 def month_window(
-    ts_dtype: pl.DataType, month: str, sample: tuple[str, str], timezone: str, column: str = "ts"
+    ts_dtype: pl.DataType, month: str, sample: tuple[str, str], timezone: str, column: str = "ts",
+    zones: tuple[str, ...] = (),
 ) -> pl.Expr | None:
     """Condition on a raw trade-time column that keeps every row of a month partition.
 
@@ -69,21 +70,26 @@ def month_window(
       so the first partition is not narrowed.
     - anything else (e.g. text): None, no narrowing.
 
+    ``zones``: on several markets, the members' own zones (``timezone`` is
+    then the zone naive times are read in): a row's month is that of its own
+    market's clock, so the window runs from the earliest of the zones' local
+    starts of the month to the latest of their starts of the next month.
+
     The exact assignment is still made by the cleaning stage; this condition
     only needs to keep a superset of the partition's rows.
     """
     first, last = sample
     if not isinstance(ts_dtype, pl.Datetime) or first == last:
         return None
+    if ts_dtype.time_zone is None and month == first:
+        return None
+    # naive times are wall-clock times in ``timezone``; aware ones instants in the column's zone
+    stored = ZoneInfo(ts_dtype.time_zone or timezone)
+    starts = [month_start(month, z).astimezone(stored) for z in (zones or (timezone,))]
+    ends = [month_start(next_month(month), z).astimezone(stored) for z in (zones or (timezone,))]
+    lo, hi = min(starts), max(ends)
     if ts_dtype.time_zone is None:
-        if month == first:
-            return None
-        lo = month_start(month, timezone).replace(tzinfo=None)
-        hi = month_start(next_month(month), timezone).replace(tzinfo=None)
-    else:
-        zone = ZoneInfo(ts_dtype.time_zone)
-        lo = month_start(month, timezone).astimezone(zone)
-        hi = month_start(next_month(month), timezone).astimezone(zone)
+        lo, hi = lo.replace(tzinfo=None), hi.replace(tzinfo=None)
     ts = pl.col(column)
     after = ts >= pl.lit(lo, dtype=ts_dtype)
     before = ts < pl.lit(hi, dtype=ts_dtype)
@@ -94,7 +100,9 @@ def month_window(
     return after & before
 
 
-def stored_window(schema: pl.Schema, month: str, sample: tuple[str, str], timezone: str) -> pl.Expr | None:
+def stored_window(
+    schema: pl.Schema, month: str, sample: tuple[str, str], timezone: str, zones: tuple[str, ...] = ()
+) -> pl.Expr | None:
     """``month_window`` for a file as stored: on its ``ts`` column, or on its ``date`` column.
 
     A file that gives the time as two columns, ``date`` (the local trading
@@ -104,7 +112,7 @@ def stored_window(schema: pl.Schema, month: str, sample: tuple[str, str], timezo
     also takes every row whose time does not parse. Anything else: None.
     """
     if "ts" in schema:
-        return month_window(schema["ts"], month, sample, timezone)
+        return month_window(schema["ts"], month, sample, timezone, zones=zones)
     if "date" not in schema or "time" not in schema or month == sample[0] or sample[0] == sample[1]:
         return None
     dtype = schema["date"]

@@ -32,7 +32,8 @@ try:
     from liqpanel.readers import list_files
     from liqpanel.report import input_files, report_category, report_labels, run_id
 
-    CONFIG = validate_config(config, source="config")
+    # a cluster job's process: the main process checked this config in full before submitting the job
+    CONFIG = validate_config(config, source="config", checked_before=not workflow.is_main_process)
     runtime.check_work_folder(CONFIG["run"]["work_dir"], CONFIG["run"]["engine_threads"])
     if INTERRUPTED:
         runtime.remove_partial_files(CONFIG["run"]["work_dir"])
