@@ -132,7 +132,7 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
         .then(pl.lit("missing_key"))
         .otherwise(pl.lit(None, dtype=pl.String))
         .alias("_rule")
-    ).sort("_file", "_row")
+    )  # in file order, as ``ingest.read_frame`` reads it
     frame = _duplicates(frame, layout, files, settings.get("duplicates", "error"))
     content, bad_range = _content_rule(settings)
     outside = pl.when((pl.col("date") < first) | (month_of("date") > last)).then(pl.lit("outside_sample"))
@@ -192,7 +192,9 @@ def _day_key(security: pl.Expr, day: pl.Expr) -> pl.Expr:
 def _copies(frame: pl.DataFrame) -> pl.DataFrame:
     """``_nth`` (1-based position in file order) and ``_copies`` among the live rows of each key."""
     live = pl.col("_rule").is_null()
-    if not frame.filter(live).select(_day_key(pl.col("security"), pl.col("date")).is_duplicated().any()).item():
+    rows = frame.filter(live).select("security", "date")
+    # a file in key order (the usual vendor file) has no repeated key: one pass proves it, without hashing
+    if in_key_order(rows) or not rows.select(_day_key(pl.col("security"), pl.col("date")).is_duplicated().any()).item():
         return frame.with_columns(pl.lit(1, dtype=pl.UInt32).alias("_nth"), pl.lit(1, dtype=pl.UInt32).alias("_copies"))
     key = [pl.col("security"), pl.col("date"), live.alias("_live")]
     return frame.with_columns(
@@ -245,6 +247,8 @@ def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: b
     """
     if adjustments is not None and adjustments.height and has_returns:
         raise ingest.error(layout, ADJUSTED_TWICE, column="ret")
+    if not (adjustments is not None and adjustments.height) and in_key_order(daily):
+        return daily if has_returns else _returns_in_order(daily)
     lf = daily.lazy()
     if not has_returns:
         lf = add_returns(lf, adjustments=adjustments)
@@ -263,6 +267,16 @@ def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: b
     return lf.sort("security", "date").collect()
 
 
+def _returns_in_order(daily: pl.DataFrame) -> pl.DataFrame:
+    """``liqpanel.bars.add_returns`` of a table in key order (``in_key_order``) without adjustments:
+    each row's previous row is its security's previous day, so no sort and no grouping are needed;
+    the same expressions, so the same values."""
+    new_security = (pl.col("security") != pl.col("security").shift(1)).fill_null(True)
+    before = {c: pl.when(new_security).then(None).otherwise(pl.col(c).shift(1)) for c in ("close", "date")}
+    stale = before["date"] < month_of("date").dt.offset_by("-1mo")
+    return daily.with_columns(pl.when(stale).then(None).otherwise(pl.col("close") / before["close"] - 1.0).alias("ret"))
+
+
 def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFrame:
     """Days whose return is close to a split's (-1/2, -2/3, +1, ...) with a matching volume jump.
 
@@ -271,17 +285,25 @@ def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFra
     changed by at least sqrt(k) in the split's direction (a threshold of this
     project). Each day is listed once, under the nearest ratio.
     """
-    base = daily.sort("security", "date").with_columns(
-        (pl.col("volume") / pl.col("volume").shift(1).over("security")).alias("volume_ratio")
-    )
+    gaps = {k: ((1.0 + pl.col("ret")) * k - 1.0).abs() for k in SPLIT_RATIOS}
+    ordered = in_key_order(daily)
+    previous_volume = pl.col("volume").shift(1)
+    if ordered:  # each row's previous row is its security's previous day
+        previous_volume = pl.when(pl.col("security") == pl.col("security").shift(1)).then(previous_volume)
+    else:
+        previous_volume = previous_volume.over("security")
+    # the days whose return is near any split's, in one pass; the ratios are then told apart on those few
+    base = (daily if ordered else daily.sort("security", "date")).with_columns(
+        (pl.col("volume") / previous_volume).alias("volume_ratio")
+    ).filter(pl.any_horizontal([gap <= tolerance for gap in gaps.values()]))
     candidates = pl.concat([
         base.filter(
-            ((1.0 + pl.col("ret")) * k - 1.0).abs() <= tolerance,
+            gaps[k] <= tolerance,
             (pl.col("volume_ratio") >= k ** 0.5) if k > 1 else (pl.col("volume_ratio") <= k ** 0.5),
         ).select(
             "security", "date", "ret", "volume_ratio",
             pl.lit(f"{k:g}:1" if k >= 1 else f"1:{1 / k:g}").alias("suspected_split"),
-            ((1.0 + pl.col("ret")) * k - 1.0).abs().alias("_gap"),
+            gaps[k].alias("_gap"),
         )
         for k in SPLIT_RATIOS
     ])
@@ -326,11 +348,17 @@ def _check_key(daily: pl.DataFrame) -> None:
     The table is in key order, so one pass comparing each row with the one
     before proves it; only a table where that pass fails is checked by hashing.
     """
+    if not in_key_order(daily):
+        check_unique_key(daily, ("security", "date"), table="daily")
+
+
+def in_key_order(frame: pl.DataFrame) -> bool:
+    """Whether ``frame``'s security and date are never missing and strictly increase row by row
+    (sorted by the key, each key once), in one pass comparing each row with the one before."""
     security, day = pl.col("security"), pl.col("date")
     after = (security > security.shift(1)) | ((security == security.shift(1)) & (day > day.shift(1)))
     whole = pl.any_horizontal(security.is_null(), day.is_null()).any().not_()
-    if not daily.select(whole & after.slice(1).all()).item():
-        check_unique_key(daily, ("security", "date"), table="daily")
+    return bool(frame.select(whole & after.slice(1).all()).item())
 
 
 def audit_summary(audit: pl.DataFrame) -> pl.DataFrame:

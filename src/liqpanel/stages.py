@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import sys
+from concurrent.futures import ThreadPoolExecutor
 from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -313,10 +314,13 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
     read = _read_daily(config)
     daily = daily_to_reporting(read.daily.lazy(), config, load_markets(config)).collect() if config.get(
         "markets") else read.daily
-    # one pass cuts the table into its months, each in the table's (security, date) order
+    # one pass cuts the table into its months, each in the table's (security, date) order; a month
+    # partition is only read whole by the next stages (lz4, no statistics: half the time to write)
     parts = daily.partition_by("month", as_dict=True, maintain_order=True)
-    for month, out in zip(months, outs):
-        write_parquet(parts.get((_month_start(month),), daily.clear()), out)
+    empty = daily.clear()
+    with ThreadPoolExecutor(2) as pool:  # the writer releases the interpreter's lock
+        list(pool.map(lambda month, out: write_parquet(parts.get((_month_start(month),), empty), out, passing=True),
+                      months, outs))
     write_parquet(read.audit, out_audit)
     splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
     write_parquet(splits, out_splits)
