@@ -146,8 +146,10 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
     valid = pl.col("_rule").is_null() | (pl.col("_rule") == "outside_sample")
     kept = pl.col("_rule").is_null()
     clear = valid & pl.col("_bad_range")
+    # the three price columns are copied only when a range is to be cleared
+    cleared = frame.select(clear.any()).item()
     return frame.with_columns(
-        *[pl.when(clear).then(None).otherwise(pl.col(c)).alias(c) for c in ("open", "high", "low")],
+        *[pl.when(clear).then(None).otherwise(pl.col(c)).alias(c) for c in ("open", "high", "low") if cleared],
         (kept & pl.col("_bad_range")).alias("_repaired_range"),
         (kept & pl.col("_nonfinite").is_not_null()).alias("_repaired_non_finite"),
         valid.alias("_valid"),
@@ -272,9 +274,12 @@ def _returns_in_order(daily: pl.DataFrame) -> pl.DataFrame:
     each row's previous row is its security's previous day, so no sort and no grouping are needed;
     the same expressions, so the same values."""
     new_security = (pl.col("security") != pl.col("security").shift(1)).fill_null(True)
-    before = {c: pl.when(new_security).then(None).otherwise(pl.col(c).shift(1)) for c in ("close", "date")}
-    stale = before["date"] < month_of("date").dt.offset_by("-1mo")
-    return daily.with_columns(pl.when(stale).then(None).otherwise(pl.col("close") / before["close"] - 1.0).alias("ret"))
+    close_before = pl.when(new_security).then(None).otherwise(pl.col("close").shift(1))
+    # the day before lies before the previous calendar month: month numbers (year x 12 + month) two apart
+    number = (pl.col("date").dt.year().cast(pl.Int32) * 12 + pl.col("date").dt.month().cast(pl.Int32)).alias("_n")
+    stale = (pl.col("_n") - pl.col("_n").shift(1)) >= 2
+    return daily.with_columns(number).with_columns(
+        pl.when(stale).then(None).otherwise(pl.col("close") / close_before - 1.0).alias("ret")).drop("_n")
 
 
 def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFrame:
@@ -286,16 +291,20 @@ def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFra
     project). Each day is listed once, under the nearest ratio.
     """
     gaps = {k: ((1.0 + pl.col("ret")) * k - 1.0).abs() for k in SPLIT_RATIOS}
-    ordered = in_key_order(daily)
-    previous_volume = pl.col("volume").shift(1)
-    if ordered:  # each row's previous row is its security's previous day
-        previous_volume = pl.when(pl.col("security") == pl.col("security").shift(1)).then(previous_volume)
+    near = pl.any_horizontal([gap <= tolerance for gap in gaps.values()])
+    if in_key_order(daily):
+        # each row's previous row is its security's previous day: the days whose return is near any
+        # split's are found in one pass, and only their previous rows are looked up
+        index = daily.select(pl.arg_where(near.fill_null(False))).to_series()
+        before = daily.select("security", "volume").gather((index - 1).clip(lower_bound=0))
+        base = daily.gather(index).with_columns(
+            pl.when((index > 0) & (before["security"] == pl.col("security")))
+            .then(pl.col("volume") / before["volume"]).alias("volume_ratio")
+        )
     else:
-        previous_volume = previous_volume.over("security")
-    # the days whose return is near any split's, in one pass; the ratios are then told apart on those few
-    base = (daily if ordered else daily.sort("security", "date")).with_columns(
-        (pl.col("volume") / previous_volume).alias("volume_ratio")
-    ).filter(pl.any_horizontal([gap <= tolerance for gap in gaps.values()]))
+        base = daily.sort("security", "date").with_columns(
+            (pl.col("volume") / pl.col("volume").shift(1).over("security")).alias("volume_ratio")
+        ).filter(near)
     candidates = pl.concat([
         base.filter(
             gaps[k] <= tolerance,
@@ -323,8 +332,11 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     flagged = flag_rows(frame, layout, files, settings or {}, sample, open_days)
     audit = audit_of(flagged)
     check_balance(audit, layout.path)
-    kept = flagged.filter(pl.col("_valid"))
     names = set(frame.columns)
+    del frame  # its columns live on in ``flagged``; the helpers of the read are left behind with it
+    kept = flagged.lazy()
+    if not flagged.get_column("_valid").all():  # a file whose every row is kept is not copied by a filter
+        kept = kept.filter(pl.col("_valid"))
     kept = kept.with_columns(month_of("date").alias("month"))
     if "dollar_volume" not in names:
         kept = kept.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
@@ -332,7 +344,9 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
         kept = kept.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
     has_returns = "ret" in names
     extra = [c for c in ("shares_out", "mkt_ret") if c in names]
-    kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra)
+    # one query: only the columns kept are copied by the filter
+    kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra).collect()
+    del flagged
     daily = adjust(kept, adjustments, has_returns, layout)
     first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
     daily = daily.filter(pl.col("month").is_between(first, last)).select(  # in order: ``adjust`` sorts
