@@ -349,7 +349,10 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     del flagged
     daily = adjust(kept, adjustments, has_returns, layout)
     first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
-    daily = daily.filter(pl.col("month").is_between(first, last)).select(  # in order: ``adjust`` sorts
+    inside = pl.col("month").is_between(first, last)
+    if not daily.select(inside.all()).item():  # a file within the sample is not copied by a filter
+        daily = daily.filter(inside)
+    daily = daily.select(  # in order: ``adjust`` sorts
         [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in extra]
     )
     _check_key(daily)
