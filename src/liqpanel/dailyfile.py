@@ -238,7 +238,8 @@ def check_balance(audit: pl.DataFrame, path: str) -> None:
                          path=path)
 
 
-def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: bool, layout: ingest.Layout) -> pl.DataFrame:
+def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: bool, layout: ingest.Layout,
+           ordered: bool | None = None) -> pl.DataFrame:
     """Returns (computed when the file has none) and split-adjusted prices and volume.
 
     Prices before a split's ex-date are divided by the product of the later
@@ -249,7 +250,7 @@ def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: b
     """
     if adjustments is not None and adjustments.height and has_returns:
         raise ingest.error(layout, ADJUSTED_TWICE, column="ret")
-    if not (adjustments is not None and adjustments.height) and in_key_order(daily):
+    if not (adjustments is not None and adjustments.height) and (in_key_order(daily) if ordered is None else ordered):
         return daily if has_returns else _returns_in_order(daily)
     lf = daily.lazy()
     if not has_returns:
@@ -282,7 +283,7 @@ def _returns_in_order(daily: pl.DataFrame) -> pl.DataFrame:
         pl.when(stale).then(None).otherwise(pl.col("close") / close_before - 1.0).alias("ret")).drop("_n")
 
 
-def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFrame:
+def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03, ordered: bool | None = None) -> pl.DataFrame:
     """Days whose return is close to a split's (-1/2, -2/3, +1, ...) with a matching volume jump.
 
     A k-for-1 split leaves 1 + ret = 1/k and multiplies volume by about k; a
@@ -292,7 +293,7 @@ def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFra
     """
     gaps = {k: ((1.0 + pl.col("ret")) * k - 1.0).abs() for k in SPLIT_RATIOS}
     near = pl.any_horizontal([gap <= tolerance for gap in gaps.values()])
-    if in_key_order(daily):
+    if in_key_order(daily) if ordered is None else ordered:
         # each row's previous row is its security's previous day: the days whose return is near any
         # split's are found in one pass, and only their previous rows are looked up
         index = daily.select(pl.arg_where(near.fill_null(False))).to_series()
@@ -347,7 +348,10 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     # one query: only the columns kept are copied by the filter
     kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra).collect()
     del flagged
-    daily = adjust(kept, adjustments, has_returns, layout)
+    # whether the kept rows are in key order, proved once for the steps that need to know (None: each
+    # proves it for itself); the daily table is then a subset of them in the same order
+    ordered = None if adjustments is not None and adjustments.height else in_key_order(kept)
+    daily = adjust(kept, adjustments, has_returns, layout, ordered)
     first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
     inside = pl.col("month").is_between(first, last)
     if not daily.select(inside.all()).item():  # a file within the sample is not copied by a filter
@@ -355,8 +359,9 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     daily = daily.select(  # in order: ``adjust`` sorts
         [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in extra]
     )
-    _check_key(daily)
-    return DailyRead(daily=daily, audit=audit, splits=suspected_splits(daily))
+    if not ordered:
+        _check_key(daily)
+    return DailyRead(daily=daily, audit=audit, splits=suspected_splits(daily, ordered=True if ordered else None))
 
 
 def _check_key(daily: pl.DataFrame) -> None:
