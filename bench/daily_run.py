@@ -5,9 +5,10 @@ YYYYMMDD integer dates, as ``bench.daily_file`` writes it): by default 20
 years of one security and 20 years of 5,000 securities. Each goes through
 ``liqpanel run --config <bench config>`` exactly as a user runs it
 (Snakemake plans the jobs: the daily file read, checked and audited once,
-one measures job per year, the monthly table, panel, models, factors and
-report), in a fresh work and results folder, with Roll and Amihud selected
-and one Fama-MacBeth regression of next month's return on them.
+one measures job for the whole sample, the monthly table, panel, models,
+factors and report), in a fresh work and results folder, with Roll and
+Amihud selected and one Fama-MacBeth regression of next month's return on
+them.
 
 For each market it prints the rows, the wall time of the whole command, the
 CPU time of the command and every process it started (user + system of the

@@ -80,3 +80,48 @@ def test_daily_example_run_puts_the_daily_audit_in_the_run_folder(tmp_path):
     assert counts["read"] == counts["kept"] == lines
     assert sum(v for k, v in counts.items() if k.startswith("dropped")) == 0
     assert not (tmp_path / "results" / "latest" / "tables" / "daily_suspected_splits.csv").exists()
+
+
+def _daily_example_config(tmp_path: Path, measures: dict) -> dict:
+    from liqpanel.config import validate_config
+
+    config = yaml.safe_load((REPO / "config" / "daily_example.yaml").read_text())
+    config["run"].update(results_dir=str(tmp_path / "results"), work_dir=str(tmp_path / "work"))
+    for key in ("daily", "returns", "fx"):
+        config["inputs"][key] = str(REPO / config["inputs"][key])
+    config["inputs"]["characteristics"][0]["path"] = str(REPO / config["inputs"]["characteristics"][0]["path"])
+    config["measures"] = measures
+    return validate_config(config, source="test")
+
+
+def test_months_measured_in_blocks_have_the_values_of_months_measured_alone(tmp_path):
+    # a daily file's measures job measures consecutive months in one call; for the measures it does
+    # that for, the table must be the one measured month by month, to the last bit
+    from liqpanel import stages
+    from liqpanel.io import month_range
+
+    blockwise = {name: {} for name in (
+        "amihud", "amivest", "ar_spread_2day", "ar_spread_monthly", "cs_spread", "edge_spread", "effective_tick",
+        "limit_days", "ps_gamma", "turnover", "vol_close", "vol_garman_klass", "vol_parkinson",
+        "vol_rogers_satchell", "vol_yang_zhang")} | {"roll_spread": {"convention": "missing"}}
+    config = _daily_example_config(tmp_path, blockwise)
+    assert stages.measures_block_rows(config) == stages.MEASURES_BLOCK_ROWS
+    months = month_range(config["sample"]["start"], config["sample"]["end"])
+    daily = [str(tmp_path / "work" / f"daily-{m}.parquet") for m in months]
+    stages.daily_from_file(config, months, daily, str(tmp_path / "audit.parquet"), str(tmp_path / "splits.parquet"))
+    for label, rows in (("alone", 0), ("blocks", 5_000), ("whole", 10**9)):
+        stages.measures_table(config, daily, None, str(tmp_path / f"{label}.parquet"), block_rows=rows)
+    alone = pl.read_parquet(tmp_path / "alone.parquet").sort("security", "month")
+    assert alone.height == 48 * 24  # 48 securities, 24 months (demo_data/README.md)
+    for label in ("blocks", "whole"):
+        assert pl.read_parquet(tmp_path / f"{label}.parquet").sort("security", "month").equals(alone), label
+
+
+def test_measures_that_depend_on_the_months_measured_with_them_go_month_by_month(tmp_path):
+    # the Gibbs sampler draws from one random stream for every month it estimates; the share of zero
+    # returns counts the market's days within each security's listed span (liqpanel.measures.plan)
+    from liqpanel import stages
+
+    for measure in ("gibbs_spread", "zero_return_share", "liu_lm"):
+        config = _daily_example_config(tmp_path, {"amihud": {}, measure: {}})
+        assert stages.measures_block_rows(config) == 0, measure

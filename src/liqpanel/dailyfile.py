@@ -132,7 +132,7 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
         .then(pl.lit("missing_key"))
         .otherwise(pl.lit(None, dtype=pl.String))
         .alias("_rule")
-    ).sort("_file", "_row")
+    )  # in file order, as ``ingest.read_frame`` reads it
     frame = _duplicates(frame, layout, files, settings.get("duplicates", "error"))
     content, bad_range = _content_rule(settings)
     outside = pl.when((pl.col("date") < first) | (month_of("date") > last)).then(pl.lit("outside_sample"))
@@ -146,8 +146,10 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
     valid = pl.col("_rule").is_null() | (pl.col("_rule") == "outside_sample")
     kept = pl.col("_rule").is_null()
     clear = valid & pl.col("_bad_range")
+    # the three price columns are copied only when a range is to be cleared
+    cleared = frame.select(clear.any()).item()
     return frame.with_columns(
-        *[pl.when(clear).then(None).otherwise(pl.col(c)).alias(c) for c in ("open", "high", "low")],
+        *[pl.when(clear).then(None).otherwise(pl.col(c)).alias(c) for c in ("open", "high", "low") if cleared],
         (kept & pl.col("_bad_range")).alias("_repaired_range"),
         (kept & pl.col("_nonfinite").is_not_null()).alias("_repaired_non_finite"),
         valid.alias("_valid"),
@@ -192,7 +194,9 @@ def _day_key(security: pl.Expr, day: pl.Expr) -> pl.Expr:
 def _copies(frame: pl.DataFrame) -> pl.DataFrame:
     """``_nth`` (1-based position in file order) and ``_copies`` among the live rows of each key."""
     live = pl.col("_rule").is_null()
-    if not frame.filter(live).select(_day_key(pl.col("security"), pl.col("date")).is_duplicated().any()).item():
+    rows = frame.filter(live).select("security", "date")
+    # a file in key order (the usual vendor file) has no repeated key: one pass proves it, without hashing
+    if in_key_order(rows) or not rows.select(_day_key(pl.col("security"), pl.col("date")).is_duplicated().any()).item():
         return frame.with_columns(pl.lit(1, dtype=pl.UInt32).alias("_nth"), pl.lit(1, dtype=pl.UInt32).alias("_copies"))
     key = [pl.col("security"), pl.col("date"), live.alias("_live")]
     return frame.with_columns(
@@ -234,7 +238,8 @@ def check_balance(audit: pl.DataFrame, path: str) -> None:
                          path=path)
 
 
-def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: bool, layout: ingest.Layout) -> pl.DataFrame:
+def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: bool, layout: ingest.Layout,
+           ordered: bool | None = None) -> pl.DataFrame:
     """Returns (computed when the file has none) and split-adjusted prices and volume.
 
     Prices before a split's ex-date are divided by the product of the later
@@ -245,6 +250,8 @@ def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: b
     """
     if adjustments is not None and adjustments.height and has_returns:
         raise ingest.error(layout, ADJUSTED_TWICE, column="ret")
+    if not (adjustments is not None and adjustments.height) and (in_key_order(daily) if ordered is None else ordered):
+        return daily if has_returns else _returns_in_order(daily)
     lf = daily.lazy()
     if not has_returns:
         lf = add_returns(lf, adjustments=adjustments)
@@ -263,7 +270,20 @@ def adjust(daily: pl.DataFrame, adjustments: pl.DataFrame | None, has_returns: b
     return lf.sort("security", "date").collect()
 
 
-def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFrame:
+def _returns_in_order(daily: pl.DataFrame) -> pl.DataFrame:
+    """``liqpanel.bars.add_returns`` of a table in key order (``in_key_order``) without adjustments:
+    each row's previous row is its security's previous day, so no sort and no grouping are needed;
+    the same expressions, so the same values."""
+    new_security = (pl.col("security") != pl.col("security").shift(1)).fill_null(True)
+    close_before = pl.when(new_security).then(None).otherwise(pl.col("close").shift(1))
+    # the day before lies before the previous calendar month: month numbers (year x 12 + month) two apart
+    number = (pl.col("date").dt.year().cast(pl.Int32) * 12 + pl.col("date").dt.month().cast(pl.Int32)).alias("_n")
+    stale = (pl.col("_n") - pl.col("_n").shift(1)) >= 2
+    return daily.with_columns(number).with_columns(
+        pl.when(stale).then(None).otherwise(pl.col("close") / close_before - 1.0).alias("ret")).drop("_n")
+
+
+def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03, ordered: bool | None = None) -> pl.DataFrame:
     """Days whose return is close to a split's (-1/2, -2/3, +1, ...) with a matching volume jump.
 
     A k-for-1 split leaves 1 + ret = 1/k and multiplies volume by about k; a
@@ -271,17 +291,29 @@ def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03) -> pl.DataFra
     changed by at least sqrt(k) in the split's direction (a threshold of this
     project). Each day is listed once, under the nearest ratio.
     """
-    base = daily.sort("security", "date").with_columns(
-        (pl.col("volume") / pl.col("volume").shift(1).over("security")).alias("volume_ratio")
-    )
+    gaps = {k: ((1.0 + pl.col("ret")) * k - 1.0).abs() for k in SPLIT_RATIOS}
+    near = pl.any_horizontal([gap <= tolerance for gap in gaps.values()])
+    if in_key_order(daily) if ordered is None else ordered:
+        # each row's previous row is its security's previous day: the days whose return is near any
+        # split's are found in one pass, and only their previous rows are looked up
+        index = daily.select(pl.arg_where(near.fill_null(False))).to_series()
+        before = daily.select("security", "volume").gather((index - 1).clip(lower_bound=0))
+        base = daily.gather(index).with_columns(
+            pl.when((index > 0) & (before["security"] == pl.col("security")))
+            .then(pl.col("volume") / before["volume"]).alias("volume_ratio")
+        )
+    else:
+        base = daily.sort("security", "date").with_columns(
+            (pl.col("volume") / pl.col("volume").shift(1).over("security")).alias("volume_ratio")
+        ).filter(near)
     candidates = pl.concat([
         base.filter(
-            ((1.0 + pl.col("ret")) * k - 1.0).abs() <= tolerance,
+            gaps[k] <= tolerance,
             (pl.col("volume_ratio") >= k ** 0.5) if k > 1 else (pl.col("volume_ratio") <= k ** 0.5),
         ).select(
             "security", "date", "ret", "volume_ratio",
             pl.lit(f"{k:g}:1" if k >= 1 else f"1:{1 / k:g}").alias("suspected_split"),
-            ((1.0 + pl.col("ret")) * k - 1.0).abs().alias("_gap"),
+            gaps[k].alias("_gap"),
         )
         for k in SPLIT_RATIOS
     ])
@@ -301,8 +333,11 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     flagged = flag_rows(frame, layout, files, settings or {}, sample, open_days)
     audit = audit_of(flagged)
     check_balance(audit, layout.path)
-    kept = flagged.filter(pl.col("_valid"))
     names = set(frame.columns)
+    del frame  # its columns live on in ``flagged``; the helpers of the read are left behind with it
+    kept = flagged.lazy()
+    if not flagged.get_column("_valid").all():  # a file whose every row is kept is not copied by a filter
+        kept = kept.filter(pl.col("_valid"))
     kept = kept.with_columns(month_of("date").alias("month"))
     if "dollar_volume" not in names:
         kept = kept.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
@@ -310,14 +345,23 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
         kept = kept.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
     has_returns = "ret" in names
     extra = [c for c in ("shares_out", "mkt_ret") if c in names]
-    kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra)
-    daily = adjust(kept, adjustments, has_returns, layout)
+    # one query: only the columns kept are copied by the filter
+    kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra).collect()
+    del flagged
+    # whether the kept rows are in key order, proved once for the steps that need to know (None: each
+    # proves it for itself); the daily table is then a subset of them in the same order
+    ordered = None if adjustments is not None and adjustments.height else in_key_order(kept)
+    daily = adjust(kept, adjustments, has_returns, layout, ordered)
     first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
-    daily = daily.filter(pl.col("month").is_between(first, last)).select(  # in order: ``adjust`` sorts
+    inside = pl.col("month").is_between(first, last)
+    if not daily.select(inside.all()).item():  # a file within the sample is not copied by a filter
+        daily = daily.filter(inside)
+    daily = daily.select(  # in order: ``adjust`` sorts
         [pl.col(c).cast(t) for c, t in DAILY.items()] + [pl.col(c).cast(pl.Float64) for c in extra]
     )
-    _check_key(daily)
-    return DailyRead(daily=daily, audit=audit, splits=suspected_splits(daily))
+    if not ordered:
+        _check_key(daily)
+    return DailyRead(daily=daily, audit=audit, splits=suspected_splits(daily, ordered=True if ordered else None))
 
 
 def _check_key(daily: pl.DataFrame) -> None:
@@ -326,11 +370,17 @@ def _check_key(daily: pl.DataFrame) -> None:
     The table is in key order, so one pass comparing each row with the one
     before proves it; only a table where that pass fails is checked by hashing.
     """
+    if not in_key_order(daily):
+        check_unique_key(daily, ("security", "date"), table="daily")
+
+
+def in_key_order(frame: pl.DataFrame) -> bool:
+    """Whether ``frame``'s security and date are never missing and strictly increase row by row
+    (sorted by the key, each key once), in one pass comparing each row with the one before."""
     security, day = pl.col("security"), pl.col("date")
     after = (security > security.shift(1)) | ((security == security.shift(1)) & (day > day.shift(1)))
     whole = pl.any_horizontal(security.is_null(), day.is_null()).any().not_()
-    if not daily.select(whole & after.slice(1).all()).item():
-        check_unique_key(daily, ("security", "date"), table="daily")
+    return bool(frame.select(whole & after.slice(1).all()).item())
 
 
 def audit_summary(audit: pl.DataFrame) -> pl.DataFrame:

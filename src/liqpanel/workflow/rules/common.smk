@@ -52,6 +52,8 @@ MONTHS = month_range(CONFIG["sample"]["start"], CONFIG["sample"]["end"])
 # stage; each month is still its own partition file
 SPANS = spans(MONTHS, CONFIG["run"]["span_months"])
 FROM_TRADES = not CONFIG["inputs"]["daily"]
+MEASURES_SPAN = CONFIG["run"].get("measures_span_months")
+MEASURES_SPANS = SPANS if FROM_TRADES else spans(MONTHS, MEASURES_SPAN) if MEASURES_SPAN else [MONTHS]
 STARTED = stages.now()
 COMMAND = shlex.join(sys.argv)
 
