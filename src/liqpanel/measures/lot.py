@@ -129,7 +129,7 @@ class LotData:
     def from_rows(cls, ret, market, month, months: int, masks) -> "LotData":
         """From one row per valid day in month order (``month`` numbers the months 0..) and the region masks."""
         zero, one, two = masks
-        key = 3 * month + np.where(one, 1, np.where(two, 2, 0))  # (month, region) cells; region 0's are dropped
+        key = 3 * month + one + 2 * two  # (month, region) cells; region 0's are dropped
         sums = [np.bincount(key, weights=w, minlength=3 * months).reshape(months, 3)[:, 1:].T
                 for w in (None, ret, market, ret * ret, ret * market, market * market)]
         return cls(np.stack(sums, axis=1).astype(float), market[zero], month[zero])
@@ -204,27 +204,16 @@ def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False, months_
     d_t = -moved + q_total / var
     # zero returns, one entry each
     m, x = data.zero_month, data.zero_market
-    inv = np.exp(-log_s)[m]
-    xi = x * inv
-    lo, hi = a1[m] * inv - beta[m] * xi, a2[m] * inv - beta[m] * xi
-    log_d = _log_interval(lo, hi)
-    u = np.exp(-0.5 * hi * hi - LOG_ROOT_2PI - log_d)
-    v = np.exp(-0.5 * lo * lo - LOG_ROOT_2PI - log_d)
-    g_zero = np.stack([-v * inv, u * inv, (v - u) * xi, v * lo - u * hi])
-    terms = [log_d[None], g_zero]
-    if hessian:
-        zeros = np.zeros_like(x)
-        l_p = np.stack([inv, zeros, -xi, -lo])
-        h_p = np.stack([zeros, inv, -xi, -hi])
-        i, j = UPPER
-        terms.append((-hi * u) * h_p[i] * h_p[j] + (lo * v) * l_p[i] * l_p[j] - g_zero[i] * g_zero[j])
-    totals = _month_totals(np.concatenate(terms), m, months)
+    totals = _month_totals(_zero_terms(a1[m], a2[m], beta[m], np.exp(-log_s)[m], x, hessian), m, months)
     ll = ll + totals[0]
     zero_grad = totals[1:5]
-    grad = np.nan_to_num(np.stack([d_a[0], d_a[1], d_b, d_t]) + zero_grad, nan=0.0, posinf=0.0, neginf=0.0)
+    grad = np.stack([d_a[0], d_a[1], d_b, d_t]) + zero_grad
+    if not np.isfinite(grad).all():
+        grad = np.nan_to_num(grad, nan=0.0, posinf=0.0, neginf=0.0)
     if not hessian:
         return ll, grad
     h = np.empty((4, 4, months))  # months last: each entry a contiguous row
+    i, j = UPPER
     h[i, j] = totals[5:]
     h[0, 0] -= n[0] / var
     h[1, 1] -= n[1] / var
@@ -236,8 +225,49 @@ def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False, months_
     h[2, 3] -= 2.0 * d_b + zero_grad[2]
     h[3, 3] -= 2.0 * q_total / var + zero_grad[3]
     h[j, i] = h[i, j]
-    h = np.nan_to_num(h, copy=False)
+    if not np.isfinite(h).all():
+        h = np.nan_to_num(h, copy=False)
     return ll, grad, (h if months_last else np.moveaxis(h, 2, 0))
+
+
+def _zero_terms(a1, a2, beta, inv, x, hessian: bool) -> np.ndarray:
+    """Per zero return (parameters already taken at its month): ln D, its gradient and (``hessian``) the 10 upper entries.
+
+    Rows of the result: ln D; g_p for p = alpha_1, alpha_2, beta, ln sigma;
+    then d^2 ln D / dp dq in the order of ``UPPER`` (see ``evaluate``),
+    written entry by entry: l_p = (1/s, 0, -X/s, -l) and h_p = (0, 1/s,
+    -X/s, -h) have zeros and shared factors, so each entry is two or three
+    products instead of the full -h u h_p h_q + l v l_p l_q - g_p g_q.
+    """
+    out = np.empty((15 if hessian else 5, len(x)))
+    xi = x * inv
+    bx = beta * xi
+    lo, hi = a1 * inv - bx, a2 * inv - bx
+    log_d = out[0]
+    log_d[:] = _log_interval(lo, hi)
+    u = np.exp(-0.5 * hi * hi - LOG_ROOT_2PI - log_d)
+    v = np.exp(-0.5 * lo * lo - LOG_ROOT_2PI - log_d)
+    g0, g1, g2, g3 = out[1:5]
+    np.multiply(-v, inv, out=g0)
+    np.multiply(u, inv, out=g1)
+    np.multiply(v - u, xi, out=g2)
+    np.subtract(v * lo, u * hi, out=g3)
+    if hessian:
+        a, b = -hi * u, lo * v  # the coefficients of h_p h_q and l_p l_q
+        a_inv, b_inv, a_xi, b_xi = a * inv, b * inv, a * xi, b * xi
+        h00, h01, h02, h03, h11, h12, h13, h22, h23, h33 = out[5:]  # the order of UPPER
+        np.subtract(b_inv * inv, g0 * g0, out=h00)
+        np.multiply(g0, g1, out=h01)
+        np.negative(h01, out=h01)
+        np.subtract(b_inv * -xi, g0 * g2, out=h02)
+        np.subtract(b_inv * -lo, g0 * g3, out=h03)
+        np.subtract(a_inv * inv, g1 * g1, out=h11)
+        np.subtract(a_inv * -xi, g1 * g2, out=h12)
+        np.subtract(a_inv * -hi, g1 * g3, out=h13)
+        np.subtract(a_xi * xi + b_xi * xi, g2 * g2, out=h22)
+        np.subtract(a_xi * hi + b_xi * lo, g2 * g3, out=h23)
+        np.subtract(a * hi * hi + b * lo * lo, g3 * g3, out=h33)
+    return out
 
 
 def _starting_values(data: LotData) -> np.ndarray:
@@ -357,8 +387,12 @@ def _cholesky_solve(system: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np
     low = [[None] * k for _ in range(k)]
     failed = np.zeros(months, dtype=bool)
 
-    def dot(pairs) -> np.ndarray:
-        return sum(pairs, np.zeros(months))
+    def dot(pairs) -> np.ndarray | float:
+        terms = list(pairs)
+        total = terms[0] if terms else 0.0  # the first product itself: no array of zeros to add it to
+        for term in terms[1:]:
+            total = total + term
+        return total
 
     for j in range(k):
         pivot = system[j, j] - dot(low[j][p] ** 2 for p in range(j))
@@ -459,10 +493,13 @@ def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iter
         new_ll, new_grad, new_hess = evaluate(candidate, data, hessian=True, months_last=True)
         better = np.isfinite(new_ll) & (new_ll >= ll)
         iterations[cols] += 1
-        theta = np.where(better, candidate, theta)
-        ll = np.where(better, new_ll, ll)
-        grad = np.where(better, new_grad, grad)
-        hess = np.where(better, new_hess, hess)
+        if better.all():
+            theta, ll, grad, hess = candidate, new_ll, new_grad, new_hess
+        else:
+            theta = np.where(better, candidate, theta)
+            ll = np.where(better, new_ll, ll)
+            grad = np.where(better, new_grad, grad)
+            hess = np.where(better, new_hess, hess)
         damping = np.where(better, np.maximum(damping / 3.0, 1e-9), damping * 4.0)
     if len(cols):
         retire(np.ones(len(cols), dtype=bool), np.zeros(len(cols), dtype=bool))
@@ -504,16 +541,16 @@ def lot_cost(daily: pl.LazyFrame, *, form: str = "ysplit", max_iterations: int =
         .select(*KEY, FIRST_OF_MONTH, ok.alias("_ok"), "ret", "mkt_ret")
         .collect(engine="in-memory")
     )
-    month = np.cumsum(frame[FIRST_OF_MONTH].to_numpy()) - 1  # security-months numbered in (security, month) order
+    starts = np.flatnonzero(frame[FIRST_OF_MONTH].to_numpy())  # security-months, in (security, month) order, start here
     used = frame["_ok"].to_numpy()
-    n_obs = np.bincount(month[used], minlength=int(month[-1]) + 1 if len(month) else 0)
-    fitted = np.flatnonzero(n_obs >= MIN_RETURNS)
-    number = np.full(len(n_obs), -1)
-    number[fitted] = np.arange(len(fitted))
-    rows = used & (number[month] >= 0)
+    n_obs = np.add.reduceat(used.view(np.uint8), starts, dtype=np.int64) if len(starts) else np.zeros(0, dtype=np.int64)
+    enough = n_obs >= MIN_RETURNS
+    fitted = np.flatnonzero(enough)
+    rows = used & np.repeat(enough, np.diff(np.append(starts, len(used))))  # the days used, of the months fitted
     cost, converged, iterations = np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan)
     if len(fitted):
-        fit = fit_rows(frame["ret"].to_numpy()[rows], frame["mkt_ret"].to_numpy()[rows], number[month[rows]], len(fitted),
+        fit = fit_rows(frame["ret"].to_numpy()[rows], frame["mkt_ret"].to_numpy()[rows],
+                       np.repeat(np.arange(len(fitted)), n_obs[fitted]), len(fitted),
                        form=form, max_iterations=max_iterations, tolerance=tolerance)
         cost[fitted] = np.where(fit["converged"], fit["alpha_2"] - fit["alpha_1"], np.nan)
         converged[fitted] = fit["converged"]
