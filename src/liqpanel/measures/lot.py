@@ -50,6 +50,7 @@ iterates are those of one batch.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -532,6 +533,63 @@ def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iter
     }
 
 
+@dataclass(frozen=True)
+class MonthRows:
+    """The daily returns the LOT fits use: ``ret`` and ``market`` of the months fitted, rows in month order.
+
+    ``keys`` holds (security, month) of every security-month of the table,
+    ``n_obs`` its returns with both values finite, ``fitted`` the
+    security-months with at least ``MIN_RETURNS`` of them and ``month``
+    numbers each row's month among those (0..len(fitted) - 1).
+    """
+
+    keys: pl.DataFrame
+    n_obs: np.ndarray
+    fitted: np.ndarray
+    ret: np.ndarray
+    market: np.ndarray
+    month: np.ndarray
+
+
+_LAST_ROWS: dict[str, object] = {}  # the rows of the last table read, while that table object lives
+
+
+def _month_rows(daily: pl.LazyFrame) -> MonthRows:
+    """The returns of ``daily`` per security-month (``MonthRows``), read once for both forms.
+
+    The measures stage hands one sorted table object to every measure, so the
+    second LOT form finds the rows the first read: they are kept, under a
+    weak reference to that object, until the object is dropped or another
+    table is read. A query plan is immutable, so the same object gives the
+    same rows.
+    """
+    held = _LAST_ROWS.get("table")
+    if held is not None and held() is daily:
+        return _LAST_ROWS["rows"]
+    ok = (pl.col("ret").is_finite() & pl.col("mkt_ret").is_finite()).fill_null(False)
+    frame = (
+        in_security_date_order(daily)  # a table the measures stage has sorted and flagged is kept as it is
+        .select(*KEY, FIRST_OF_MONTH, ok.alias("_ok"), "ret", "mkt_ret")
+        .collect(engine="in-memory")
+    )
+    starts = np.flatnonzero(frame[FIRST_OF_MONTH].to_numpy())  # security-months, in (security, month) order, start here
+    used = frame["_ok"].to_numpy()
+    n_obs = np.add.reduceat(used.view(np.uint8), starts, dtype=np.int64) if len(starts) else np.zeros(0, dtype=np.int64)
+    enough = n_obs >= MIN_RETURNS
+    fitted = np.flatnonzero(enough)
+    rows = used & np.repeat(enough, np.diff(np.append(starts, len(used))))  # the days used, of the months fitted
+    out = MonthRows(frame.filter(pl.col(FIRST_OF_MONTH)).select(KEY), n_obs, fitted, frame["ret"].to_numpy()[rows],
+                    frame["mkt_ret"].to_numpy()[rows], np.repeat(np.arange(len(fitted)), n_obs[fitted]))
+
+    def forget(reference) -> None:
+        if _LAST_ROWS.get("table") is reference:
+            _LAST_ROWS.clear()
+
+    _LAST_ROWS.clear()
+    _LAST_ROWS.update(table=weakref.ref(daily, forget), rows=out)
+    return out
+
+
 def lot_cost(daily: pl.LazyFrame, *, form: str = "ysplit", max_iterations: int = 200, tolerance: float = 1e-8) -> pl.LazyFrame:
     """LOT round-trip cost alpha_2 - alpha_1 per security-month (module docstring), "mixed" or "Y-split".
 
@@ -555,28 +613,16 @@ def lot_cost(daily: pl.LazyFrame, *, form: str = "ysplit", max_iterations: int =
         raise ConfigError(f"measure 'lot_{form}': option `form` must be one of {FORMS}")
     require_columns(daily, ["security", "month", "date", "ret", "mkt_ret"], table="daily")
     name = f"lot_{form}"
-    ok = (pl.col("ret").is_finite() & pl.col("mkt_ret").is_finite()).fill_null(False)
-    frame = (
-        in_security_date_order(daily)  # a table the measures stage has sorted and flagged is kept as it is
-        .select(*KEY, FIRST_OF_MONTH, ok.alias("_ok"), "ret", "mkt_ret")
-        .collect(engine="in-memory")
-    )
-    starts = np.flatnonzero(frame[FIRST_OF_MONTH].to_numpy())  # security-months, in (security, month) order, start here
-    used = frame["_ok"].to_numpy()
-    n_obs = np.add.reduceat(used.view(np.uint8), starts, dtype=np.int64) if len(starts) else np.zeros(0, dtype=np.int64)
-    enough = n_obs >= MIN_RETURNS
-    fitted = np.flatnonzero(enough)
-    rows = used & np.repeat(enough, np.diff(np.append(starts, len(used))))  # the days used, of the months fitted
+    rows = _month_rows(daily)
+    keys, n_obs, fitted = rows.keys, rows.n_obs, rows.fitted
     cost, converged, iterations = np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan)
     if len(fitted):
-        fit = fit_rows(frame["ret"].to_numpy()[rows], frame["mkt_ret"].to_numpy()[rows],
-                       np.repeat(np.arange(len(fitted)), n_obs[fitted]), len(fitted),
-                       form=form, max_iterations=max_iterations, tolerance=tolerance)
+        fit = fit_rows(rows.ret, rows.market, rows.month, len(fitted), form=form, max_iterations=max_iterations,
+                       tolerance=tolerance)
         cost[fitted] = np.where(fit["converged"], fit["alpha_2"] - fit["alpha_1"], np.nan)
         converged[fitted] = fit["converged"]
         iterations[fitted] = fit["iterations"]
-    return frame.filter(pl.col(FIRST_OF_MONTH)).select(
-        *KEY,
+    return keys.with_columns(
         pl.Series(name, cost, nan_to_null=True),
         pl.Series(f"{name}_converged", converged, nan_to_null=True),
         pl.Series(f"{name}_iterations", iterations, nan_to_null=True),
@@ -598,4 +644,4 @@ def lot_ysplit(daily: pl.LazyFrame, **options) -> pl.LazyFrame:
     return lot_cost(daily, form="ysplit", **options)
 
 
-__all__ = ["FORMS", "LotData", "evaluate", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values", "fit_rows"]
+__all__ = ["FORMS", "LotData", "MonthRows", "evaluate", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values", "fit_rows"]
