@@ -202,7 +202,7 @@ def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False, months_
     The second derivatives of l and h are nonzero only against ln sigma
     (l_{a1,t} = -1/s, l_{b,t} = X/s, l_{t,t} = l, and h alike with alpha_2),
     which makes u h_pt - v l_pt = -g_p. Every per-return term is summed per
-    month in one pass. ``months_last=True`` gives the Hessian as (4, 4, months);
+    month (``_month_totals``). ``months_last=True`` gives the Hessian as (4, 4, months);
     ``packed=True`` as its 10 upper entries (10, months) in the order of
     ``UPPER`` (``PACKED`` maps an entry to its row).
     """
@@ -586,7 +586,10 @@ def _month_rows(daily: pl.LazyFrame) -> MonthRows:
             _LAST_ROWS.clear()
 
     _LAST_ROWS.clear()
-    _LAST_ROWS.update(table=weakref.ref(daily, forget), rows=out)
+    try:
+        _LAST_ROWS.update(table=weakref.ref(daily, forget), rows=out)
+    except TypeError:  # an object without weak references is read every time
+        pass
     return out
 
 
