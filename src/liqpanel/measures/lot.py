@@ -50,7 +50,9 @@ iterates are those of one batch.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import polars as pl
@@ -63,7 +65,7 @@ KEY = ["security", "month"]
 FORMS = ("mixed", "ysplit")
 LOG_ROOT_2PI = 0.5 * np.log(2.0 * np.pi)
 MIN_RETURNS = 5  # fewest returns for four parameters and a variance (convention of this project)
-CHUNK_MONTHS = 8192  # months fitted together: their working arrays stay in the processor's cache
+CHUNK_MONTHS = 16384  # months fitted together: their working arrays stay in the processor's cache
 FIRST_TURNS = 8  # iterations of a piece of months; the months still going then continue together
 RESULTS = ("alpha_1", "alpha_2", "beta", "sigma", "log_likelihood", "iterations", "converged")
 
@@ -98,14 +100,14 @@ def _as_rows(valid: np.ndarray):
 
 
 def _month_totals(terms: np.ndarray, month: np.ndarray, months: int) -> np.ndarray:
-    """Per-row ``terms`` (k, rows), rows in month order, summed per month: (k, months), zero for a month without rows.
+    """Per-row ``terms`` (k, rows) summed per month: (k, months), zero for a month without rows.
 
-    One ``reduceat`` over the runs of each month for every term at once.
+    One ``bincount`` a term: a pass over the rows, where a ``reduceat`` over
+    the runs of each month pays a call of its inner loop per month and term.
     """
-    out = np.zeros((terms.shape[0], months))
-    if len(month):
-        starts = np.flatnonzero(np.r_[True, month[1:] != month[:-1]])
-        out[:, month[starts]] = np.add.reduceat(terms, starts, axis=1)
+    out = np.empty((terms.shape[0], months))
+    for row, values in zip(out, terms):
+        row[:] = np.bincount(month, weights=values, minlength=months)
     return out
 
 
@@ -129,7 +131,7 @@ class LotData:
     def from_rows(cls, ret, market, month, months: int, masks) -> "LotData":
         """From one row per valid day in month order (``month`` numbers the months 0..) and the region masks."""
         zero, one, two = masks
-        key = 3 * month + np.where(one, 1, np.where(two, 2, 0))  # (month, region) cells; region 0's are dropped
+        key = 3 * month + one + 2 * two  # (month, region) cells; region 0's are dropped
         sums = [np.bincount(key, weights=w, minlength=3 * months).reshape(months, 3)[:, 1:].T
                 for w in (None, ret, market, ret * ret, ret * market, market * market)]
         return cls(np.stack(sums, axis=1).astype(float), market[zero], month[zero])
@@ -144,6 +146,11 @@ class LotData:
     @property
     def months(self) -> int:
         return self.stats.shape[2]
+
+    @cached_property
+    def totals(self) -> np.ndarray:
+        """Count, sum R^2, sum R R_m and sum R_m^2 over the non-zero returns of both regions: (4, months)."""
+        return self.stats.sum(axis=0)[[0, 3, 4, 5]]
 
     @classmethod
     def concat(cls, parts: list["LotData"]) -> "LotData":
@@ -168,6 +175,9 @@ def log_likelihood(theta: np.ndarray, ret, market, masks, valid, *, hessian: boo
 
 
 UPPER = np.triu_indices(4)
+PACKED = np.zeros((4, 4), dtype=np.intp)  # row of entry (p, q) in the packed Hessian: its upper triangle in UPPER order
+PACKED[UPPER] = PACKED[UPPER[::-1]] = np.arange(len(UPPER[0]))
+DIAGONAL = PACKED[np.arange(4), np.arange(4)]
 
 
 def _squares(stats: np.ndarray, a: np.ndarray, beta: np.ndarray) -> np.ndarray:
@@ -176,68 +186,105 @@ def _squares(stats: np.ndarray, a: np.ndarray, beta: np.ndarray) -> np.ndarray:
     return srr + n * a * a + beta * beta * sxx + 2.0 * a * sr - 2.0 * beta * srx - 2.0 * a * beta * sx
 
 
-def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False, months_last: bool = False):
+def evaluate(theta: np.ndarray, data: LotData, *, hessian: bool = False, months_last: bool = False,
+             packed: bool = False):
     """Each month's log-likelihood, its gradient and (``hessian=True``) its Hessian in (alpha_1, alpha_2, beta, ln sigma).
 
     ``theta`` has shape (4, months); the gradient (4, months), the Hessian
     (months, 4, 4). Non-zero returns of region k contribute -n_k ln sigma -
     Q_k / (2 sigma^2) with Q_k = sum (R + alpha_k - beta R_m)^2, expanded in
-    the region's sums. A zero return contributes ln D with l = (alpha_1 -
+    the region's sums: with w_k = sum R - beta sum R_m and e_k = w_k + n_k
+    alpha_k (the sum of the region's residuals), Q_k = sum (R - beta R_m)^2 +
+    alpha_k (w_k + e_k). A zero return contributes ln D with l = (alpha_1 -
     beta R_m) / sigma, h = (alpha_2 - beta R_m) / sigma, D = Phi(h) -
     Phi(l), u = phi(h) / D, v = phi(l) / D: g_p = d ln D / dp = u h_p - v l_p and
     d^2 ln D / dp dq = -h u h_p h_q + u h_pq + l v l_p l_q - v l_pq - g_p g_q.
     The second derivatives of l and h are nonzero only against ln sigma
     (l_{a1,t} = -1/s, l_{b,t} = X/s, l_{t,t} = l, and h alike with alpha_2),
     which makes u h_pt - v l_pt = -g_p. Every per-return term is summed per
-    month in one pass. ``months_last=True`` gives the Hessian as (4, 4, months).
+    month (``_month_totals``). ``months_last=True`` gives the Hessian as (4, 4, months);
+    ``packed=True`` as its 10 upper entries (10, months) in the order of
+    ``UPPER`` (``PACKED`` maps an entry to its row).
     """
     a1, a2, beta, log_s = theta
     months = theta.shape[1]
-    var = np.exp(2.0 * log_s)
-    n, sr, sx, srr, srx, sxx = data.stats.transpose(1, 0, 2)  # each (2, months): regions 1 and 2
-    a = np.stack([a1, a2])
-    q = _squares(data.stats, a, beta)
-    q_total, moved = q.sum(axis=0), n.sum(axis=0)
-    ll = -moved * (log_s + LOG_ROOT_2PI) - q_total / (2.0 * var)
-    d_a = -(n * a + sr - beta * sx) / var  # (2, months)
-    d_b = -(beta * sxx - srx - a * sx).sum(axis=0) / var
-    d_t = -moved + q_total / var
+    inv_var = np.exp(-2.0 * log_s)
+    (n1, sr1, sx1, _, _, _), (n2, sr2, sx2, _, _, _) = data.stats  # each (months,): regions 1 and 2
+    moved, srr, srx, sxx = data.totals
+    w1, w2 = sr1 - beta * sx1, sr2 - beta * sx2
+    e1, e2 = w1 + n1 * a1, w2 + n2 * a2
+    q = srr - beta * (2.0 * srx - beta * sxx) + a1 * (w1 + e1) + a2 * (w2 + e2)
     # zero returns, one entry each
-    m, x = data.zero_month, data.zero_market
-    inv = np.exp(-log_s)[m]
-    xi = x * inv
-    lo, hi = a1[m] * inv - beta[m] * xi, a2[m] * inv - beta[m] * xi
-    log_d = _log_interval(lo, hi)
-    u = np.exp(-0.5 * hi * hi - LOG_ROOT_2PI - log_d)
-    v = np.exp(-0.5 * lo * lo - LOG_ROOT_2PI - log_d)
-    g_zero = np.stack([-v * inv, u * inv, (v - u) * xi, v * lo - u * hi])
-    terms = [log_d[None], g_zero]
-    if hessian:
-        zeros = np.zeros_like(x)
-        l_p = np.stack([inv, zeros, -xi, -lo])
-        h_p = np.stack([zeros, inv, -xi, -hi])
-        i, j = UPPER
-        terms.append((-hi * u) * h_p[i] * h_p[j] + (lo * v) * l_p[i] * l_p[j] - g_zero[i] * g_zero[j])
-    totals = _month_totals(np.concatenate(terms), m, months)
-    ll = ll + totals[0]
+    m = data.zero_month
+    totals = _month_totals(_zero_terms(a1[m], a2[m], beta[m], np.exp(-log_s)[m], data.zero_market, hessian), m, months)
+    ll = -moved * (log_s + LOG_ROOT_2PI) - 0.5 * q * inv_var + totals[0]
+    own = np.empty((4, months))  # the gradient of the non-zero returns' terms
+    np.multiply(e1, -inv_var, out=own[0])
+    np.multiply(e2, -inv_var, out=own[1])
+    np.multiply(srx - beta * sxx + a1 * sx1 + a2 * sx2, inv_var, out=own[2])
+    np.subtract(q * inv_var, moved, out=own[3])
     zero_grad = totals[1:5]
-    grad = np.nan_to_num(np.stack([d_a[0], d_a[1], d_b, d_t]) + zero_grad, nan=0.0, posinf=0.0, neginf=0.0)
+    grad = own + zero_grad
+    if not np.isfinite(grad).all():
+        grad = np.nan_to_num(grad, nan=0.0, posinf=0.0, neginf=0.0)
     if not hessian:
         return ll, grad
-    h = np.empty((4, 4, months))  # months last: each entry a contiguous row
-    h[i, j] = totals[5:]
-    h[0, 0] -= n[0] / var
-    h[1, 1] -= n[1] / var
-    h[0, 2] += sx[0] / var
-    h[1, 2] += sx[1] / var
-    h[2, 2] -= sxx.sum(axis=0) / var
-    h[0, 3] -= 2.0 * d_a[0] + zero_grad[0]
-    h[1, 3] -= 2.0 * d_a[1] + zero_grad[1]
-    h[2, 3] -= 2.0 * d_b + zero_grad[2]
-    h[3, 3] -= 2.0 * q_total / var + zero_grad[3]
-    h[j, i] = h[i, j]
-    h = np.nan_to_num(h, copy=False)
+    h = totals[5:]  # the zero returns' entries; the non-zero returns' added in place
+    h[DIAGONAL[0]] -= n1 * inv_var
+    h[DIAGONAL[1]] -= n2 * inv_var
+    h[PACKED[0, 2]] += sx1 * inv_var
+    h[PACKED[1, 2]] += sx2 * inv_var
+    h[DIAGONAL[2]] -= sxx * inv_var
+    h[PACKED[0, 3]] -= 2.0 * own[0] + zero_grad[0]
+    h[PACKED[1, 3]] -= 2.0 * own[1] + zero_grad[1]
+    h[PACKED[2, 3]] -= 2.0 * own[2] + zero_grad[2]
+    h[DIAGONAL[3]] -= 2.0 * q * inv_var + zero_grad[3]
+    if not np.isfinite(h).all():
+        h = np.nan_to_num(h)
+    if packed:
+        return ll, grad, h
+    h = h[PACKED]  # (4, 4, months)
     return ll, grad, (h if months_last else np.moveaxis(h, 2, 0))
+
+
+def _zero_terms(a1, a2, beta, inv, x, hessian: bool) -> np.ndarray:
+    """Per zero return (parameters already taken at its month): ln D, its gradient and (``hessian``) the 10 upper entries.
+
+    Rows of the result: ln D; g_p for p = alpha_1, alpha_2, beta, ln sigma;
+    then d^2 ln D / dp dq in the order of ``UPPER`` (see ``evaluate``),
+    written entry by entry: l_p = (1/s, 0, -X/s, -l) and h_p = (0, 1/s,
+    -X/s, -h) have zeros and shared factors, so each entry is two or three
+    products instead of the full -h u h_p h_q + l v l_p l_q - g_p g_q.
+    """
+    out = np.empty((15 if hessian else 5, len(x)))
+    xi = x * inv
+    bx = beta * xi
+    lo, hi = a1 * inv - bx, a2 * inv - bx
+    log_d = out[0]
+    log_d[:] = _log_interval(lo, hi)
+    u = np.exp(-0.5 * hi * hi - LOG_ROOT_2PI - log_d)
+    v = np.exp(-0.5 * lo * lo - LOG_ROOT_2PI - log_d)
+    g0, g1, g2, g3 = out[1:5]
+    np.multiply(-v, inv, out=g0)
+    np.multiply(u, inv, out=g1)
+    np.multiply(v - u, xi, out=g2)
+    np.subtract(v * lo, u * hi, out=g3)
+    if hessian:
+        a, b = -hi * u, lo * v  # the coefficients of h_p h_q and l_p l_q
+        a_inv, b_inv, a_xi, b_xi = a * inv, b * inv, a * xi, b * xi
+        h00, h01, h02, h03, h11, h12, h13, h22, h23, h33 = out[5:]  # the order of UPPER
+        np.subtract(b_inv * inv, g0 * g0, out=h00)
+        np.multiply(g0, g1, out=h01)
+        np.negative(h01, out=h01)
+        np.subtract(b_inv * -xi, g0 * g2, out=h02)
+        np.subtract(b_inv * -lo, g0 * g3, out=h03)
+        np.subtract(a_inv * inv, g1 * g1, out=h11)
+        np.subtract(a_inv * -xi, g1 * g2, out=h12)
+        np.subtract(a_inv * -hi, g1 * g3, out=h13)
+        np.subtract(a_xi * xi + b_xi * xi, g2 * g2, out=h22)
+        np.subtract(a_xi * hi + b_xi * lo, g2 * g3, out=h23)
+        np.subtract(a * hi * hi + b * lo * lo, g3 * g3, out=h33)
+    return out
 
 
 def _starting_values(data: LotData) -> np.ndarray:
@@ -338,34 +385,39 @@ ROUNDING = 1e-15  # relative rounding of a month's log-likelihood: a rise predic
 
 def _gradient_small(theta: np.ndarray, grad: np.ndarray) -> np.ndarray:
     """The gradient, projected on the bounds and scaled by sigma for the alphas, below 1e-4 in every component."""
-    projected = grad.copy()  # a bound that holds a threshold at zero against its gradient takes no part
-    projected[0] = np.where((theta[0] >= 0.0) & (grad[0] > 0.0), 0.0, grad[0])
-    projected[1] = np.where((theta[1] <= 0.0) & (grad[1] < 0.0), 0.0, grad[1])
-    scale = np.stack([np.exp(theta[3])] * 2 + [np.ones(theta.shape[1])] * 2)
-    return np.max(np.abs(projected) * scale, axis=0) < 1e-4
+    sigma = np.exp(theta[3])  # a bound that holds a threshold at zero against its gradient takes no part
+    return ((np.abs(grad[0]) * sigma < 1e-4) | ((theta[0] >= 0.0) & (grad[0] > 0.0))) & (
+        (np.abs(grad[1]) * sigma < 1e-4) | ((theta[1] <= 0.0) & (grad[1] < 0.0))) & (
+        np.abs(grad[2]) < 1e-4) & (np.abs(grad[3]) < 1e-4)
 
 
-def _cholesky_solve(system: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _cholesky_solve(system: np.ndarray, rhs: np.ndarray, *, packed: bool = False) -> tuple[np.ndarray, np.ndarray]:
     """Solve every month's symmetric (k, k) system (``system`` (k, k, months), ``rhs`` (k, months)) by Cholesky at once.
 
     Returns the solutions (k, months) and the months whose system is not
     positive definite (their solution is left unspecified). Whole-array
     operations over the months, a few dozen for k = 4, instead of one small
-    LAPACK call per month.
+    LAPACK call per month. ``packed=True``: a 4 x 4 ``system`` given by its
+    upper triangle (10, months), rows in the order of ``UPPER``.
     """
-    k, months = system.shape[0], system.shape[2]
+    k, months = rhs.shape
+    entry = (lambda i, j: system[PACKED[i, j]]) if packed else (lambda i, j: system[i, j])
     low = [[None] * k for _ in range(k)]
     failed = np.zeros(months, dtype=bool)
 
-    def dot(pairs) -> np.ndarray:
-        return sum(pairs, np.zeros(months))
+    def dot(pairs) -> np.ndarray | float:
+        terms = list(pairs)
+        total = terms[0] if terms else 0.0  # the first product itself: no array of zeros to add it to
+        for term in terms[1:]:
+            total = total + term
+        return total
 
     for j in range(k):
-        pivot = system[j, j] - dot(low[j][p] ** 2 for p in range(j))
+        pivot = entry(j, j) - dot(low[j][p] ** 2 for p in range(j))
         failed |= ~(pivot > 0)
         low[j][j] = np.sqrt(np.where(pivot > 0, pivot, 1.0))
         for i in range(j + 1, k):
-            low[i][j] = (system[i, j] - dot(low[i][p] * low[j][p] for p in range(j))) / low[j][j]
+            low[i][j] = (entry(i, j) - dot(low[i][p] * low[j][p] for p in range(j))) / low[j][j]
     y = [None] * k
     for i in range(k):
         y[i] = (rhs[i] - dot(low[i][p] * y[p] for p in range(i))) / low[i][i]
@@ -385,18 +437,19 @@ def _masked_solve(system: np.ndarray, rhs: np.ndarray, free: np.ndarray) -> tupl
 
 
 def _newton_step(theta, grad, hess, damping):
-    """The damped Newton step of each month (``hess`` (4, 4, months)), projected on the bounds."""
+    """The damped Newton step of each month (``hess`` packed, (10, months); see ``evaluate``), projected on the bounds."""
     system = -hess
-    diagonal = np.arange(4)
-    system[diagonal, diagonal] += damping * (np.abs(hess[diagonal, diagonal]) + 1e-12)
-    # a threshold held at its bound by its gradient stays there
-    free = np.ones((4, theta.shape[1]), dtype=bool)
-    free[0] = ~((theta[0] >= 0.0) & (grad[0] > 0.0))
-    free[1] = ~((theta[1] <= 0.0) & (grad[1] < 0.0))
-    step, failed = _masked_solve(system, grad, free)
+    system[DIAGONAL] += damping * (np.abs(hess[DIAGONAL]) + 1e-12)
+    rhs = grad
+    for p, held in ((0, (theta[0] >= 0.0) & (grad[0] > 0.0)), (1, (theta[1] <= 0.0) & (grad[1] < 0.0))):
+        if held.any():  # a threshold held at its bound by its gradient stays there: its row and column leave the system
+            for q in range(4):
+                system[PACKED[p, q]][held] = 1.0 if q == p else 0.0
+            rhs = rhs.copy() if rhs is grad else rhs
+            rhs[p][held] = 0.0
+    step, failed = _cholesky_solve(system, rhs, packed=True)
     if failed.any():  # a system that is not positive definite: LU, or for a singular month the pseudo-inverse step
-        system = np.where(free[:, None] & free[None, :], system, np.eye(4)[:, :, None])
-        stacked, right = np.moveaxis(system[:, :, failed], 2, 0), np.where(free, grad, 0.0)[:, failed].T[:, :, None]
+        stacked, right = np.moveaxis(system[:, failed][PACKED], 2, 0), rhs[:, failed].T[:, :, None]
         try:
             step[:, failed] = np.linalg.solve(stacked, right)[:, :, 0].T
         except np.linalg.LinAlgError:
@@ -424,7 +477,7 @@ def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iter
     out_theta, out_ll, out_grad = theta.copy(), np.full(months, -np.inf), np.zeros((4, months))
     iterations = np.zeros(months, dtype=np.int64) if iterations is None else iterations.copy()
     done = np.zeros(months, dtype=bool)
-    ll, grad, hess = evaluate(theta, data, hessian=True, months_last=True)
+    ll, grad, hess = evaluate(theta, data, hessian=True, packed=True)
     damping = np.full(months, 1e-3) if damping is None else damping.copy()
     out_damping = damping.copy()
     cols = np.arange(months)  # the months still iterating, in the order of the compact state
@@ -435,18 +488,20 @@ def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iter
         out_theta[:, where], out_ll[where], out_grad[:, where] = theta[:, finished], ll[finished], grad[:, finished]
         out_damping[where], done[where] = damping[finished], converged[finished]
         going = np.flatnonzero(~finished)
-        cols, theta, ll, grad, hess, damping = cols[going], theta[:, going], ll[going], grad[:, going], hess[:, :, going], damping[going]
+        cols, theta, ll, grad, hess, damping = cols[going], theta[:, going], ll[going], grad[:, going], hess[:, going], damping[going]
         data = data.subset(going)
 
     for _ in range(max_iterations + 1):
         if not len(cols):
             break
         candidate = _newton_step(theta, grad, hess, damping)
-        step = candidate - theta
-        scale = np.stack([np.exp(theta[3])] * 2 + [np.ones(len(cols))] * 2)  # sigma for the alphas
-        gain = np.abs((grad * step).sum(axis=0))  # the rise of the likelihood the step predicts
-        small = ((np.max(np.abs(step) / scale, axis=0) < tolerance) & (gain < tolerance) & (damping <= 1e-3)) | (
-            (gain < ROUNDING * (1.0 + np.abs(ll))) & _gradient_small(theta, grad))
+        step = np.abs(candidate - theta)
+        size = np.maximum(np.maximum(step[0], step[1]) / np.exp(theta[3]), np.maximum(step[2], step[3]))  # alphas by sigma
+        gain = np.abs((grad * (candidate - theta)).sum(axis=0))  # the rise of the likelihood the step predicts
+        small = (size < tolerance) & (gain < tolerance) & (damping <= 1e-3)
+        rounding = ~small & (gain < ROUNDING * (1.0 + np.abs(ll)))  # a rise below the rounding: the gradient decides
+        if rounding.any():
+            small[rounding] = _gradient_small(theta[:, rounding], grad[:, rounding])
         small &= np.isfinite(ll)
         stalled = damping > 1e12
         out_of_turns = iterations[cols] >= max_iterations
@@ -456,13 +511,16 @@ def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iter
             if not len(cols):
                 break
             candidate = candidate[:, ~finished]
-        new_ll, new_grad, new_hess = evaluate(candidate, data, hessian=True, months_last=True)
+        new_ll, new_grad, new_hess = evaluate(candidate, data, hessian=True, packed=True)
         better = np.isfinite(new_ll) & (new_ll >= ll)
         iterations[cols] += 1
-        theta = np.where(better, candidate, theta)
-        ll = np.where(better, new_ll, ll)
-        grad = np.where(better, new_grad, grad)
-        hess = np.where(better, new_hess, hess)
+        if better.all():
+            theta, ll, grad, hess = candidate, new_ll, new_grad, new_hess
+        else:
+            theta = np.where(better, candidate, theta)
+            ll = np.where(better, new_ll, ll)
+            grad = np.where(better, new_grad, grad)
+            hess = np.where(better, new_hess, hess)
         damping = np.where(better, np.maximum(damping / 3.0, 1e-9), damping * 4.0)
     if len(cols):
         retire(np.ones(len(cols), dtype=bool), np.zeros(len(cols), dtype=bool))
@@ -473,6 +531,66 @@ def _iterate(theta, data: LotData, max_iterations, tolerance, damping=None, iter
         "log_likelihood": ll, "iterations": iterations, "converged": converged,
         "_theta": theta, "_damping": out_damping, "_done": done,  # the state a later call resumes from
     }
+
+
+@dataclass(frozen=True)
+class MonthRows:
+    """The daily returns the LOT fits use: ``ret`` and ``market`` of the months fitted, rows in month order.
+
+    ``keys`` holds (security, month) of every security-month of the table,
+    ``n_obs`` its returns with both values finite, ``fitted`` the
+    security-months with at least ``MIN_RETURNS`` of them and ``month``
+    numbers each row's month among those (0..len(fitted) - 1).
+    """
+
+    keys: pl.DataFrame
+    n_obs: np.ndarray
+    fitted: np.ndarray
+    ret: np.ndarray
+    market: np.ndarray
+    month: np.ndarray
+
+
+_LAST_ROWS: dict[str, object] = {}  # the rows of the last table read, while that table object lives
+
+
+def _month_rows(daily: pl.LazyFrame) -> MonthRows:
+    """The returns of ``daily`` per security-month (``MonthRows``), read once for both forms.
+
+    The measures stage hands one sorted table object to every measure, so the
+    second LOT form finds the rows the first read: they are kept, under a
+    weak reference to that object, until the object is dropped or another
+    table is read. A query plan is immutable, so the same object gives the
+    same rows.
+    """
+    held = _LAST_ROWS.get("table")
+    if held is not None and held() is daily:
+        return _LAST_ROWS["rows"]
+    ok = (pl.col("ret").is_finite() & pl.col("mkt_ret").is_finite()).fill_null(False)
+    frame = (
+        in_security_date_order(daily)  # a table the measures stage has sorted and flagged is kept as it is
+        .select(*KEY, FIRST_OF_MONTH, ok.alias("_ok"), "ret", "mkt_ret")
+        .collect(engine="in-memory")
+    )
+    starts = np.flatnonzero(frame[FIRST_OF_MONTH].to_numpy())  # security-months, in (security, month) order, start here
+    used = frame["_ok"].to_numpy()
+    n_obs = np.add.reduceat(used.view(np.uint8), starts, dtype=np.int64) if len(starts) else np.zeros(0, dtype=np.int64)
+    enough = n_obs >= MIN_RETURNS
+    fitted = np.flatnonzero(enough)
+    rows = used & np.repeat(enough, np.diff(np.append(starts, len(used))))  # the days used, of the months fitted
+    out = MonthRows(frame.filter(pl.col(FIRST_OF_MONTH)).select(KEY), n_obs, fitted, frame["ret"].to_numpy()[rows],
+                    frame["mkt_ret"].to_numpy()[rows], np.repeat(np.arange(len(fitted)), n_obs[fitted]))
+
+    def forget(reference) -> None:
+        if _LAST_ROWS.get("table") is reference:
+            _LAST_ROWS.clear()
+
+    _LAST_ROWS.clear()
+    try:
+        _LAST_ROWS.update(table=weakref.ref(daily, forget), rows=out)
+    except TypeError:  # an object without weak references is read every time
+        pass
+    return out
 
 
 def lot_cost(daily: pl.LazyFrame, *, form: str = "ysplit", max_iterations: int = 200, tolerance: float = 1e-8) -> pl.LazyFrame:
@@ -498,28 +616,16 @@ def lot_cost(daily: pl.LazyFrame, *, form: str = "ysplit", max_iterations: int =
         raise ConfigError(f"measure 'lot_{form}': option `form` must be one of {FORMS}")
     require_columns(daily, ["security", "month", "date", "ret", "mkt_ret"], table="daily")
     name = f"lot_{form}"
-    ok = (pl.col("ret").is_finite() & pl.col("mkt_ret").is_finite()).fill_null(False)
-    frame = (
-        in_security_date_order(daily)  # a table the measures stage has sorted and flagged is kept as it is
-        .select(*KEY, FIRST_OF_MONTH, ok.alias("_ok"), "ret", "mkt_ret")
-        .collect(engine="in-memory")
-    )
-    month = np.cumsum(frame[FIRST_OF_MONTH].to_numpy()) - 1  # security-months numbered in (security, month) order
-    used = frame["_ok"].to_numpy()
-    n_obs = np.bincount(month[used], minlength=int(month[-1]) + 1 if len(month) else 0)
-    fitted = np.flatnonzero(n_obs >= MIN_RETURNS)
-    number = np.full(len(n_obs), -1)
-    number[fitted] = np.arange(len(fitted))
-    rows = used & (number[month] >= 0)
+    rows = _month_rows(daily)
+    keys, n_obs, fitted = rows.keys, rows.n_obs, rows.fitted
     cost, converged, iterations = np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan), np.full(len(n_obs), np.nan)
     if len(fitted):
-        fit = fit_rows(frame["ret"].to_numpy()[rows], frame["mkt_ret"].to_numpy()[rows], number[month[rows]], len(fitted),
-                       form=form, max_iterations=max_iterations, tolerance=tolerance)
+        fit = fit_rows(rows.ret, rows.market, rows.month, len(fitted), form=form, max_iterations=max_iterations,
+                       tolerance=tolerance)
         cost[fitted] = np.where(fit["converged"], fit["alpha_2"] - fit["alpha_1"], np.nan)
         converged[fitted] = fit["converged"]
         iterations[fitted] = fit["iterations"]
-    return frame.filter(pl.col(FIRST_OF_MONTH)).select(
-        *KEY,
+    return keys.with_columns(
         pl.Series(name, cost, nan_to_null=True),
         pl.Series(f"{name}_converged", converged, nan_to_null=True),
         pl.Series(f"{name}_iterations", iterations, nan_to_null=True),
@@ -541,4 +647,4 @@ def lot_ysplit(daily: pl.LazyFrame, **options) -> pl.LazyFrame:
     return lot_cost(daily, form="ysplit", **options)
 
 
-__all__ = ["FORMS", "LotData", "evaluate", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values", "fit_rows"]
+__all__ = ["FORMS", "LotData", "MonthRows", "evaluate", "fit_lot", "log_likelihood", "lot_cost", "lot_mixed", "lot_ysplit", "regions", "starting_values", "fit_rows"]
