@@ -20,12 +20,27 @@ the replication README and Snakemake's HTML report.
 
 from __future__ import annotations
 
-from liqpanel.report.folders import build_folder, point_latest, publish_folder, report_category, report_labels, run_folder
-from liqpanel.report.identity import CHECKSUM_CACHE, OUTPUT_LOCATIONS, canonical_json, input_checksum, input_entries, input_files, run_id, run_identity
-from liqpanel.report.manifest import DEPENDENCIES, check_identity, elapsed_seconds, git_state, input_listing, machine, now, write_manifest
-from liqpanel.report.notes import audit_summary, currency_of, measure_sources, measure_summary, sample_note, spread_against_truth, standard_errors_note, timestamp_notes, units_note
-from liqpanel.report.plots import factor_columns_text, figure_beta_portfolios, figure_cumulative, figure_market_liquidity, figure_median_spread, figure_proxy_scatter, label_of, liquidity_ends, portfolio_lines, sort_title
-from liqpanel.report.tables import RunFolder, format_number, join_notes, number_in_text, to_html, to_latex, to_markdown, write_table
+from liqpanel.report.folders import (
+    build_folder, point_latest, publish_folder, report_category, report_labels, run_folder,
+)
+from liqpanel.report.identity import (
+    CHECKSUM_CACHE, OUTPUT_LOCATIONS, canonical_json, input_checksum, input_entries, input_files, run_id,
+    run_identity,
+)
+from liqpanel.report.manifest import (
+    DEPENDENCIES, check_identity, elapsed_seconds, git_state, input_listing, machine, now, write_manifest,
+)
+from liqpanel.report.notes import (
+    audit_summary, currency_of, measure_sources, measure_summary, sample_note, spread_against_truth,
+    standard_errors_note, timestamp_notes, units_note,
+)
+from liqpanel.report.plots import (
+    factor_columns_text, figure_beta_portfolios, figure_cumulative, figure_market_liquidity, figure_median_spread,
+    figure_proxy_scatter, label_of, liquidity_ends, portfolio_lines, sort_title,
+)
+from liqpanel.report.tables import (
+    RunFolder, format_number, join_notes, number_in_text, to_html, to_latex, to_markdown, write_table,
+)
 
 __all__ = [
     "CHECKSUM_CACHE",
