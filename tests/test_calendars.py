@@ -365,7 +365,7 @@ def test_the_study_calibrates_its_window_on_the_calendar():
 
 
 def test_daily_rows_on_closed_days_are_dropped_and_counted(tmp_path):
-    from liqpanel import stages
+    from liqpanel.stages import daily_jobs as stages
 
     profile = tmp_path / "isle.yaml"
     profile.write_text(yaml.safe_dump({"name": "Isle (invented)", "timezone": "UTC", "sessions": [["09:00", "17:00"]],

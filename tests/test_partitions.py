@@ -22,6 +22,7 @@ import pytest
 from polars.testing import assert_frame_equal
 
 from liqpanel import readers, stages
+from liqpanel.stages import trade_jobs
 from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market, validate_config
 from liqpanel.io import month_range
@@ -124,7 +125,7 @@ def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, ki
     for month in ("2021-02", "2021-03"):
         windowed = _clean(config, month, tmp_path / "windowed" / month)
         with monkeypatch.context() as patch:  # the same job reading the whole file
-            patch.setattr(stages, "stored_window", lambda *args, **kwargs: None)
+            patch.setattr(trade_jobs, "stored_window", lambda *args, **kwargs: None)
             whole = _clean(config, month, tmp_path / "whole" / month)
         for name in ("trades", "audit", "quotes"):
             assert_frame_equal(windowed[name], whole[name])
@@ -306,7 +307,7 @@ def test_a_span_cleaned_in_one_pass_writes_the_partitions_of_month_by_month(tmp_
     months = month_range("2021-10", "2022-01")
     written = {}
     for name, rows in (("by_month", 0), ("one_pass", 10**9)):
-        monkeypatch.setattr(stages, "ROWS_PER_PASS", rows)
+        monkeypatch.setattr(trade_jobs, "ROWS_PER_PASS", rows)
         paths = {k: [str(tmp_path / name / f"{k}-{m}.parquet") for m in months] for k in ("trades", "audit", "quotes", "bars")}
         (tmp_path / name).mkdir()
         stages.trades_span(config, months, paths)

@@ -1,0 +1,119 @@
+"""The daily jobs: daily bars from intraday bars, or a user's daily file read, checked and cut into months."""
+
+from __future__ import annotations
+
+import sys
+from concurrent.futures import ThreadPoolExecutor
+from typing import TYPE_CHECKING
+
+import polars as pl
+
+from liqpanel import bars as bars_mod
+from liqpanel import ingest
+from liqpanel.config import shares_source
+from liqpanel.io import write_parquet
+from liqpanel.marketset import MARKET, daily_to_reporting, load_markets, several
+from liqpanel.stages.shared import _adjustments, _calendar_span, _month_start
+
+if TYPE_CHECKING:
+    from liqpanel import dailyfile
+
+
+def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
+    previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
+    adjustments = _adjustments(config) if config is not None else None
+    daily = bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments)
+    entry = shares_source(config) if config is not None else None
+    if entry is not None:
+        daily = _with_shares_out(daily, entry)
+    if config is not None and config.get("markets"):
+        daily = daily_to_reporting(daily, config, load_markets(config))
+    write_parquet(daily, out)
+
+
+def _with_shares_out(daily: pl.LazyFrame, entry: dict) -> pl.LazyFrame:
+    """Each day's shares outstanding: the entry's latest value public in the day's month (its ``lag_months``)."""
+    from liqpanel.panel import asof_characteristics, read_characteristics
+
+    source = read_characteristics(entry).lazy()
+    return asof_characteristics(
+        daily, source, variables=["shares_out"], lag_months=entry.get("lag_months", 0),
+        date_column=entry.get("date_column", "date"),
+    ).sort("security", "date")
+
+def daily_span(config: dict, bars_paths: list[str], previous_bars_path: str | None, out_paths: list[str]) -> None:
+    """``daily_month`` for consecutive months; ``previous_bars_path``: the month before the first, or None."""
+    for bars_path, out in zip(bars_paths, out_paths, strict=True):
+        daily_month(bars_path, previous_bars_path, out, config)
+        previous_bars_path = bars_path
+
+def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = None) -> pl.LazyFrame:
+    """A user's daily file in the daily contract (see DEVELOPERS.md), checked by ``liqpanel.dailyfile``.
+
+    Needs security, date, open, high, low, close and volume; ``dollar_volume``
+    defaults to close x volume, ``n_trades`` to missing, and ``ret`` to the
+    close-to-close return (only when the file has no return column: a
+    vendor's adjusted return is always preferred). ``shares_out`` is kept
+    when present. Without a config the whole file is the sample.
+    """
+    return _read_daily(config or {}, path, mapping).daily.lazy()
+
+
+def _read_daily(config: dict, path: str | None = None, mapping: dict | None = None) -> "dailyfile.DailyRead":
+    from liqpanel import dailyfile
+
+    layout = ingest.layout_of(config, "daily") if path is None else ingest.layout_from(
+        "daily", path, mapping, (config.get("formats") or {}).get("daily"))
+    sample = (config["sample"]["start"], config["sample"]["end"]) if "sample" in config else ("0001-01", "9999-12")
+    adjustments = _adjustments(config) if config.get("inputs") else None
+    return dailyfile.read_daily(layout, config.get("daily", {}), sample, adjustments, _open_days(config))
+
+
+def _open_days(config: dict) -> "dailyfile.OpenDays | None":
+    """The open days of the run's markets that have a trading calendar, over the sample (None: none has one)."""
+    from liqpanel.dailyfile import OpenDays
+    from liqpanel.markets import has_calendar, trading_days
+
+    if "sample" not in config or not (config.get("market") or config.get("markets")):
+        return None
+    market = load_markets(config)
+    first, last = _calendar_span(config)
+    members = market["_members"] if several(market) else {None: market}
+    frames = [trading_days(profile, first, last).select("date").with_columns(pl.lit(code).alias(MARKET))
+              for code, profile in members.items() if has_calendar(profile)]
+    if not frames:
+        return None
+    days = pl.concat(frames)
+    return OpenDays(first, last, days if several(market) else days.drop(MARKET), market.get("_codes"))
+
+
+def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit: str, out_splits: str) -> None:
+    """The daily entry point: a user's own daily file read and checked once, written as month
+    partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
+    read = _read_daily(config)
+    daily = daily_to_reporting(read.daily.lazy(), config, load_markets(config)).collect() if config.get(
+        "markets") else read.daily
+    # one pass finds each month's rows, in the table's (security, date) order; a month is copied out
+    # only as it is written (not the whole table at once), and a month partition is only read whole
+    # by the next stages (lz4, no statistics: half the time to write)
+    rows = daily.select(pl.int_range(pl.len(), dtype=pl.UInt32).alias("_row"), "month").group_by(
+        "month", maintain_order=True).agg("_row")
+    rows = dict(zip(rows.get_column("month").to_list(), rows.get_column("_row")))
+
+    def write(month: str, out: str) -> None:
+        mine = rows.get(_month_start(month))
+        write_parquet(daily.clear() if mine is None else daily[mine], out, passing=True)
+
+    with ThreadPoolExecutor(2) as pool:  # the writer releases the interpreter's lock
+        list(pool.map(write, months, outs))
+    write_parquet(read.audit, out_audit)
+    splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
+    write_parquet(splits, out_splits)
+    if splits.height:
+        days = "; ".join(f"{s} {d} ({k}, return {r:.1%})" for s, d, r, _, k in splits.head(5).iter_rows())
+        more = f" and {splits.height - 5} more" if splits.height > 5 else ""
+        many = splits.height > 1
+        print(f"liqpanel: warning: {splits.height} day{'s' if many else ''} of the daily file "
+              f"{'look like splits' if many else 'looks like a split'} the prices were not "
+              f"adjusted for: {days}{more}; give them in `inputs.adjustments` (listed in the table "
+              "daily_suspected_splits)", file=sys.stderr)

@@ -1,0 +1,112 @@
+"""The measures jobs: monthly measures of a month, a span of months or a daily file's whole sample, and their gathering."""
+
+from __future__ import annotations
+
+import polars as pl
+
+from liqpanel.io import write_parquet
+from liqpanel.marketset import MARKET, load_markets, several
+from liqpanel.stages.shared import _calendar_span
+
+
+def measures_span(config: dict, daily_paths: list[str], previous_daily_path: str | None, out_paths: list[str]) -> None:
+    """``measures_month`` for consecutive months; ``previous_daily_path``: the month before the first, or None."""
+    for daily_path, out in zip(daily_paths, out_paths, strict=True):
+        measures_month(config, daily_path, previous_daily_path, out)
+        previous_daily_path = daily_path
+
+
+# the daily rows measured in one call for a daily file: about 0.1 s of measures and 100 MB at most,
+# and the fixed cost of a call (some twenty queries planned and run, 0.015 s) paid once for many months
+MEASURES_BLOCK_ROWS = 1_000_000
+
+
+def measures_block_rows(config: dict) -> int:
+    """``block_rows`` of ``measures_table`` for a run's measures: ``MEASURES_BLOCK_ROWS`` when each of
+    them is a plan of per-month sums that reads nothing beyond its security-month's days (its values
+    do not depend on the other months measured with it), else 0 (month by month): the measures
+    without a plan (the Gibbs sampler's one random stream for all the months it estimates) and those
+    that count the market's days within each security's listed span (``liqpanel.measures.plan``)."""
+    from liqpanel.measures import get_measure
+    from liqpanel.measures.registry import resolve_options
+
+    for name, options in config["measures"].items():
+        measure = get_measure(name)
+        options = resolve_options(measure, options)
+        options.pop("min_days")
+        if measure.plan is None or measure.plan(**options).context:
+            return 0
+    return MEASURES_BLOCK_ROWS
+
+
+def measures_table(config: dict, daily_paths: list[str], previous_daily_path: str | None, out: str,
+                   block_rows: int = MEASURES_BLOCK_ROWS) -> None:
+    """The measures of consecutive months in one table (``out``); ``previous_daily_path``: the month before
+    the first, or None. Used for a daily file, whose months are small and many.
+
+    Consecutive months of at most ``block_rows`` daily rows together (a larger
+    month alone; 0: each month alone) go through the measures in one call, so
+    the call's fixed cost is paid once a block instead of once a month; a
+    security-month's measures read its own days and its previous month's last
+    day only, so the values are those of the month measured alone, and the
+    monthly table gathered from these tables is the one gathered from month
+    partitions (``gather_monthly`` sorts it).
+    """
+    import pyarrow.parquet as pq
+
+    rows = [pq.read_metadata(p).num_rows for p in daily_paths]
+    parts, start = [], 0
+    while start < len(daily_paths):
+        stop, total = start + 1, rows[start]
+        while stop < len(daily_paths) and total + rows[stop] <= block_rows:
+            total += rows[stop]
+            stop += 1
+        if total:
+            parts.append(_measures(config, pl.concat([pl.scan_parquet(p) for p in daily_paths[start:stop]]),
+                                   previous_daily_path))
+        previous_daily_path, start = daily_paths[stop - 1], stop
+    if not parts:  # no month with a row: the empty table of one month, as ``measures_month`` writes it
+        parts.append(_measures(config, pl.scan_parquet(daily_paths[0]), None))
+    write_parquet(pl.concat(parts, how="diagonal_relaxed"), out)
+
+def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
+    """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
+    daily = pl.scan_parquet(daily_path)
+    previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
+    write_parquet(_measures(config, daily, previous), out)
+
+
+def _measures(config: dict, daily: pl.LazyFrame, previous: pl.LazyFrame | str | None) -> pl.DataFrame:
+    """The measures of the security-months of ``daily`` (one month or several), sorted by security and month."""
+    from liqpanel.measures import compute_monthly
+    from liqpanel.measures.frames import market_inputs
+
+    if isinstance(previous, str):
+        previous = pl.scan_parquet(previous)
+    start, end = _calendar_span(config) if "sample" in config else (None, None)
+    market = load_markets(config)
+    members = market["_members"] if several(market) else {None: market}
+    present = set(daily.select(MARKET).unique().collect().to_series().to_list()) if several(market) else {None}
+    parts = []
+    for code, profile in members.items():  # each market on its own: its tick, its market return, its trading days
+        if code not in present:
+            continue
+        mine, before = daily, previous
+        if code is not None:
+            mine = daily.filter(pl.col(MARKET) == code).drop(MARKET)
+            before = previous.filter(pl.col(MARKET) == code).drop(MARKET) if previous is not None else None
+        mine, selection, calendar = market_inputs(mine, config["measures"], profile, start, end)
+        if before is not None:
+            before = market_inputs(before, config["measures"], profile, start, end)[0]
+        parts.append(compute_monthly(mine, selection, previous=before, calendar=calendar))
+    if not parts:  # a month without any row
+        parts.append(compute_monthly(daily.drop(MARKET) if several(market) else daily,
+                                     market_inputs(daily, config["measures"], None)[1], previous=None))
+    return pl.concat(parts, how="diagonal_relaxed").sort("security", "month") if len(parts) > 1 else parts[0]
+
+def gather_monthly(paths: list[str], out: str) -> None:
+    """The month partitions' measures in one table, with the measures that span twelve months (Liu's LM12)."""
+    from liqpanel.measures.frames import with_twelve_month_measures
+
+    frame = pl.concat([pl.scan_parquet(p) for p in paths], how="diagonal_relaxed").sort("security", "month").collect()
+    write_parquet(with_twelve_month_measures(frame), out)

@@ -1,0 +1,43 @@
+"""The panel job: monthly measures, returns and characteristics merged without look-ahead."""
+
+from __future__ import annotations
+
+import polars as pl
+
+from liqpanel import ingest
+from liqpanel.io import write_parquet
+from liqpanel.marketset import load_markets
+
+
+def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str, audit_out: str | None = None) -> None:
+    """The panel (``out``) and, at ``audit_out``, where every characteristics row went (``characteristics_audit``)."""
+    from liqpanel.panel import (
+        build_panel, characteristics_audit, check_overlap, monthly_from_daily, read_characteristics, read_monthly_returns,
+        transform_panel,
+    )
+
+    inputs = config["inputs"]
+    source = config["panel"]["return_source"]
+    securities = pl.scan_parquet(monthly_path).select("security").unique().collect().get_column("security")
+    if source == "monthly_file" or (source == "auto" and inputs.get("returns")):
+        layout = ingest.layout_of(config, "returns")
+        returns = read_monthly_returns(layout)
+        check_overlap(securities, returns.select("security").collect(), what="monthly returns file", path=layout.path,
+                      column=layout.theirs("security"))
+    else:
+        # a month partition holds whole security-months: compounded one partition at a time (the same
+        # products, in the same day order), many small groupings instead of one of the whole sample
+        returns = pl.concat([monthly_from_daily(pl.scan_parquet(p)) for p in daily_paths])
+    chars = [{**c, "frame": read_characteristics(c).lazy()} for c in inputs.get("characteristics", [])]
+    for c in chars:
+        check_overlap(securities, c["frame"].select("security").collect(), what=f"characteristics file '{c['name']}'",
+                      path=c["path"], column=ingest.characteristics_layout(c).theirs("security"))
+    built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
+    if config.get("markets"):
+        from liqpanel.marketset import panel_to_reporting
+
+        built = panel_to_reporting(built.collect() if isinstance(built, pl.LazyFrame) else built, config,
+                                   load_markets(config))
+    write_parquet(transform_panel(built, config["panel"]), out)
+    if audit_out:
+        write_parquet(characteristics_audit(built.select("security", "month"), chars), audit_out)
