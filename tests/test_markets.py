@@ -125,7 +125,7 @@ def test_bad_profiles_are_refused_naming_file_and_key(tmp_path, change, needle):
 )
 def test_integer_local_clock_matches_zoneinfo_across_clock_changes(profile, month):
     # every 7 minutes and 13 seconds over the month's window, and each second around the change
-    from liqpanel.clean import _window
+    from liqpanel.clean.rules import _window
     from liqpanel.markets import local_clock
     from liqpanel.markets.sessions import _offsets_within
 
