@@ -19,7 +19,8 @@ from scipy import stats
 
 from liqpanel.errors import ConfigError
 from liqpanel.measures import gibbs
-from liqpanel.measures.gibbs import draw_truncated_normal, gibbs_spread, sample_roll_model
+from liqpanel.measures.gibbs import draw_truncated_normal, sample_roll_model
+from liqpanel.measures.gibbs_months import gibbs_spread
 
 
 def roll_changes(c: float, sigma: float, days: int, months: int, seed: int, loading=None, market=None) -> np.ndarray:

@@ -13,7 +13,8 @@ from __future__ import annotations
 from liqpanel.measures.activity import amihud_illiquidity, amihud_plan, amivest_liquidity, amivest_plan
 from liqpanel.measures.closing import closing_spread, closing_spread_plan
 from liqpanel.measures.edge import edge_plan, edge_spread
-from liqpanel.measures.gibbs import DEFAULT_PRIOR, gibbs_spread
+from liqpanel.measures.gibbs import DEFAULT_PRIOR
+from liqpanel.measures.gibbs_months import gibbs_spread
 from liqpanel.measures.highlow import (
     abdi_ranaldo_monthly_plan,
     abdi_ranaldo_monthly_spread,
