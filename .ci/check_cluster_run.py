@@ -81,7 +81,7 @@ def check_jobs(cluster: Path) -> int:
 def check_job_count(cluster: Path, jobs: int) -> None:
     """One job per span and span stage, one per whole-sample stage: nothing per month."""
     from liqpanel.config import load_config
-    from liqpanel.io import month_range
+    from liqpanel.core.io import month_range
     from liqpanel.partition import spans
 
     config = load_config(cluster / "config" / "config.yaml")

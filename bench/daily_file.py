@@ -62,7 +62,7 @@ def main(argv: list[str] | None = None) -> None:
     args = parser.parse_args(argv)
 
     from liqpanel import dailyfile, ingest
-    from liqpanel.io import month_range
+    from liqpanel.core.io import month_range
 
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "daily.csv"

@@ -73,7 +73,7 @@ def _families() -> dict[str, list[str]]:
     Measures that need intraday columns (the high-frequency benchmarks) and
     the Gibbs sampler and the LOT fits (timed apart) and the blend (its components are timed) are left out.
     """
-    from liqpanel.contracts import DAILY
+    from liqpanel.core.contracts import DAILY
     from liqpanel.measures import REGISTRY
 
     daily_columns = set(DAILY) | {"shares_out", "mkt_ret"}

@@ -1,6 +1,6 @@
 """A synthetic daily panel of any size for the measures benchmark.
 
-The panel follows the daily contract (``liqpanel.contracts.DAILY``) plus
+The panel follows the daily contract (``liqpanel.core.contracts.DAILY``) plus
 ``shares_out``, so every registered daily measure runs on it. It is drawn
 from the Roll (1984) model at the daily frequency, fully vectorised:
 

@@ -128,7 +128,7 @@ def main(argv: list[str] | None = None) -> None:
     import polars as pl
 
     from liqpanel.config import load_config
-    from liqpanel.io import month_range
+    from liqpanel.core.io import month_range
     from liqpanel.partition import spans
 
     with tempfile.TemporaryDirectory(prefix="liqpanel-bench-rules-") as tmp:

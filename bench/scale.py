@@ -80,7 +80,7 @@ def make_markets(root: Path, sizes: list[int], securities: int, seed: int, order
 
 
 def month_list(n: int) -> list[str]:
-    from liqpanel.io import month_range
+    from liqpanel.core.io import month_range
 
     first = 2021 * 12
     last = first + n - 1

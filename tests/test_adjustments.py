@@ -12,7 +12,7 @@ import pytest
 
 from liqpanel import stages
 from liqpanel.bars import add_returns
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.readers import read_adjustments
 
 

@@ -24,7 +24,7 @@ from bench import measures as bench
 from bench import measures_naive as naive
 from bench import measures_vectorised as vectorised
 from bench.measures_data import write_panel
-from liqpanel.contracts import DAILY
+from liqpanel.core.contracts import DAILY
 from liqpanel.measures import REGISTRY, compute_monthly
 
 

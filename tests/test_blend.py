@@ -7,7 +7,7 @@ import polars as pl
 import pytest
 from scipy.optimize import minimize
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures import compute_monthly
 from liqpanel.study import blend_weights, fit_blend, summarise
 

@@ -18,7 +18,7 @@ import pytest
 import yaml
 
 from liqpanel.cli import main
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.markets import check_market, for_sample, session_index, tick_expr, trading_days
 from liqpanel.measures import compute
 

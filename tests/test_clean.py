@@ -187,7 +187,7 @@ def test_unquoted_trades_are_kept_and_counted_by_default(tmp_path):
 
 
 def test_unparseable_values_stop_the_run_naming_file_column_and_row(tmp_path):
-    from liqpanel.errors import InputError
+    from liqpanel.core.errors import InputError
 
     _write_inputs(tmp_path)
     with pytest.raises(InputError) as info:

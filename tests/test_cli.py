@@ -10,7 +10,7 @@ import pytest
 import liqpanel
 from liqpanel.cli import main, parser
 from liqpanel.environment import compare_versions, installed_versions, manifest_versions, versions_text
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.progress import follow
 
 

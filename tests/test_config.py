@@ -8,7 +8,7 @@ import yaml
 
 from liqpanel.cli import main
 from liqpanel.config import load_config, validate_config
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 DEMO = Path(__file__).resolve().parents[1] / "config" / "config.yaml"
 

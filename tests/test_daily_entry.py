@@ -7,7 +7,7 @@ import pytest
 import yaml
 
 from liqpanel.bars import daily_bars
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.measures import compute_monthly
 from liqpanel.stages import read_daily_file
 
@@ -98,7 +98,7 @@ def test_months_measured_in_blocks_have_the_values_of_months_measured_alone(tmp_
     # a daily file's measures job measures consecutive months in one call; for the measures it does
     # that for, the table must be the one measured month by month, to the last bit
     from liqpanel import stages
-    from liqpanel.io import month_range
+    from liqpanel.core.io import month_range
 
     blockwise = {name: {} for name in (
         "amihud", "amivest", "ar_spread_2day", "ar_spread_monthly", "cs_spread", "edge_spread", "effective_tick",

@@ -13,7 +13,7 @@ import polars as pl
 import pytest
 import statsmodels.api as sm
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.models import factor_summary, liquidity_factor
 
 MONTHS = [dt.date(2012, 1, 1), dt.date(2012, 2, 1)]

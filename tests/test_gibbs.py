@@ -17,7 +17,7 @@ import polars as pl
 import pytest
 from scipy import stats
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures import gibbs
 from liqpanel.measures.gibbs import draw_truncated_normal, sample_roll_model
 from liqpanel.measures.gibbs_months import gibbs_spread

@@ -13,7 +13,7 @@ import numpy as np
 import polars as pl
 import pytest
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.highlow import (
     abdi_ranaldo_monthly_spread,
     abdi_ranaldo_two_day_spread,

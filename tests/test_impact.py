@@ -13,7 +13,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from liqpanel.errors import ConfigError, InputError
+from liqpanel.core.errors import ConfigError, InputError
 from liqpanel.measures.impact import pastor_stambaugh_gamma, turnover, zero_return_share, zero_return_share_traded
 from liqpanel.measures.market import add_market_return
 

@@ -11,7 +11,7 @@ import polars as pl
 import pytest
 
 from liqpanel import ingest
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.panel import read_monthly_returns
 
 

@@ -17,7 +17,7 @@ import pytest
 import statsmodels.api as sm
 from statsmodels.tsa.ar_model import AutoReg
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.factors.aggregate import (
     INNOVATION_SCALE, aggregate_liquidity, innovation_coefficients, liquidity_innovations,
 )

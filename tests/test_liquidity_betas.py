@@ -15,7 +15,7 @@ import polars as pl
 import pytest
 import statsmodels.api as sm
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.factors.betas import formation_betas, liquidity_betas, post_ranking_betas
 from liqpanel.factors.ols import grouped_ols, rolling_ols
 from liqpanel.factors.run import run_factors

@@ -15,7 +15,7 @@ import polars as pl
 import pytest
 import statsmodels.api as sm
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.factors.commonality import commonality_regressions, commonality_summary, liquidity_changes
 
 MONTHS = pl.date_range(dt.date(2001, 1, 1), dt.date(2010, 12, 1), "1mo", eager=True).to_list()

@@ -16,7 +16,7 @@ import yaml
 from liqpanel.bars import trading_bars
 from liqpanel.clean import clean_trades
 from liqpanel.config import MARKETS_DIR, load_market
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.simulate import simulate_security_months
 
 RULES = {"nonpositive": True, "outside_session": True, "duplicates": True}

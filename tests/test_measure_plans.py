@@ -17,7 +17,7 @@ import pytest
 from polars.testing import assert_frame_equal
 
 from bench.measures_data import write_panel
-from liqpanel.contracts import DAILY
+from liqpanel.core.contracts import DAILY
 from liqpanel.measures import REGISTRY, compute_monthly, resolve_options
 from liqpanel.measures import plan as plans
 from liqpanel.measures.market import add_market_return

@@ -16,7 +16,7 @@ import polars as pl
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from liqpanel.contracts import month_of
+from liqpanel.core.contracts import month_of
 from liqpanel.measures.library import MEASURES
 from liqpanel.measures.market import add_market_return
 

@@ -53,7 +53,7 @@ def test_standardize_and_log():
 
 
 def test_unknown_transform_variable_is_named():
-    from liqpanel.errors import InputError
+    from liqpanel.core.errors import InputError
 
     with pytest.raises(InputError, match="'nope'"):
         transform_panel(_panel(), {"standardize": ["nope"]})

@@ -56,7 +56,7 @@ def test_monthly_return_compounds_daily_returns():
 
 
 def test_duplicate_keys_are_rejected():
-    from liqpanel.errors import InputError
+    from liqpanel.core.errors import InputError
 
     monthly = pl.concat([_monthly(), _monthly().head(1)])
     with pytest.raises(InputError, match="duplicate"):
@@ -98,7 +98,7 @@ def test_characteristics_audit_accounts_for_every_row():
 
 
 def test_two_characteristics_rows_on_one_date_stop_the_run(tmp_path):
-    from liqpanel.errors import InputError
+    from liqpanel.core.errors import InputError
     from liqpanel.panel import read_characteristics
 
     path = tmp_path / "chars.csv"

@@ -25,7 +25,7 @@ from liqpanel import readers, stages
 from liqpanel.stages import trade_jobs
 from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market, validate_config
-from liqpanel.io import month_range
+from liqpanel.core.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
 from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
 from liqpanel.measures.roll import roll_spread

@@ -14,7 +14,7 @@ import pytest
 
 from liqpanel import stages
 from liqpanel.config import load_market, validate_config
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.readers import TRADES_SPEC, read_table, unparseable_error
 
 NEW_YORK = ZoneInfo("America/New_York")

@@ -15,7 +15,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from liqpanel.errors import ConfigError, InputError
+from liqpanel.core.errors import ConfigError, InputError
 from liqpanel.models import ModelResult, ModelSpec, automatic_lags, fit_model, newey_west_mean, regression_table
 
 # --------------------------------------------------------------------------- data

@@ -17,7 +17,7 @@ import yaml
 from liqpanel import report as rep
 from liqpanel.config import validate_config
 from liqpanel.models.run import run_models
-from liqpanel.stable import ordered_mean, ordered_sum
+from liqpanel.core.stable import ordered_mean, ordered_sum
 
 REPO = Path(__file__).resolve().parents[1]
 

@@ -22,8 +22,8 @@ from liqpanel import figures
 from liqpanel import report as rep
 from liqpanel import runtime
 from liqpanel.config import validate_config
-from liqpanel.errors import ConfigError, InputError
-from liqpanel.io import write_parquet
+from liqpanel.core.errors import ConfigError, InputError
+from liqpanel.core.io import write_parquet
 from tests.demo_config import one_market
 
 REPO = Path(__file__).resolve().parents[1]

@@ -19,7 +19,7 @@ import pytest
 from liqpanel.bars import add_returns, intraday_bars
 from liqpanel.cli import main
 from liqpanel.config import load_market
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.markets import local_clock, session_index
 from liqpanel.measures import compute_monthly
 from liqpanel.simulate import daily_example, market_factor_returns, simulate_market, write_market

@@ -14,7 +14,7 @@ import yaml
 
 from liqpanel import stages
 from liqpanel.config import load_config, validate_config
-from liqpanel.errors import ConfigError, InputError
+from liqpanel.core.errors import ConfigError, InputError
 from tests.demo_config import one_market
 
 DEMO = "config/config.yaml"

@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from scipy import stats
 from statsmodels.tsa.stattools import acovf
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.simulate import (
     Market,
     SimulationSpec,
@@ -86,9 +86,9 @@ def test_same_seed_same_tables_other_seed_differs():
 
 
 def test_tables_sorted_with_contract_types(demo):
-    # Table contracts of this project (liqpanel.contracts; the column names are
+    # Table contracts of this project (liqpanel.core.contracts; the column names are
     # listed in DEVELOPERS.md): every contract column with its contract type
-    from liqpanel import contracts
+    from liqpanel.core import contracts
 
     for table, contract in (("trades", contracts.TRADES), ("quotes", contracts.QUOTES)):
         schema = getattr(demo, table).schema

@@ -14,7 +14,7 @@ import polars as pl
 import pytest
 import statsmodels.api as sm
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.models import double_sort, sort_portfolios
 from liqpanel.models.factor import liquidity_factor
 

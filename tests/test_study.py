@@ -20,7 +20,7 @@ from scipy import stats
 from liqpanel import study
 from liqpanel.bars import daily_bars
 from liqpanel.config import load_schema
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.simulate import simulate_market, simulate_security_months
 
 

@@ -9,7 +9,7 @@ import polars as pl
 import pytest
 from scipy import stats
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.models import validate_proxies
 
 

@@ -29,7 +29,7 @@ from collections.abc import Iterable
 import polars as pl
 
 from liqpanel import intraday
-from liqpanel.contracts import month_of
+from liqpanel.core.contracts import month_of
 
 
 def trading_bars(trades: pl.LazyFrame, timezone: str | None = None, *, in_order: bool = False) -> pl.LazyFrame:
@@ -57,7 +57,7 @@ def trading_bars(trades: pl.LazyFrame, timezone: str | None = None, *, in_order:
             pl.col("price").max().alias("high"),
             pl.col("price").min().alias("low"),
             pl.col("price").last().alias("close"),
-            # added in time order (liqpanel.stable): a parallel sum adds partial sums in an order that may
+            # added in time order (liqpanel.core.stable): a parallel sum adds partial sums in an order that may
             # change from run to run, and with it the last digit
             pl.col("size").drop_nulls().cum_sum().last().alias("volume"),
             (pl.col("price") * pl.col("size")).drop_nulls().cum_sum().last().alias("dollar_volume"),

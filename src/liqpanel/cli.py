@@ -28,7 +28,7 @@ from pathlib import Path
 
 import liqpanel
 from liqpanel.config import SNAKEFILE
-from liqpanel.errors import LiqpanelError
+from liqpanel.core.errors import LiqpanelError
 
 
 def _simulate(args: argparse.Namespace) -> int:

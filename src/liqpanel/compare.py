@@ -40,8 +40,8 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.errors import InputError
-from liqpanel.io import write_text
+from liqpanel.core.errors import InputError
+from liqpanel.core.io import write_text
 
 NUMBER_PATTERN = r"^\s*[(\[]?\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s*[)\]]?\**\s*$"
 FRACTION_PATTERN = r"^\s*[-+]?\d*\.\d+(?:[eE][-+]?\d+)?\s*$|^\s*[-+]?\d+[eE][-+]?\d+\s*$"

@@ -15,7 +15,7 @@ from typing import Any
 
 import yaml
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 PACKAGE_DIR = Path(__file__).resolve().parent
 WORKFLOW_DIR = PACKAGE_DIR / "workflow"

@@ -45,8 +45,8 @@ import polars as pl
 
 from liqpanel import ingest
 from liqpanel.bars import add_returns
-from liqpanel.contracts import DAILY, check_unique_key, month_of
-from liqpanel.errors import InputError
+from liqpanel.core.contracts import DAILY, check_unique_key, month_of
+from liqpanel.core.errors import InputError
 
 RULES = (
     "unparseable", "missing_key", "duplicate", "non_finite", "no_trade", "nonpositive_price", "negative_volume",

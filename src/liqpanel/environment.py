@@ -15,7 +15,7 @@ import sys
 from dataclasses import dataclass
 from pathlib import Path
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 
 
 @dataclass(frozen=True)

@@ -34,7 +34,7 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
-from liqpanel.io import atomic_path  # noqa: E402
+from liqpanel.core.io import atomic_path  # noqa: E402
 
 STYLE_FILE = Path(__file__).with_name("liqpanel.mplstyle")
 

@@ -38,7 +38,7 @@ import polars as pl
 
 from liqpanel import ingest
 from liqpanel import markets as single
-from liqpanel.errors import ConfigError, InputError
+from liqpanel.core.errors import ConfigError, InputError
 
 MARKET = "market"  # our column of a security's market code
 FX_SPEC = ingest.Spec("FX file", text=("currency",), dates=("date",), numeric=("rate",))

@@ -17,8 +17,8 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.contracts import check_unique_key, month_of
-from liqpanel.errors import InputError
+from liqpanel.core.contracts import check_unique_key, month_of
+from liqpanel.core.errors import InputError
 from liqpanel import ingest
 
 KEY = ["security", "month"]

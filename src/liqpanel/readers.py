@@ -2,7 +2,7 @@
 
 Accepted input: Parquet or CSV (also ``.csv.gz`` and ``.csv.zst``), one file
 or a glob of many. The config's ``columns:`` mapping renames the user's
-columns to ours (``liqpanel.contracts``). Timestamps come as one column
+columns to ours (``liqpanel.core.contracts``). Timestamps come as one column
 ``ts`` or as two columns ``date`` and ``time``:
 
 - a zone-aware timestamp (a Parquet timestamp with a zone, or text with an
@@ -38,7 +38,7 @@ from pathlib import Path
 import polars as pl
 
 from liqpanel import ingest
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 
 HELPER_COLUMNS = ("_file", "_row", "_bad", "_value")
 _OFFSET = r"(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"

@@ -17,7 +17,7 @@ from typing import Any
 import yaml
 
 import liqpanel
-from liqpanel.io import write_text
+from liqpanel.core.io import write_text
 
 TEMPLATE = "replication_readme.md"
 

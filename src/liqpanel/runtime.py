@@ -29,7 +29,7 @@ import socket
 import sys
 from pathlib import Path
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 LOCK_DIR = Path(".snakemake") / "locks"
 OWNER_FILE = Path(".snakemake") / "liqpanel-lock-owner.json"
@@ -177,7 +177,7 @@ def remove_partial_files(*folders: str | Path) -> int:
     """Delete the temporary ``.part`` files a killed run left behind; how many.
 
     Outputs are written to ``.<name>.<random>.part`` and moved into place when
-    complete (``liqpanel.io.atomic_path``), so these are never read; this only
+    complete (``liqpanel.core.io.atomic_path``), so these are never read; this only
     tidies up. Call it only when no other run is writing (a stale lock was
     just cleared).
     """

@@ -14,7 +14,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from liqpanel.errors import InputError, LiqpanelError
+from liqpanel.core.errors import InputError, LiqpanelError
 
 # our daily columns: (name, what it holds); the first seven are required
 DAILY_COLUMNS = (

@@ -6,7 +6,7 @@ from datetime import datetime, timedelta, timezone
 
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.marketset import attach, local_clock, session_index
 
 

@@ -29,9 +29,9 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.factors.ols import grouped_ols
-from liqpanel.stable import ordered_mean, ordered_sum
+from liqpanel.core.stable import ordered_mean, ordered_sum
 
 INTERCEPT, SLOPE, CAP = 0.25, 0.30, 30.0  # Acharya & Pedersen (2005), percent (from memory)
 
@@ -145,7 +145,7 @@ def ap_betas(portfolio: pl.DataFrame, market: pl.DataFrame) -> pl.DataFrame:
 
 
 def _cov(a: str, b: str) -> pl.Expr:
-    """Sample covariance (ddof 1) added in month order (:mod:`liqpanel.stable`)."""
+    """Sample covariance (ddof 1) added in month order (:mod:`liqpanel.core.stable`)."""
     da = pl.col(a) - ordered_mean(pl.col(a), "month")
     db = pl.col(b) - ordered_mean(pl.col(b), "month")
     return ordered_sum(da * db, "month") / (pl.len() - 1)

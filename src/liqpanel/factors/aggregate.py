@@ -30,8 +30,8 @@ from __future__ import annotations
 import numpy as np
 import polars as pl
 
-from liqpanel.errors import InputError
-from liqpanel.stable import ordered_mean, ordered_sum
+from liqpanel.core.errors import InputError
+from liqpanel.core.stable import ordered_mean, ordered_sum
 
 INNOVATION_SCALE = 100.0  # Pastor & Stambaugh (2003): L_t = u_t / 100 (from memory)
 

@@ -17,9 +17,9 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.factors.ols import grouped_ols, rolling_ols
-from liqpanel.stable import ordered_sum
+from liqpanel.core.stable import ordered_sum
 
 LIQ = "liq_innovation"
 

@@ -31,9 +31,9 @@ import math
 import polars as pl
 from scipy import stats
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.factors.ols import grouped_ols
-from liqpanel.stable import ordered_sum
+from liqpanel.core.stable import ordered_sum
 
 CHANGES = ("proportional", "difference")
 

@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 import polars as pl
 
-from liqpanel.stable import ordered_sum
+from liqpanel.core.stable import ordered_sum
 
 RCOND = 1e-10
 
@@ -111,7 +111,7 @@ def grouped_ols(
     """One OLS of ``y`` on an intercept and ``xs`` per group of ``by``.
 
     The cross products are added in the order of ``order`` within each group
-    (:mod:`liqpanel.stable`), so the fits do not depend on row order.
+    (:mod:`liqpanel.core.stable`), so the fits do not depend on row order.
 
     Returns the groups (sorted) with ``n_obs``, ``coef_<name>``,
     ``se_<name>``, ``tstat_<name>`` for ``intercept`` and each ``x``,

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.stable import ordered_mean
+from liqpanel.core.stable import ordered_mean
 
 
 def market_log_change(panel: pl.DataFrame, measure: str) -> pl.DataFrame:

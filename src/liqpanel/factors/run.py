@@ -14,7 +14,7 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.factors import acharya_pedersen as ap
 from liqpanel.factors.aggregate import INNOVATION_SCALE, aggregate_liquidity, liquidity_innovations
 from liqpanel.factors.betas import (
@@ -25,7 +25,7 @@ from liqpanel.factors.ols import grouped_ols
 from liqpanel.models.factor import factor_summary, summary_table
 from liqpanel.models.run import ResultTable
 from liqpanel.models.sorts import sort_portfolios
-from liqpanel.stable import ordered_mean, ordered_sum
+from liqpanel.core.stable import ordered_mean, ordered_sum
 
 PS = "Pastor & Stambaugh (2003), Journal of Political Economy 111(3)"
 AP = "Acharya & Pedersen (2005), Journal of Financial Economics 77(2)"
@@ -333,7 +333,7 @@ def _recovery_table(panel, truth, measures, series, betas) -> ResultTable:
 
 
 def _vw(column: str, weight: str = "weight") -> pl.Expr:
-    """Weighted mean, added in security order (:mod:`liqpanel.stable`)."""
+    """Weighted mean, added in security order (:mod:`liqpanel.core.stable`)."""
     ok = pl.col(column).is_finite() & pl.col(weight).is_finite() & (pl.col(weight) > 0)
     num = ordered_sum(pl.when(ok).then(pl.col(column) * pl.col(weight)))
     return (num / ordered_sum(pl.when(ok).then(pl.col(weight)))).alias(column)

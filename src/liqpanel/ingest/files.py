@@ -7,7 +7,7 @@ from pathlib import Path
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.ingest.layout import CSV, Layout, PARQUET
 
 

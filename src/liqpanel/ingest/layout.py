@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 
 
 DEFAULT_MISSING = ("", "NA", "N/A", "NaN", "nan", "null", "NULL", ".")

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.ingest.files import collect, list_files, require, scan_file, schema_of
 from liqpanel.ingest.layout import CSV, HELPERS, Layout, RETURN_COLUMNS, error, layout_from
 from liqpanel.ingest.values import _as_float, date, first_bad, impossible_return

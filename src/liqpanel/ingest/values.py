@@ -6,7 +6,7 @@ import re
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.ingest.layout import AMBIGUOUS_DATE, Layout, RETURN_COLUMNS, error
 
 

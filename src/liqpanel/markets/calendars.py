@@ -7,7 +7,7 @@ from datetime import date, time, timedelta
 
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.markets.library import _library_days
 from liqpanel.markets.profile import _checked, _date
 

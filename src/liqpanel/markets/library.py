@@ -6,7 +6,7 @@ import warnings
 import zoneinfo
 from datetime import date
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 
 def _library_calendar(code, where: str, start: date | None = None, end: date | None = None):

@@ -7,7 +7,7 @@ import zoneinfo
 from datetime import date, datetime, time
 from pathlib import Path
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.markets.library import _library_calendar, _library_sessions
 
 

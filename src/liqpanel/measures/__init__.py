@@ -12,8 +12,8 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.contracts import check_unique_key
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import check_unique_key
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures import benchmarks as _benchmarks  # noqa: F401  (high-frequency benchmarks)
 from liqpanel.measures import blend as _blend  # noqa: F401  (the study's blend of spread estimators)
 from liqpanel.measures import library as _library  # noqa: F401  (low-frequency measures)

@@ -18,7 +18,7 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.registry import REGISTRY, Measure, register
 
 KEY = ["security", "month"]

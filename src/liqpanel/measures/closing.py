@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.plan import Plan, missing_reason, run_plan
 
 

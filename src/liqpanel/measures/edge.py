@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.contracts import require_columns
+from liqpanel.core.contracts import require_columns
 from liqpanel.measures.highlow import check_flat_days
 from liqpanel.measures.neighbours import previous_in_month
 from liqpanel.measures.plan import Plan, log_of, run_plan

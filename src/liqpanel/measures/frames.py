@@ -7,8 +7,8 @@ from typing import Any, Iterable
 import polars as pl
 
 from liqpanel.bars import add_returns
-from liqpanel.contracts import month_of, require_columns
-from liqpanel.errors import InputError
+from liqpanel.core.contracts import month_of, require_columns
+from liqpanel.core.errors import InputError
 from liqpanel.measures.liu import liu_lm12
 from liqpanel.measures.registry import REGISTRY
 

@@ -26,7 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 logger = logging.getLogger("liqpanel.gibbs")
 

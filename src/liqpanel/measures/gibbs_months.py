@@ -10,8 +10,8 @@ from __future__ import annotations
 import numpy as np
 import polars as pl
 
-from liqpanel.contracts import require_columns
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import require_columns
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.gibbs import (
     KEY, MIN_RETURNS, _check_sweeps, _prior, sample_roll_model,
 )

@@ -26,8 +26,8 @@ import math
 
 import polars as pl
 
-from liqpanel.contracts import require_columns
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import require_columns
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.neighbours import next_in_month
 from liqpanel.measures.plan import Plan, log_of, missing_reason, prepare, run_plan, with_steps
 

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.contracts import require_columns
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import require_columns
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.neighbours import next_in_month
 from liqpanel.measures.plan import Plan, missing_reason, month_shifted, run_plan
 

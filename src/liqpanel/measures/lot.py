@@ -57,8 +57,8 @@ from functools import cached_property
 import numpy as np
 import polars as pl
 
-from liqpanel.contracts import require_columns
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import require_columns
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.neighbours import FIRST_OF_MONTH, in_security_date_order
 
 KEY = ["security", "month"]

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import polars as pl
 
-from liqpanel.contracts import require_columns
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import require_columns
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.neighbours import SORTED_MARK
 
 WEIGHTINGS = ("equal", "value")

@@ -1,7 +1,7 @@
 """The registry of monthly measures.
 
 Each measure is a small pure function ``f(daily: pl.LazyFrame, **options) ->
-pl.LazyFrame``. It receives the daily table (see ``liqpanel.contracts.DAILY``,
+pl.LazyFrame``. It receives the daily table (see ``liqpanel.core.contracts.DAILY``,
 plus ``mkt_ret`` and ``shares_out`` where available) and returns one row per
 (``security``, ``month``) holding its output columns, ``n_obs`` (the number of
 valid days or day-pairs it used) and optionally ``reason`` (a string saying
@@ -26,7 +26,7 @@ from typing import Any, Callable
 
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 
 @dataclass(frozen=True)

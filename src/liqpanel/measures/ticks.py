@@ -28,7 +28,7 @@ from functools import reduce
 import numpy as np
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.plan import Plan, run_plan
 
 DECIMAL_MULTIPLES = (1, 5, 10, 25, 100)  # a cent tick: 1c, 5c, 10c, 25c, $1 (Goyenko, Holden & Trzcinka 2009, from memory)

@@ -35,8 +35,8 @@ import math
 
 import polars as pl
 
-from liqpanel.contracts import require_columns
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import require_columns
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures.neighbours import previous_in_month
 from liqpanel.measures.plan import Plan, log_of, missing_reason, run_plan
 from liqpanel.measures.roll import autocovariance_parts, log_return

@@ -17,7 +17,7 @@ import math
 import numpy as np
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.models.newey_west import automatic_lags, newey_west_mean
 from liqpanel.models.sorts import double_sort
 

@@ -6,7 +6,7 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 
 ESTIMATORS = ("fama_macbeth", "pooled", "fixed_effects", "driscoll_kraay")
@@ -148,7 +148,7 @@ class ModelSpec:
         """Build a spec from one entry of the config's model list.
 
         Unknown keys, a missing name and values of the wrong kind raise
-        :class:`~liqpanel.errors.ConfigError` naming the model and the key.
+        :class:`~liqpanel.core.errors.ConfigError` naming the model and the key.
         A covariance left out is the estimator's usual choice.
         """
         if not isinstance(d, dict):

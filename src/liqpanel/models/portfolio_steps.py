@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 from liqpanel.models.newey_west import newey_west_mean
-from liqpanel.stable import ordered_mean, ordered_sum
+from liqpanel.core.stable import ordered_mean, ordered_sum
 
 
 KEY = ("security", "month")
@@ -98,7 +98,7 @@ def assign(frame: pl.LazyFrame, on: str, n: int, by: list[str], label: str) -> t
 
 def portfolio_returns(assigned: pl.LazyFrame, labels: list[str], ret: str, weight: str | None,
                        characteristics: list[str]) -> pl.LazyFrame:
-    # sums run over each cell's securities in name order (liqpanel.stable), so
+    # sums run over each cell's securities in name order (liqpanel.core.stable), so
     # their last digit does not depend on the order in which rows arrive
     if weight:
         value = ordered_sum(pl.col(ret) * pl.col(weight)) / ordered_sum(pl.col(weight))

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import polars as pl
 
-from liqpanel.errors import ConfigError, InputError
+from liqpanel.core.errors import ConfigError, InputError
 from liqpanel.models.model_spec import INTERCEPT, KEY, MARKET, ModelSpec, LIBRARY_COVARIANCE
 from liqpanel.models.newey_west import automatic_lags
 

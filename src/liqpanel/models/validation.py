@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 
 KEY = ("security", "month")
 MIN_PAIRS = 3  # fewest security pairs for a month's cross-sectional correlation

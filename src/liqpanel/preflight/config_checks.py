@@ -5,7 +5,7 @@ from __future__ import annotations
 import jsonschema
 from typing import Any
 
-from liqpanel.errors import LiqpanelError
+from liqpanel.core.errors import LiqpanelError
 from liqpanel.preflight.problem import DATE_COLUMN, InputSource, Problem, REQUIRED, SAMPLE_NUMBERS
 
 

@@ -7,7 +7,7 @@ import os
 import re
 from typing import Callable
 
-from liqpanel.errors import LiqpanelError
+from liqpanel.core.errors import LiqpanelError
 from liqpanel.preflight.problem import InputSource, Problem, SAMPLE_ROWS
 
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from liqpanel.errors import LiqpanelError
+from liqpanel.core.errors import LiqpanelError
 from liqpanel.preflight.config_checks import _dict
 from liqpanel.preflight.files import _files
 from liqpanel.preflight.problem import Problem, SAMPLE_ROWS

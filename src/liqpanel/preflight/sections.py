@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from liqpanel.errors import LiqpanelError
+from liqpanel.core.errors import LiqpanelError
 from liqpanel.preflight.config_checks import _fits, _type_name
 from liqpanel.preflight.problem import DERIVED_DAILY, InputSource, PANEL_KEYS, Problem
 
@@ -40,7 +40,7 @@ def measure_problems(config: dict) -> list[Problem]:
 
 def daily_columns(config: dict, sources: list[InputSource]) -> tuple[set[str], str]:
     """The columns the daily table will have, and where they come from (for messages)."""
-    from liqpanel.contracts import DAILY
+    from liqpanel.core.contracts import DAILY
     from liqpanel.intraday import daily_columns as intraday_columns
 
     inputs = config.get("inputs") or {}

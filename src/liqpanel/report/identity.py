@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import Any
 
 import liqpanel
-from liqpanel.io import expand_inputs, sha256_file, write_text
+from liqpanel.core.io import expand_inputs, sha256_file, write_text
 
 
 OUTPUT_LOCATIONS = ("results_dir", "work_dir")

@@ -16,8 +16,8 @@ from typing import Any
 import polars as pl
 
 import liqpanel
-from liqpanel.errors import InputError
-from liqpanel.io import expand_inputs, sha256_file, write_text
+from liqpanel.core.errors import InputError
+from liqpanel.core.io import expand_inputs, sha256_file, write_text
 
 
 DEPENDENCIES = (

@@ -10,7 +10,7 @@ from typing import Any
 import polars as pl
 
 from liqpanel.formatting import format_frame, relabel
-from liqpanel.io import write_text
+from liqpanel.core.io import write_text
 
 
 _NUMBER = re.compile(r"^[(\[]?([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)[)\]]?\**$")

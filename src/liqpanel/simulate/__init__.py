@@ -6,7 +6,7 @@ effective bid-ask spread in an efficient market", Journal of Finance 39,
 
 The simulator feeds the demo data, the recovery test of every estimator and
 simulation studies. Everything it writes follows the table contracts of
-``liqpanel.contracts``; the columns it adds (``true_sign`` in the trades) are
+``liqpanel.core.contracts``; the columns it adds (``true_sign`` in the trades) are
 ignored by the pipeline.
 
 Model (units: prices in the market's currency, spreads and returns as

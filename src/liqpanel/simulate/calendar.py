@@ -8,7 +8,7 @@ from datetime import timedelta
 import numpy as np
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 
 
 _MICROS_PER_MINUTE = 60_000_000

@@ -7,7 +7,7 @@ import dataclasses
 import numpy as np
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.simulate.calendar import _Calendar, _business_days, _calendar, _month_start
 from liqpanel.simulate.engine import _Trading, _run
 from liqpanel.simulate.population import _population

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.simulate.calendar import _calendar, _month_start
 from liqpanel.simulate.engine import _Population, _Trading, _run
 from liqpanel.simulate.names import security_code

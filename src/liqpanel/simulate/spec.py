@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import polars as pl
 
-from liqpanel.errors import ConfigError
+from liqpanel.core.errors import ConfigError
 from liqpanel.simulate.calendar import _month_start, _session_minutes
 from liqpanel.simulate.names import _HEADS, _KINDS, _MIDS, _TAILS
 

@@ -110,7 +110,7 @@ def write_market(market: Market, out_dir: str | Path) -> dict[str, Path]:
     """
     import pyarrow.parquet as pq
 
-    from liqpanel.io import atomic_path
+    from liqpanel.core.io import atomic_path
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)

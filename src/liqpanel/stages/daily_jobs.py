@@ -11,7 +11,7 @@ import polars as pl
 from liqpanel import bars as bars_mod
 from liqpanel import ingest
 from liqpanel.config import shares_source
-from liqpanel.io import write_parquet
+from liqpanel.core.io import write_parquet
 from liqpanel.marketset import MARKET, daily_to_reporting, load_markets, several
 from liqpanel.stages.shared import _adjustments, _calendar_span, _month_start
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.io import write_parquet
+from liqpanel.core.io import write_parquet
 from liqpanel.marketset import MARKET, load_markets, several
 from liqpanel.stages.shared import _calendar_span
 

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import polars as pl
 
-from liqpanel.io import write_parquet, write_text
+from liqpanel.core.io import write_parquet, write_text
 from liqpanel.stages.shared import _supplied_factors, read_truth
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import polars as pl
 
 from liqpanel import ingest
-from liqpanel.io import write_parquet
+from liqpanel.core.io import write_parquet
 from liqpanel.marketset import load_markets
 
 

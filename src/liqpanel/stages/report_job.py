@@ -8,7 +8,7 @@ from typing import TYPE_CHECKING
 
 import polars as pl
 
-from liqpanel.io import write_parquet, write_text
+from liqpanel.core.io import write_parquet, write_text
 from liqpanel.stages.shared import read_truth
 from liqpanel.stages.study_jobs import render_study
 

@@ -8,8 +8,8 @@ import polars as pl
 
 from liqpanel import ingest
 from liqpanel import readers
-from liqpanel.errors import InputError
-from liqpanel.io import write_parquet
+from liqpanel.core.errors import InputError
+from liqpanel.core.io import write_parquet
 from liqpanel.marketset import load_markets, several
 
 

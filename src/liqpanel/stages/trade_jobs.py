@@ -12,8 +12,8 @@ from liqpanel import readers
 from liqpanel.clean import (
     QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows, month_number,
 )
-from liqpanel.errors import InputError
-from liqpanel.io import write_parquet
+from liqpanel.core.errors import InputError
+from liqpanel.core.io import write_parquet
 from liqpanel.marketset import attach, several
 from liqpanel.partition import stored_window
 from liqpanel.stages.shared import _market, _month_start
@@ -191,7 +191,7 @@ def _rows_per_month(config: dict, counted: int = 20) -> float | None:
     """The trade and quote rows of an average month of the sample, estimated: Parquet files by the row
     counts in their metadata (of the first ``counted`` files, scaled by size to the rest of a glob), other
     files by their size at 40 bytes a row (8 compressed); None without a file to count."""
-    from liqpanel.io import month_range
+    from liqpanel.core.io import month_range
 
     rows = 0.0
     for key in ("trades", "quotes"):

@@ -6,7 +6,7 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.contracts import require_columns
+from liqpanel.core.contracts import require_columns
 from liqpanel.measures import REGISTRY, compute_monthly
 from liqpanel.study.defaults import KEY, check_settings
 

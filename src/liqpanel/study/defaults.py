@@ -5,8 +5,8 @@ from __future__ import annotations
 from datetime import date
 from typing import Any
 
-from liqpanel.contracts import DAILY
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import DAILY
+from liqpanel.core.errors import ConfigError
 from liqpanel.measures import REGISTRY, get_measure
 from liqpanel.measures.blend import NAME as BLEND
 

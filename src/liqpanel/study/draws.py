@@ -10,8 +10,8 @@ import numpy as np
 import polars as pl
 
 from liqpanel.bars import daily_bars
-from liqpanel.contracts import DAILY, require_columns
-from liqpanel.errors import ConfigError
+from liqpanel.core.contracts import DAILY, require_columns
+from liqpanel.core.errors import ConfigError
 from liqpanel.simulate import SECURITY_PREFIX, simulate_security_months
 from liqpanel.study.defaults import KEY, PRICE_STEP, SIMULATION_PRICE, SIMULATION_START, WARM_UP_MONTH, WINDOW_MONTH
 

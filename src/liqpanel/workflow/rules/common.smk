@@ -4,7 +4,7 @@ import sys
 
 from liqpanel import runtime
 
-from liqpanel.errors import LiqpanelError
+from liqpanel.core.errors import LiqpanelError
 
 if not config:
     sys.stderr.write("liqpanel: no config given; run with --configfile config/config.yaml\n")
@@ -27,7 +27,7 @@ try:
 
     from liqpanel import stages
     from liqpanel.config import validate_config
-    from liqpanel.io import month_range
+    from liqpanel.core.io import month_range
     from liqpanel.partition import spans
     from liqpanel.readers import list_files
     from liqpanel.report import input_files, report_category, report_labels, run_id

@@ -16,7 +16,7 @@ from typing import Iterator
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 
 
 def _files(path: str) -> list[str]:

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.errors import InputError
+from liqpanel.core.errors import InputError
 
 TRADES = {"security": pl.String, "ts": pl.Datetime("us", "UTC"), "price": pl.Float64, "size": pl.Float64}
 TRADES_OPTIONAL = {"venue": pl.String, "cond": pl.String, "correction": pl.String}
