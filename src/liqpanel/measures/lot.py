@@ -34,8 +34,10 @@ one). Starting values come from moments (a month without zero returns
 starts at its bounded least-squares fit, which is its maximum or next to
 it). Each iteration is one batched damped Newton (Levenberg-Marquardt) step
 for every month not yet converged: the analytic Hessian, a 4 x 4 Cholesky
-solve written over whole arrays of months, the step projected onto the
-bounds and accepted where the likelihood does not fall (the damping falls)
+solve written over whole arrays of months, a threshold the step would
+carry past its bound stopped on it and the other parameters solved again
+with it held there (a projection alone gives a step the likelihood often
+refuses), then accepted where the likelihood does not fall (the damping falls)
 or refused (it rises); the likelihood, gradient and Hessian are evaluated
 once per iteration, at the trial point, every per-return term summed per
 month in one pass. A month has converged when its next step is below the
@@ -454,6 +456,20 @@ def _newton_step(theta, grad, hess, damping):
             step[:, failed] = np.linalg.solve(stacked, right)[:, :, 0].T
         except np.linalg.LinAlgError:
             step[:, failed] = (np.linalg.pinv(stacked) @ right)[:, :, 0].T
+    crossed = np.stack([(theta[0] < 0.0) & (theta[0] + step[0] > 0.0), (theta[1] > 0.0) & (theta[1] + step[1] < 0.0)])
+    if crossed.any():  # a threshold the step carries past its bound stops on it, and the other parameters are solved again
+        which = np.flatnonzero(crossed.any(axis=0))
+        system, rhs, fixed = system[:, which], rhs[:, which].copy(), crossed[:, which]
+        for p in (0, 1):
+            at = -theta[p, which]  # the step that puts threshold p on its bound
+            for q in range(4):
+                if q != p:
+                    rhs[q] = np.where(fixed[p], rhs[q] - system[PACKED[q, p]] * at, rhs[q])
+            for q in range(4):
+                system[PACKED[p, q]] = np.where(fixed[p], 1.0 if q == p else 0.0, system[PACKED[p, q]])
+            rhs[p] = np.where(fixed[p], at, rhs[p])
+        again, failed = _cholesky_solve(system, rhs, packed=True)
+        step[:, which] = np.where(failed, step[:, which], again)
     candidate = theta + step
     candidate[0] = np.minimum(candidate[0], 0.0)  # the bounds of LOT (1999): alpha_1 <= 0 <= alpha_2
     candidate[1] = np.maximum(candidate[1], 0.0)
