@@ -195,3 +195,31 @@ def test_pieces_of_months_give_the_iterates_of_one_batch(monkeypatch):
     for key in whole:
         np.testing.assert_array_equal(pieces[key], whole[key], err_msg=key)
     assert (whole["iterations"] > 2).any()  # some months were resumed
+
+
+def test_a_step_past_a_bound_stops_on_it_and_solves_the_rest_again():
+    # reference library: numpy.linalg.solve of the damped Newton system with the crossing threshold held on its
+    # bound (the others solved for given that move); a step inside the bounds is the full damped Newton step.
+    from liqpanel.measures.lot import DIAGONAL, UPPER, _newton_step
+
+    rng = np.random.default_rng(5)
+    a = rng.normal(size=(3, 4, 4))
+    hess = -(a @ a.transpose(0, 2, 1) + 0.5 * np.eye(4))  # (months, 4, 4), negative definite
+    grad = rng.normal(size=(4, 3))
+    theta = np.array([[-0.01, -0.01, -0.01], [0.01, 0.01, 0.01], [1.0, 1.0, 1.0], [-4.0, -4.0, -4.0]])
+    damping = np.full(3, 1e-3)
+    system = -hess.copy()
+    system[:, np.arange(4), np.arange(4)] += damping[:, None] * (np.abs(hess[:, np.arange(4), np.arange(4)]) + 1e-12)
+    grad[:, 0] = np.linalg.solve(system[0], np.array([-0.005, 0.005, 0.0, 0.0]))  # month 0: the full step stays inside
+    grad[:, 1] = system[1] @ np.array([0.03, 0.0, 0.1, 0.0])  # month 1: alpha_1 would pass 0
+    grad[:, 2] = system[2] @ np.array([0.0, -0.02, 0.0, 0.1])  # month 2: alpha_2 would pass 0
+    packed = np.stack([hess[:, i, j] for i, j in zip(*UPPER)])
+    assert DIAGONAL.tolist() == [0, 4, 7, 9]
+    candidate = _newton_step(theta, grad, packed, damping)
+    np.testing.assert_allclose(candidate[:, 0], theta[:, 0] + np.linalg.solve(system[0], grad[:, 0]), rtol=1e-10)
+    for month, p in ((1, 0), (2, 1)):
+        move = -theta[p, month]  # onto the bound
+        rest = [q for q in range(4) if q != p]
+        expected = np.linalg.solve(system[month][np.ix_(rest, rest)], grad[rest, month] - system[month][rest, p] * move)
+        assert candidate[p, month] == 0.0
+        np.testing.assert_allclose(candidate[rest, month], theta[rest, month] + expected, rtol=1e-10, atol=1e-14)
