@@ -143,7 +143,7 @@ def test_the_stage_reports_convergence_per_month():
 
 def test_batched_cholesky_solve_equals_numpy_linalg_solve():
     # reference library: numpy.linalg.solve, month by month; a matrix that is not positive definite is reported
-    from liqpanel.measures.lot import _cholesky_solve
+    from liqpanel.measures.lot_solver import _cholesky_solve
 
     rng = np.random.default_rng(11)
     a = rng.normal(size=(50, 4, 4))
@@ -200,7 +200,8 @@ def test_pieces_of_months_give_the_iterates_of_one_batch(monkeypatch):
 def test_a_step_past_a_bound_stops_on_it_and_solves_the_rest_again():
     # reference library: numpy.linalg.solve of the damped Newton system with the crossing threshold held on its
     # bound (the others solved for given that move); a step inside the bounds is the full damped Newton step.
-    from liqpanel.measures.lot import DIAGONAL, UPPER, _newton_step
+    from liqpanel.measures.lot_likelihood import DIAGONAL, UPPER
+    from liqpanel.measures.lot_solver import _newton_step
 
     rng = np.random.default_rng(5)
     a = rng.normal(size=(3, 4, 4))
