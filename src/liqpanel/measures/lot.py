@@ -75,6 +75,7 @@ CHUNK_MONTHS = 16384  # months fitted together: their working arrays stay in the
 FIRST_TURNS = 8  # iterations of a piece of months; the months still going then continue together
 RESULTS = ("alpha_1", "alpha_2", "beta", "sigma", "log_likelihood", "iterations", "converged")
 
+
 def fit_lot(ret: np.ndarray, market: np.ndarray, valid: np.ndarray, *, form: str = "ysplit", max_iterations: int = 200,
             tolerance: float = 1e-8) -> dict[str, np.ndarray]:
     """Maximum-likelihood fit of every month (columns of the (days, months) arrays) at once.
@@ -119,6 +120,7 @@ def fit_rows(ret: np.ndarray, market: np.ndarray, month: np.ndarray, months: int
                 part[key][left] = more[key][at:at + len(left)]
             at += len(left)
     return {key: np.concatenate([part[key] for part in parts]) for key in RESULTS}
+
 
 @dataclass(frozen=True)
 class MonthRows:

@@ -44,6 +44,15 @@ def _refuse_library_words(where: str, key: str, values: tuple[str, ...]) -> None
             raise ConfigError(f"{where}: '{key}' has {value!r}; the word here is {ours!r}")
 
 
+def _check_listed(where: str, key: str, values: tuple[str, ...], allowed: tuple[str, ...], one: str) -> None:
+    """Each of ``values`` (the setting ``key``) is one of ``allowed``, and none is listed twice."""
+    bad = [v for v in values if v not in allowed]
+    if bad:
+        raise ConfigError(f"{where}: '{key}' has {bad}; expected any of {list(allowed)}")
+    if len(set(values)) != len(values):
+        raise ConfigError(f"{where}: '{key}' repeats {one}: {list(values)}")
+
+
 @dataclass(frozen=True)
 class ModelSpec:
     """One regression of the models stage.
@@ -116,18 +125,10 @@ class ModelSpec:
             isinstance(self.lags, bool) or not isinstance(self.lags, (int, np.integer)) or self.lags < 0
         ):
             raise ConfigError(f"{where}: 'lags' is {self.lags!r}; expected a non-negative integer or null")
-        bad = [c for c in self.cluster if c not in CLUSTER_DIMENSIONS]
-        if bad:
-            raise ConfigError(f"{where}: 'cluster' has {bad}; expected any of {list(CLUSTER_DIMENSIONS)}")
-        if len(set(self.cluster)) != len(self.cluster):
-            raise ConfigError(f"{where}: 'cluster' repeats a dimension: {list(self.cluster)}")
+        _check_listed(where, "cluster", self.cluster, CLUSTER_DIMENSIONS, "a dimension")
         if self.covariance == "clustered" and not self.cluster:
             raise ConfigError(f"{where}: covariance 'clustered' needs 'cluster' (security and/or month)")
-        bad = [e for e in self.effects if e not in EFFECTS]
-        if bad:
-            raise ConfigError(f"{where}: 'effects' has {bad}; expected any of {list(EFFECTS)}")
-        if len(set(self.effects)) != len(self.effects):
-            raise ConfigError(f"{where}: 'effects' repeats an effect: {list(self.effects)}")
+        _check_listed(where, "effects", self.effects, EFFECTS, "an effect")
         if self.estimator == "fixed_effects" and not self.effects:
             raise ConfigError(f"{where}: the fixed_effects estimator needs 'effects' (security and/or month)")
         if len(self.cluster) > 2:

@@ -41,11 +41,13 @@ def _with_shares_out(daily: pl.LazyFrame, entry: dict) -> pl.LazyFrame:
         date_column=entry.get("date_column", "date"),
     ).sort("security", "date")
 
+
 def daily_span(config: dict, bars_paths: list[str], previous_bars_path: str | None, out_paths: list[str]) -> None:
     """``daily_month`` for consecutive months; ``previous_bars_path``: the month before the first, or None."""
     for bars_path, out in zip(bars_paths, out_paths, strict=True):
         daily_month(bars_path, previous_bars_path, out, config)
         previous_bars_path = bars_path
+
 
 def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = None) -> pl.LazyFrame:
     """A user's daily file in the daily contract (see DEVELOPERS.md), checked by ``liqpanel.dailyfile``.

@@ -69,6 +69,7 @@ def measures_table(config: dict, daily_paths: list[str], previous_daily_path: st
         parts.append(_measures(config, pl.scan_parquet(daily_paths[0]), None))
     write_parquet(pl.concat(parts, how="diagonal_relaxed"), out)
 
+
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
     """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
     daily = pl.scan_parquet(daily_path)
@@ -103,6 +104,7 @@ def _measures(config: dict, daily: pl.LazyFrame, previous: pl.LazyFrame | str | 
         parts.append(compute_monthly(daily.drop(MARKET) if several(market) else daily,
                                      market_inputs(daily, config["measures"], None)[1], previous=None))
     return pl.concat(parts, how="diagonal_relaxed").sort("security", "month") if len(parts) > 1 else parts[0]
+
 
 def gather_monthly(paths: list[str], out: str) -> None:
     """The month partitions' measures in one table, with the measures that span twelve months (Liu's LM12)."""

@@ -33,6 +33,7 @@ def models(config: dict, panel_path: str, monthly_path: str, out_dir: str) -> No
         write_parquet(result.regressions_long, out / "regressions_long.parquet")
     write_text(json.dumps(index, indent=2) + "\n", out / "index.json")
 
+
 def factors(config: dict, panel_path: str, out_dir: str, daily_paths: list[str] = ()) -> None:
     """Build the liquidity factors the ``factors:`` section selects; write tables, series and an index.
 

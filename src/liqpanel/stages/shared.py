@@ -45,6 +45,7 @@ def check_inputs(config: dict) -> None:
         if "ret" in ingest.schema_of(ingest.scan_file(file, layout, 1), file):
             raise ingest.error(layout, dailyfile.ADJUSTED_TWICE, file=file, column="ret")
 
+
 def _calendar_span(config: dict) -> tuple[date, date]:
     """First and last day of the market calendar a run needs (``markets.sample_span``)."""
     from liqpanel.markets import sample_span
@@ -75,6 +76,7 @@ def read_truth(config: dict) -> pl.DataFrame:
         key=("security", "month"),
     )
 
+
 def _supplied_factors(config: dict) -> pl.DataFrame | None:
     """The user's factor file (``inputs.factors``) with ``month`` as the first day of the month, or None."""
     if not config["inputs"].get("factors"):
@@ -83,6 +85,7 @@ def _supplied_factors(config: dict) -> pl.DataFrame | None:
         ingest.layout_of(config, "factors"), ingest.Spec("factor file", text=(), months=("month",), other_numeric=True),
         key=("month",),
     )
+
 
 def now() -> str:
     from liqpanel import report as rep
