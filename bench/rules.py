@@ -129,7 +129,7 @@ def main(argv: list[str] | None = None) -> None:
 
     from liqpanel.config import load_config
     from liqpanel.core.io import month_range
-    from liqpanel.partition import spans
+    from liqpanel.core.partition import spans
 
     with tempfile.TemporaryDirectory(prefix="liqpanel-bench-rules-") as tmp:
         root = Path(tmp)

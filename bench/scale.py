@@ -155,7 +155,7 @@ def run_job(spec: dict, threads: int) -> dict:
 
 
 def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int, span: int) -> dict:
-    from liqpanel.partition import spans
+    from liqpanel.core.partition import spans
 
     config = config_for(trades, n_months)
     config_path = work / "config.json"
@@ -201,7 +201,7 @@ def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int,
 
 def job_plan(years: int, span: int) -> tuple[int, int]:
     """(jobs planned, jobs at one per month and stage) for ``years`` of data, as the workflow plans them."""
-    from liqpanel.partition import spans
+    from liqpanel.core.partition import spans
 
     months = month_list(12 * years)
     whole = 7  # audit, monthly table, panel, models, factors, study, report

@@ -13,7 +13,7 @@ import pytest
 from liqpanel import stages
 from liqpanel.bars import add_returns
 from liqpanel.core.errors import InputError
-from liqpanel.readers import read_adjustments
+from liqpanel.clean.reading import read_adjustments
 
 
 def _bars(closes, days):

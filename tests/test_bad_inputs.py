@@ -22,7 +22,8 @@ import polars as pl
 import pytest
 import yaml
 
-from liqpanel import cli, dailyfile, ingest
+from liqpanel import cli, ingest
+from liqpanel.bars import daily_file as dailyfile
 from liqpanel.panel import coverage, read_characteristics, read_monthly_returns
 from liqpanel.stages import clean_month, read_daily_file
 from liqpanel.config import validate_config
@@ -544,7 +545,7 @@ def test_truncated_gzip_trade_file_names_the_file(tmp_path, capsys):
 
 
 def test_time_format_and_separator_of_a_trade_file(tmp_path):
-    from liqpanel.readers import TRADES_SPEC, read_table
+    from liqpanel.clean.reading import TRADES_SPEC, read_table
 
     (tmp_path / "t.csv").write_text("SYM|DAY|CLOCK|PX|QTY\nQOLM|03/01/2021|10h30m05|10.5|100\n")
     mapping = {"SYM": "security", "DAY": "date", "CLOCK": "time", "PX": "price", "QTY": "size"}

@@ -22,7 +22,7 @@ from liqpanel.simulate import simulate_market, write_market
 # heavy modules only the measures, panel, models and report stages (or the
 # config check before a run) need
 NOT_IN_A_TRADE_JOB = ("scipy", "jsonschema", "liqpanel.report", "liqpanel.panel",
-                      "liqpanel.replication", "liqpanel.models", "matplotlib", "linearmodels", "statsmodels",
+                      "liqpanel.report.replication", "liqpanel.models", "matplotlib", "linearmodels", "statsmodels",
                       "exchange_calendars",  # a profile without `calendar:` never loads the calendar library
                       "liqpanel.measures")  # the bar columns come from liqpanel.bars.BAR_COLUMNS_OF
 

@@ -19,11 +19,9 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "liqpanel"
 
 # the stages that come after the reading, cleaning, bars and measures of the data
 LATER = ("liqpanel.panel", "liqpanel.models", "liqpanel.factors", "liqpanel.report", "liqpanel.study",
-         "liqpanel.stages", "liqpanel.cli", "liqpanel.replication", "liqpanel.compare", "liqpanel.figures")
-EARLY = ("liqpanel.core", "liqpanel.ingest", "liqpanel.readers", "liqpanel.clean", "liqpanel.markets",
-         "liqpanel.marketset", "liqpanel.partition", "liqpanel.outliers", "liqpanel.signing", "liqpanel.intraday",
-         "liqpanel.bars", "liqpanel.dailyfile", "liqpanel.measures")
-TOP = ("liqpanel.stages", "liqpanel.cli", "liqpanel.__main__", "liqpanel.runtime")
+         "liqpanel.stages", "liqpanel.cli")
+EARLY = ("liqpanel.core", "liqpanel.ingest", "liqpanel.clean", "liqpanel.markets", "liqpanel.bars", "liqpanel.measures")
+TOP = ("liqpanel.stages", "liqpanel.cli", "liqpanel.__main__")
 
 
 def module_name(path: Path) -> str:

@@ -21,7 +21,8 @@ import polars as pl
 import pytest
 from polars.testing import assert_frame_equal
 
-from liqpanel import readers, stages
+from liqpanel import stages
+from liqpanel.clean import reading as readers
 from liqpanel.stages import trade_jobs
 from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market, validate_config
@@ -29,7 +30,7 @@ from liqpanel.core.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
 from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
 from liqpanel.measures.roll import roll_spread
-from liqpanel.partition import PREVIOUS_DAY, month_window, spans, stored_window, with_previous_day
+from liqpanel.core.partition import PREVIOUS_DAY, month_window, spans, stored_window, with_previous_day
 from liqpanel.simulate import simulate_market, write_market
 
 KEY = ["security", "month"]

@@ -15,7 +15,7 @@ import pytest
 from liqpanel import stages
 from liqpanel.config import load_market, validate_config
 from liqpanel.core.errors import InputError
-from liqpanel.readers import TRADES_SPEC, read_table, unparseable_error
+from liqpanel.clean.reading import TRADES_SPEC, read_table, unparseable_error
 
 NEW_YORK = ZoneInfo("America/New_York")
 MAPPING = {"INSTR": "security", "STAMP": "ts", "DEAL_PX": "price", "DEAL_QTY": "size"}

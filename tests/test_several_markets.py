@@ -1,4 +1,4 @@
-"""Several markets in one run (liqpanel.marketset): per-market profiles, FX, unknown codes."""
+"""Several markets in one run (liqpanel.markets.several): per-market profiles, FX, unknown codes."""
 
 from __future__ import annotations
 
@@ -197,7 +197,7 @@ def test_unknown_code_and_unlisted_security_at_run_time(tmp_path):
 
 def test_market_values_at_the_month_end_rate(tmp_path):
     # common practice: a month-end stock at the month-end rate; log market value shifts by log(rate)
-    from liqpanel import marketset
+    from liqpanel.markets import several as marketset
 
     _split(tmp_path)
     config = _two_market_config(tmp_path)
@@ -277,7 +277,7 @@ def test_config_names_market_or_markets():
 
 @pytest.mark.parametrize("text, shown", [("NaN", "(missing)"), ("inf", "not finite"), ("0", "0.0")])
 def test_rate_that_is_not_a_positive_finite_number(tmp_path, text, shown):
-    from liqpanel import marketset
+    from liqpanel.markets import several as marketset
 
     (tmp_path / "fx.csv").write_text(f"day,ccy,px\n2021-01-04,ZZQ,0.5\n2021-01-05,ZZQ,{text}\n")
     config = {"inputs": {"fx": str(tmp_path / "fx.csv")}, "columns": {"fx": {"day": "date", "ccy": "currency",

@@ -16,21 +16,9 @@ from typing import Any
 import yaml
 
 from liqpanel.core.errors import ConfigError
-
-PACKAGE_DIR = Path(__file__).resolve().parent
-WORKFLOW_DIR = PACKAGE_DIR / "workflow"
-SNAKEFILE = WORKFLOW_DIR / "Snakefile"
-SCHEMA_PATH = WORKFLOW_DIR / "schemas" / "config.schema.yaml"
-MARKETS_DIR = PACKAGE_DIR / "market_profiles"
-
-
-# libyaml's parser where PyYAML was built with it (the same documents, about ten times faster)
-_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-
-
-def load_schema(path: Path = SCHEMA_PATH) -> dict:
-    with open(path) as fh:
-        return yaml.load(fh, Loader=_LOADER)
+from liqpanel.core.schema import (  # noqa: F401  (the places, read by the command line and the workflow)
+    LOADER as _LOADER, MARKETS_DIR, PACKAGE_DIR, SCHEMA_PATH, SNAKEFILE, WORKFLOW_DIR, load_schema,
+)
 
 
 def _where(error: "jsonschema.ValidationError") -> str:

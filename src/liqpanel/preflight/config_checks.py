@@ -40,7 +40,7 @@ def input_sources(config: dict) -> list[InputSource]:
         try:
             if markets:
                 zones = {load_market(str(p))["timezone"] for p in _dict(markets.get("profiles")).values()}
-                timezone = zones.pop() if len(zones) == 1 else "UTC"  # as liqpanel.marketset.load_markets
+                timezone = zones.pop() if len(zones) == 1 else "UTC"  # as liqpanel.markets.several.load_markets
             else:
                 timezone = load_market(config["market"])["timezone"]
         except LiqpanelError:

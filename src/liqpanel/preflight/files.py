@@ -169,7 +169,7 @@ def _timestamp_sample(source: InputSource, file: str, have: dict[str, str]) -> l
     """Trades and quotes: the timestamp (``ts``, or ``date`` and ``time``) parses on the first rows."""
     import polars as pl
 
-    from liqpanel.readers import _timestamp
+    from liqpanel.clean.reading import _timestamp
 
     columns = [c for c in ("ts", "date", "time") if c in have]
     if "ts" not in columns and len(columns) < 2:

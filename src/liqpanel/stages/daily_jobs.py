@@ -12,11 +12,11 @@ from liqpanel import bars as bars_mod
 from liqpanel import ingest
 from liqpanel.config import shares_source
 from liqpanel.core.io import write_parquet
-from liqpanel.marketset import MARKET, daily_to_reporting, load_markets, several
+from liqpanel.markets.several import MARKET, daily_to_reporting, load_markets, several
 from liqpanel.stages.shared import _adjustments, _calendar_span, _month_start
 
 if TYPE_CHECKING:
-    from liqpanel import dailyfile
+    from liqpanel.bars import daily_file as dailyfile
 
 
 def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
@@ -50,7 +50,7 @@ def daily_span(config: dict, bars_paths: list[str], previous_bars_path: str | No
 
 
 def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = None) -> pl.LazyFrame:
-    """A user's daily file in the daily contract (see DEVELOPERS.md), checked by ``liqpanel.dailyfile``.
+    """A user's daily file in the daily contract (see DEVELOPERS.md), checked by ``liqpanel.bars.daily_file``.
 
     Needs security, date, open, high, low, close and volume; ``dollar_volume``
     defaults to close x volume, ``n_trades`` to missing, and ``ret`` to the
@@ -62,7 +62,7 @@ def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = No
 
 
 def _read_daily(config: dict, path: str | None = None, mapping: dict | None = None) -> "dailyfile.DailyRead":
-    from liqpanel import dailyfile
+    from liqpanel.bars import daily_file as dailyfile
 
     layout = ingest.layout_of(config, "daily") if path is None else ingest.layout_from(
         "daily", path, mapping, (config.get("formats") or {}).get("daily"))
@@ -73,7 +73,7 @@ def _read_daily(config: dict, path: str | None = None, mapping: dict | None = No
 
 def _open_days(config: dict) -> "dailyfile.OpenDays | None":
     """The open days of the run's markets that have a trading calendar, over the sample (None: none has one)."""
-    from liqpanel.dailyfile import OpenDays
+    from liqpanel.bars.daily_file import OpenDays
     from liqpanel.markets import has_calendar, trading_days
 
     if "sample" not in config or not (config.get("market") or config.get("markets")):

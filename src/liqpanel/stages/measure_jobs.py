@@ -5,7 +5,7 @@ from __future__ import annotations
 import polars as pl
 
 from liqpanel.core.io import write_parquet
-from liqpanel.marketset import MARKET, load_markets, several
+from liqpanel.markets.several import MARKET, load_markets, several
 from liqpanel.stages.shared import _calendar_span
 
 
@@ -71,7 +71,7 @@ def measures_table(config: dict, daily_paths: list[str], previous_daily_path: st
 
 
 def measures_month(config: dict, daily_path: str, previous_daily_path: str | None, out: str) -> None:
-    """One month's measures; the previous month's last days ride along, flagged (liqpanel.partition)."""
+    """One month's measures; the previous month's last days ride along, flagged (liqpanel.core.partition)."""
     daily = pl.scan_parquet(daily_path)
     previous = pl.scan_parquet(previous_daily_path) if previous_daily_path else None
     write_parquet(_measures(config, daily, previous), out)

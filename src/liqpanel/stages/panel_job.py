@@ -6,7 +6,7 @@ import polars as pl
 
 from liqpanel import ingest
 from liqpanel.core.io import write_parquet
-from liqpanel.marketset import load_markets
+from liqpanel.markets.several import load_markets
 
 
 def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str, audit_out: str | None = None) -> None:
@@ -34,7 +34,7 @@ def panel(config: dict, monthly_path: str, daily_paths: list[str], out: str, aud
                       path=c["path"], column=ingest.characteristics_layout(c).theirs("security"))
     built = build_panel(pl.scan_parquet(monthly_path), returns=returns, characteristics=chars)
     if config.get("markets"):
-        from liqpanel.marketset import panel_to_reporting
+        from liqpanel.markets.several import panel_to_reporting
 
         built = panel_to_reporting(built.collect() if isinstance(built, pl.LazyFrame) else built, config,
                                    load_markets(config))

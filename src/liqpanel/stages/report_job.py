@@ -42,7 +42,7 @@ def report(
     from liqpanel import report as rep
     from liqpanel.measures import REGISTRY
     from liqpanel.panel import audit_summary, coverage
-    from liqpanel.replication import write_replication_files
+    from liqpanel.report.replication import write_replication_files
 
     build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
@@ -185,12 +185,12 @@ def report(
 
 
 def _daily_audit_tables(out: "rep.RunFolder", audit_path: str, splits_path: str) -> None:
-    from liqpanel import dailyfile
+    from liqpanel.bars import daily_file as dailyfile
 
     out.table(
         "daily_audit", dailyfile.audit_summary(pl.read_parquet(audit_path)),
         caption="Daily file: rows read, kept, dropped by rule and repaired", label="tab:daily_audit",
-        notes="Each row read is kept or dropped by the first rule it breaks (liqpanel.dailyfile); repaired rows are "
+        notes="Each row read is kept or dropped by the first rule it breaks (liqpanel.bars.daily_file); repaired rows are "
         "kept with the named values cleared. Per security-month counts: data/daily_audit.parquet",
     )
     write_parquet(pl.read_parquet(audit_path), out.path / "data" / "daily_audit.parquet")
@@ -201,7 +201,7 @@ def _daily_audit_tables(out: "rep.RunFolder", audit_path: str, splits_path: str)
             caption="Daily file: days that look like a split the returns were not adjusted for",
             label="tab:daily_splits",
             notes="A return within 3% of a split's price ratio with a matching jump in volume; give the split in "
-            "`inputs.adjustments` (liqpanel.dailyfile.suspected_splits)",
+            "`inputs.adjustments` (liqpanel.bars.daily_file.suspected_splits)",
         )
 
 

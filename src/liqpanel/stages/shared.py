@@ -7,10 +7,10 @@ from datetime import date
 import polars as pl
 
 from liqpanel import ingest
-from liqpanel import readers
+from liqpanel.clean import reading as readers
 from liqpanel.core.errors import InputError
 from liqpanel.core.io import write_parquet
-from liqpanel.marketset import load_markets, several
+from liqpanel.markets.several import load_markets, several
 
 
 def _month_start(month: str) -> date:
@@ -38,7 +38,7 @@ def check_inputs(config: dict) -> None:
     if inputs.get("adjustments"):
         _adjustments(config)
     if inputs.get("daily") and inputs.get("adjustments"):
-        from liqpanel import dailyfile
+        from liqpanel.bars import daily_file as dailyfile
 
         layout = ingest.layout_of(config, "daily")
         file = ingest.list_files(layout.path)[0]

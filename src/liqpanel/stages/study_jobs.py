@@ -9,7 +9,7 @@ from typing import TYPE_CHECKING
 import polars as pl
 
 from liqpanel.core.io import write_parquet, write_text
-from liqpanel.marketset import load_markets, several
+from liqpanel.markets.several import load_markets, several
 from liqpanel.stages.shared import _calendar_span
 
 if TYPE_CHECKING:

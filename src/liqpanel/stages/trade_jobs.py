@@ -8,14 +8,14 @@ import polars as pl
 
 from liqpanel import bars as bars_mod
 from liqpanel import ingest
-from liqpanel import readers
+from liqpanel.clean import reading as readers
 from liqpanel.clean import (
     QUOTE_COLUMNS, TRADE_COLUMNS, audit_of, check_conservation, flag_quotes, flag_trades, kept_rows, month_number,
 )
 from liqpanel.core.errors import InputError
 from liqpanel.core.io import write_parquet
-from liqpanel.marketset import attach, several
-from liqpanel.partition import stored_window
+from liqpanel.markets.several import attach, several
+from liqpanel.core.partition import stored_window
 from liqpanel.stages.shared import _market, _month_start
 
 

@@ -2,7 +2,7 @@
 import shlex
 import sys
 
-from liqpanel import runtime
+from liqpanel.core import runtime
 
 from liqpanel.core.errors import LiqpanelError
 
@@ -11,7 +11,7 @@ if not config:
     sys.exit(2)
 try:
     # before anything imports polars: the table engine's thread pool is part
-    # of what makes the tables identical on every machine (liqpanel.runtime)
+    # of what makes the tables identical on every machine (liqpanel.core.runtime)
     runtime.pin_engine_threads(config)
     INTERRUPTED = runtime.clear_stale_lock()
 
@@ -28,8 +28,8 @@ try:
     from liqpanel import stages
     from liqpanel.config import validate_config
     from liqpanel.core.io import month_range
-    from liqpanel.partition import spans
-    from liqpanel.readers import list_files
+    from liqpanel.core.partition import spans
+    from liqpanel.clean.reading import list_files
     from liqpanel.report import input_files, report_category, report_labels, run_id
 
     # a cluster job's process: the main process checked this config in full before submitting the job
@@ -84,7 +84,7 @@ def span_rule(stage, span):
     return f"{stage}_{span[0].replace('-', '_')}"
 
 
-HELD = []  # marker files keeping the user's own folders in place (liqpanel.runtime.hold_folders)
+HELD = []  # marker files keeping the user's own folders in place (liqpanel.core.runtime.hold_folders)
 
 
 onstart:

@@ -271,7 +271,7 @@ def daily_to_reporting(daily: pl.LazyFrame, config: dict, market: dict) -> pl.La
     ).collect()
     _missing_rate(frame.filter(pl.col("dollar_volume").is_not_null()), path, "a trading day's dollar volume")
     rate = pl.when(pl.col("_currency").is_not_null()).then(pl.col("_rate")).otherwise(1.0)
-    # Kyle's lambda is a log midpoint change per square root of a currency unit traded (liqpanel.intraday)
+    # Kyle's lambda is a log midpoint change per square root of a currency unit traded (liqpanel.bars.intraday)
     scaled = [(pl.col("kyle_lambda") / rate.sqrt()).alias("kyle_lambda")] if "kyle_lambda" in frame.columns else []
     return frame.lazy().with_columns((pl.col("dollar_volume") * rate).alias("dollar_volume"), *scaled).drop(
         "_currency", "_rate")

@@ -178,7 +178,7 @@ def read_table(
     ``window`` maps a file's schema (our names, values as stored) to a
     condition that keeps at least the rows wanted, or None; it is applied
     before any conversion, so the Parquet reader skips the row groups it
-    rules out (``liqpanel.partition.month_window``); ``_row`` still counts
+    rules out (``liqpanel.core.partition.month_window``); ``_row`` still counts
     every row of the file. ``fmt`` is the input's entry of ``formats:``
     (``liqpanel.ingest``): date and time formats, missing tokens, separator.
     """
