@@ -385,5 +385,3 @@ def _main(argv: list[str] | None) -> int:
         return 130
 
 
-if __name__ == "__main__":
-    sys.exit(main())
