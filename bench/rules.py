@@ -44,8 +44,10 @@ BASE_REF = "5527aae"  # the span jobs before they were made faster
 
 JOB = r"""
 import json, os, sys
-from liqpanel import stages
 from liqpanel.config import load_config
+from liqpanel.bars.job import run_bars, run_bars_month
+from liqpanel.clean.job import run_clean
+from liqpanel.core.settings import for_job
 spec = json.loads(sys.argv[1])
 try:  # as the workflow checks the config in a job's own process (liqpanel/workflow/rules/common.smk)
     from liqpanel.config import read_config, validate_config
@@ -54,14 +56,14 @@ except (ImportError, TypeError):  # a commit that checks the config in full in e
     config = load_config(spec["config"])
 paths = {k: [os.path.join(spec["out"], f"{k}-{m}.parquet") for m in spec["months"]] for k in ("trades", "audit", "quotes", "bars")}
 if len(spec["stages"]) == 2 and hasattr(stages, "trades_span"):  # a span job as the workflow runs it
-    stages.trades_span(config, spec["months"], paths)
+    run_bars(spec["months"], paths, **for_job(config, run_bars))
     spec["months"] = []
 for month in spec["months"]:
     p = {k: os.path.join(spec["out"], f"{k}-{month}.parquet") for k in ("trades", "audit", "quotes", "bars")}
     if "clean" in spec["stages"]:
-        stages.clean_month(config, month, p["trades"], p["audit"], p["quotes"])
+        run_clean(month, p["trades"], p["audit"], p["quotes"], **for_job(config, run_clean))
     if "bars" in spec["stages"]:
-        stages.bars_month(p["trades"], p["bars"], config, p["quotes"])
+        run_bars_month(p["trades"], p["bars"], p["quotes"], **for_job(config, run_bars_month))
 used = os.times()
 print(used.user + used.system)
 """

@@ -42,6 +42,10 @@ from pathlib import Path
 
 import numpy as np
 import polars as pl
+from liqpanel.bars.daily_job import run_daily
+from liqpanel.bars.job import run_bars
+from liqpanel.core.settings import for_job
+from liqpanel.measures.job import run_measures
 
 STAGES = ("trades", "daily", "measures")  # the workflow's jobs per span: clean + bars, daily, measures
 MEASURES = {"roll_spread": {"convention": "missing"}, "amihud": None}
@@ -103,17 +107,17 @@ def config_for(trades: Path, n_months: int) -> dict:
 
 def job_main(spec: dict) -> None:
     """Run one stage of one span (the body of one workflow job) and print its seconds."""
-    from liqpanel import stages
 
     config = json.loads(Path(spec["config"]).read_text()) if spec.get("config") else None
     start = time.process_time()
     paths, stage = spec.get("paths", {}), spec["stage"]
     if stage == "trades":
-        stages.trades_span(config, spec["months"], {k: paths[k] for k in ("trades", "audit", "quotes", "bars")})
+        run_bars(spec["months"], {k: paths[k] for k in ("trades", "audit", "quotes", "bars")},
+            **for_job(config, run_bars))
     elif stage == "daily":
-        stages.daily_span(config, paths["bars"], spec.get("previous_bars"), paths["daily"])
+        run_daily(paths["bars"], spec.get("previous_bars"), paths["daily"], **for_job(config, run_daily))
     elif stage == "measures":
-        stages.measures_span(config, paths["daily"], spec.get("previous_daily"), paths["measures"])
+        run_measures(paths["daily"], spec.get("previous_daily"), paths["measures"], **for_job(config, run_measures))
     elif stage == "start":  # nothing: what a job costs before its work
         pass
     elif stage == "pandas":

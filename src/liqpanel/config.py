@@ -165,7 +165,7 @@ def shares_source(config: dict) -> dict | None:
     """The first ``inputs.characteristics`` entry listing ``shares_out`` among its variables, or None.
 
     On the trade path it gives the daily table its shares outstanding (for
-    ``turnover`` and ``liu_lm``, ``liqpanel.stages.daily_month``); a daily
+    ``turnover`` and ``liu_lm``, ``liqpanel.bars.daily_job.run_daily_month``); a daily
     file brings its own column instead.
     """
     entries = (config.get("inputs") or {}).get("characteristics") or []

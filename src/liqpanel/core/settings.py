@@ -43,11 +43,14 @@ class Section:
     @classmethod
     def of(cls, part: Mapping | None):
         part = part or {}
-        return cls(**{f.name: frozen(part.get(f.name)) for f in fields(cls)})
+        section = cls(**{f.name: frozen(part.get(f.name)) for f in fields(cls)})
+        object.__setattr__(section, "_given", frozenset(part))  # the keys the config holds (a key left out reads as None)
+        return section
 
     def as_dict(self) -> dict[str, Any]:
-        """The section as the config wrote it, defaults filled (plain dicts and lists)."""
-        return {f.name: thawed(getattr(self, f.name)) for f in fields(self)}
+        """The section as the config wrote it, defaults filled (plain dicts and lists; only the keys it holds)."""
+        given = getattr(self, "_given", None)
+        return {f.name: thawed(getattr(self, f.name)) for f in fields(self) if given is None or f.name in given}
 
 
 @dataclass(frozen=True)
@@ -77,6 +80,10 @@ class MarketSettings(Section):
     def of(cls, config: Mapping | None):
         config = config or {}
         return cls(market=config.get("market"), markets=frozen(config.get("markets")))
+
+    def as_config(self, inputs: "InputSettings") -> dict[str, Any]:
+        """``market:`` or ``markets:`` with the inputs (a market set reads its securities' codes from a file)."""
+        return {**inputs.as_config(), "market": self.market, "markets": thawed(self.markets)}
 
 
 @dataclass(frozen=True)
@@ -183,10 +190,6 @@ class FactorSettings(Section):
     acharya_pedersen: Mapping[str, Any] | None
     commonality: Mapping[str, Any] | None
 
-    def as_dict(self) -> dict[str, Any]:
-        """Only the factors the config names (a section left out builds nothing)."""
-        return {name: value for name, value in super().as_dict().items() if value is not None}
-
 
 @dataclass(frozen=True)
 class StudySettings(Section):
@@ -236,12 +239,26 @@ class Settings:
     report: ReportSettings
     config: Mapping[str, Any]
 
+    def as_config(self) -> dict[str, Any]:
+        """The validated config as plain dicts and lists (for what records the run as a whole)."""
+        return thawed(self.config)
+
 
 SECTIONS = {
     "run": RunSettings, "sample": SampleSettings, "daily": DailySettings, "clean": CleanSettings,
     "bars": BarSettings, "measures": MeasureSettings, "panel": PanelSettings, "models": ModelSettings,
     "factors": FactorSettings, "study": StudySettings, "report": ReportSettings,
 }
+
+
+def for_job(config: Mapping[str, Any] | Settings, job) -> dict[str, Any]:
+    """The sections a job declares (its keyword parameters named after a section), from a config or
+    its settings: ``run_panel(monthly, daily, out, **for_job(config, run_panel))``."""
+    import inspect
+
+    settings = settings_of(config)
+    names = {f.name for f in fields(Settings)}
+    return {name: getattr(settings, name) for name in inspect.signature(job).parameters if name in names}
 
 
 def settings_of(config: Mapping[str, Any]) -> Settings:
