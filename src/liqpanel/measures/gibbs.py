@@ -15,13 +15,17 @@ The whole sample is processed at once: the months are padded to an array of
 together. Within a sweep the latent signs are drawn in two blocks (even and
 odd days): given the odd-day signs, the even-day signs are conditionally
 independent, so a block is one vectorised draw. The loop runs over sweeps and
-the two blocks only.
+the two blocks only. A large batch is cut into pieces of months whose
+arithmetic runs in threads, one per core (``_Pieces``); the random draws stay
+in one stream in the order of a single pass, so the pieces change no value.
 """
 
 from __future__ import annotations
 
 import logging
+import os
 import time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -41,6 +45,7 @@ DEFAULT_PRIOR: dict[str, float] = {
 }
 MIN_RETURNS = 3  # fewer returns leave the posterior of sigma_u^2 without a mean
 LONG_RUN = 2_000_000  # security-months x sweeps above which progress is logged at INFO
+PIECE_MONTHS = 2048  # the fewest security-months a thread takes when a batch's sweeps run in pieces (see _Pieces)
 
 
 def draw_truncated_normal(mean: np.ndarray, sd: np.ndarray, uniform: np.ndarray) -> np.ndarray:
@@ -175,51 +180,64 @@ def sample_roll_model(
     dq = np.empty((L, M))  # work arrays of every sweep, allocated once
     u = np.empty((L, M))
     uniform = np.empty((L + 1, M))
+    c, beta, Sqq, ss = np.empty(M), np.empty(M) if use_market else None, np.empty(M), np.empty(M)
     long_run = M * sweeps >= LONG_RUN
     every = max(sweeps // 10, 1)
     started = time.perf_counter()
 
-    with np.errstate(over="ignore"):
+    def coefficients(cols: slice, uniform_c: np.ndarray, normal_b: np.ndarray | None) -> None:
+        """Steps 1 and 2 for the months ``cols``: c (and beta), then the sum of squared residuals sigma_u^2 is drawn from."""
+        dq_m, dp_m, s2 = dq[:, cols], dp[:, cols], sigma2[cols]
+        # 1. (c, beta) | q, sigma_u^2
+        np.subtract(Qp[2 : L + 2, cols], Qp[1 : L + 1, cols], out=dq_m)
+        dq_m *= V[:, cols]
+        Sqq[cols] = np.einsum("ij,ij->j", dq_m, dq_m)
+        Sqp = np.einsum("ij,ij->j", dq_m, dp_m)
+        if use_market:
+            rm_m = rm[:, cols]
+            Sqr = np.einsum("ij,ij->j", dq_m, rm_m)
+            P11 = prec_c0 + Sqq[cols] / s2
+            P12 = Sqr / s2
+            P22 = prec_b0 + Srr[cols] / s2
+            det = P11 * P22 - P12 * P12
+            r1 = prior_c + Sqp / s2
+            r2 = prior_b + Srp[cols] / s2
+            C11, C12, C22 = P22 / det, -P12 / det, P11 / det
+            m1 = C11 * r1 + C12 * r2
+            m2 = C12 * r1 + C22 * r2
+            c[cols] = draw_truncated_normal(m1, np.sqrt(C11), 1.0 - uniform_c[cols])
+            beta[cols] = m2 + C12 / C11 * (c[cols] - m1) + np.sqrt(np.maximum(C22 - C12 * C12 / C11, 0.0)) * normal_b[cols]
+        else:
+            prec = prec_c0 + Sqq[cols] / s2
+            c[cols] = draw_truncated_normal((prior_c + Sqp / s2) / prec, 1.0 / np.sqrt(prec), 1.0 - uniform_c[cols])
+        # 2. sigma_u^2 | c, beta, q (dq, dp and rm are zero on missing days): the sum of squared residuals
+        u_m = u[:, cols]
+        np.multiply(dq_m, c[cols], out=u_m)
+        np.subtract(dp_m, u_m, out=u_m)
+        if use_market:
+            u_m -= rm_m * beta[cols]
+        ss[cols] = np.einsum("ij,ij->j", u_m, u_m)
+        if use_market:  # the residuals of step 3 net of the market
+            Yp[1 : L + 1, cols] = dp_m - rm_m * beta[cols]
+            for block in blocks:
+                block.refresh(Yp, cols)
+
+    with _Pieces(M) as pieces, np.errstate(over="ignore"):
         for sweep in range(sweeps):
-            # 1. (c, beta) | q, sigma_u^2
-            np.subtract(Qp[2 : L + 2], Qp[1 : L + 1], out=dq)
-            dq *= V
-            Sqq = np.einsum("ij,ij->j", dq, dq)
-            Sqp = np.einsum("ij,ij->j", dq, dp)
+            # the sweep's random draws in the order of a single pass; the arithmetic between them by pieces of months
+            uniform_c = rng.random(M)
+            normal_b = rng.standard_normal(M) if use_market else None
+            pieces.run(coefficients, uniform_c, normal_b)
             if sweep >= burn:
                 stuck += Sqq == 0
-            if use_market:
-                Sqr = np.einsum("ij,ij->j", dq, rm)
-                P11 = prec_c0 + Sqq / sigma2
-                P12 = Sqr / sigma2
-                P22 = prec_b0 + Srr / sigma2
-                det = P11 * P22 - P12 * P12
-                r1 = prior_c + Sqp / sigma2
-                r2 = prior_b + Srp / sigma2
-                C11, C12, C22 = P22 / det, -P12 / det, P11 / det
-                m1 = C11 * r1 + C12 * r2
-                m2 = C12 * r1 + C22 * r2
-                c = draw_truncated_normal(m1, np.sqrt(C11), 1.0 - rng.random(M))
-                beta = m2 + C12 / C11 * (c - m1) + np.sqrt(np.maximum(C22 - C12 * C12 / C11, 0.0)) * rng.standard_normal(M)
-            else:
-                prec = prec_c0 + Sqq / sigma2
-                c = draw_truncated_normal((prior_c + Sqp / sigma2) / prec, 1.0 / np.sqrt(prec), 1.0 - rng.random(M))
-            # 2. sigma_u^2 | c, beta, q (dq, dp and rm are zero on missing days)
-            np.multiply(dq, c, out=u)
-            np.subtract(dp, u, out=u)
-            if use_market:
-                u -= rm * beta
-            ss = np.einsum("ij,ij->j", u, u)
             sigma2 = np.maximum((p["beta0"] + ss / 2.0) / rng.standard_gamma(shape), 1e-300)
             # 3. q | c, beta, sigma_u^2, in two blocks
-            if use_market:
-                Yp[1 : L + 1] = dp - rm * beta
-                for block in blocks:
-                    block.refresh(Yp)
             w = 2.0 * c / sigma2
             rng.random(out=uniform)  # the same stream as rng.random((L + 1, M)), without a new array each sweep
             for block in blocks:
-                block.draw(Qp, c, w, uniform, rng, guard)
+                pieces.run(block.draw, Qp, c, w, uniform)
+                if guard:
+                    block.guard(Qp, w, rng)
             if sweep >= burn:
                 out_c[sweep - burn] = c
                 out_s[sweep - burn] = np.sqrt(sigma2)
@@ -230,6 +248,44 @@ def sample_roll_model(
                 logger.log(level, "sweep %d of %d for %d security-months (%.1f s)", sweep + 1, sweeps, M,
                            time.perf_counter() - started)
     return RollDraws(half_spread=out_c, sigma_u=out_s, loading=out_b, stuck_sweeps=stuck)
+
+
+class _Pieces:
+    """The security-months cut into pieces, one per core the process may use, whose arithmetic runs in threads.
+
+    Within a sweep every step between two random draws is elementwise or per
+    month, so a piece's values are those of the whole batch, whatever the
+    pieces (numpy leaves the interpreter lock in its loops); the draws stay in
+    the sweep, in the order of one pass. A batch smaller than two pieces of
+    ``PIECE_MONTHS`` runs as one piece, in the calling thread.
+    """
+
+    def __init__(self, months: int):
+        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
+        count = max(1, min(cores, months // PIECE_MONTHS))
+        bounds = np.linspace(0, months, count + 1).round().astype(int)
+        self.pieces = [slice(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:])]
+        self.pool = ThreadPoolExecutor(count) if count > 1 else None
+
+    def __enter__(self) -> "_Pieces":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self.pool is not None:
+            self.pool.shutdown()
+
+    def run(self, task, *args) -> None:
+        """``task(piece, *args)`` on every piece, all done on return."""
+        if self.pool is None:
+            task(slice(None), *args)
+            return
+
+        def one(piece: slice) -> None:
+            with np.errstate(over="ignore"):  # the sweep's setting, in the pool's thread
+                task(piece, *args)
+
+        for _ in self.pool.map(one, self.pieces):  # raises a task's error
+            pass
 
 
 class _Block:
@@ -245,12 +301,13 @@ class _Block:
         self.parity, self.left, self.right, self.ahead, self.own = parity, left, right, ahead, own
         self.v_left, self.v_right, self.y_diff = v_left, v_right, y_diff
         self.connected, self.both = connected, both
-        self.n_both = both.sum(axis=0)
+        self.both_valid = both > 0
         self.at_risk_possible = connected.any(axis=0)
         self.position = np.arange(connected.shape[0])[:, None]
         self.work = np.empty(connected.shape)
         self.odds = np.empty(connected.shape)
         self.plus = np.empty(connected.shape, dtype=bool)
+        self.differ = np.empty(connected.shape, dtype=bool)
 
     @classmethod
     def build(cls, parity: int, L: int, Vp: np.ndarray, Yp: np.ndarray) -> "_Block":
@@ -262,42 +319,47 @@ class _Block:
         return cls(parity, left, right, ahead, own, v_left, v_right, Yp[left] - Yp[right],
                    (v_left + v_right) > 0, v_left * v_right)
 
-    def refresh(self, Yp: np.ndarray) -> None:
-        np.subtract(Yp[self.left], Yp[self.right], out=self.y_diff)
+    def refresh(self, Yp: np.ndarray, cols: slice) -> None:
+        np.subtract(Yp[self.left, cols], Yp[self.right, cols], out=self.y_diff[:, cols])
 
-    def draw(self, Qp, c, w, uniform, rng, guard: bool) -> None:
-        q_left, q_right = Qp[self.left], Qp[self.ahead]
-        log_odds, work = self.odds, self.work
-        # log P(q_k=+1)/P(q_k=-1) = w [y_{k-1} - y_k + c (q_{k-1} + q_{k+1})] over the valid residuals
-        np.multiply(self.v_left, q_left, out=log_odds)
-        np.multiply(self.v_right, q_right, out=work)
-        log_odds += work
-        log_odds *= c
-        log_odds += self.y_diff
-        log_odds *= w
-        # q_k = +1 with probability 1 / (1 + exp(-log_odds)), written straight into the state
-        np.negative(log_odds, out=work)
+    def draw(self, cols: slice, Qp, c, w, uniform) -> None:
+        """The free draw of the block's signs of the months ``cols`` (before the guard)."""
+        q_left, q_right = Qp[self.left, cols], Qp[self.ahead, cols]
+        odds, work, c, w = self.odds[:, cols], self.work[:, cols], c[cols], w[cols]
+        # log P(q_k=+1)/P(q_k=-1) = w [y_{k-1} - y_k + c (q_{k-1} + q_{k+1})] over the valid residuals;
+        # ``odds`` keeps the bracket, the log odds are odds * w
+        np.multiply(self.v_left[:, cols], q_left, out=odds)
+        np.multiply(self.v_right[:, cols], q_right, out=work)
+        odds += work
+        odds *= c
+        odds += self.y_diff[:, cols]
+        # q_k = +1 with probability 1 / (1 + exp(-log odds)), written straight into the state
+        np.multiply(odds, -w, out=work)  # -(odds * w), exactly
         np.exp(work, out=work)
         work += 1.0
-        work *= uniform[self.parity :: 2]
-        draw = Qp[self.own]
-        np.less(work, 1.0, out=self.plus)
-        np.multiply(self.plus, 2.0, out=draw)
+        work *= uniform[self.parity :: 2, cols]
+        plus = self.plus[:, cols]
+        np.less(work, 1.0, out=plus)
+        draw = Qp[self.own, cols]
+        np.multiply(plus, 2.0, out=draw)
         draw -= 1.0
-        if guard:
-            self._guard(draw, q_left, q_right, rng)
 
-    def _guard(self, draw, q_left, q_right, rng) -> None:
+    def guard(self, Qp, w, rng) -> None:
+        """Redraw the months whose free draw could make every valid dq zero (one draw for every month: in order)."""
+        self._guard(Qp[self.own], Qp[self.left], Qp[self.ahead], w, rng)
+
+    def _guard(self, draw, q_left, q_right, w, rng) -> None:
         """Redraw the months whose free draw could make every valid dq zero."""
-        agree = np.einsum("ij,ij,ij->j", self.both, q_left, q_right) == self.n_both
-        at_risk = self.at_risk_possible & agree
+        np.not_equal(q_left, q_right, out=self.differ)
+        self.differ &= self.both_valid
+        at_risk = self.at_risk_possible & ~self.differ.any(axis=0)  # every pair of valid neighbours agrees
         if not at_risk.any():
             return
         cols = np.flatnonzero(at_risk)
         conn = self.connected[:, cols]
         # The excluded value of each position: its valid neighbour's sign.
         excluded = np.where(self.v_left[:, cols] > 0, q_left[:, cols], q_right[:, cols])
-        lo = excluded * self.odds[:, cols]
+        lo = excluded * (self.odds[:, cols] * w[cols])
         log_stay = np.where(conn, -np.logaddexp(0.0, -lo), 0.0)  # log P(q_k = excluded value)
         log_leave = -np.logaddexp(0.0, lo)  # log P(q_k = the other value)
         before = np.cumsum(log_stay, axis=0) - log_stay

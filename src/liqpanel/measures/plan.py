@@ -63,7 +63,7 @@ from liqpanel.measures.neighbours import (FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_
 KEY = ["security", "month"]
 MONTH_ID = "_month_id"
 CONTEXTS = ("market_days",)
-BLOCK_ROWS = 500_000  # rows of the daily table a pass works on at once (see _blocks)
+BLOCK_ROWS = 131_072  # rows of the daily table a pass works on at once (see _blocks): its columns stay in cache
 LOGS = {"open": "_log_open", "high": "_log_high", "low": "_log_low", "close": "_log_close", "ret": "_log_return"}
 
 
@@ -284,6 +284,25 @@ def open_days_listed(base: pl.DataFrame, calendar: np.ndarray) -> pl.Series:
     return pl.Series("market_days", np.maximum(count, 0), dtype=pl.Int64)
 
 
+def _indicators(prepared: pl.DataFrame, levels: list[dict[str, pl.Expr]], sums: list[pl.Expr],
+                constants: dict[str, tuple[str, pl.Expr]]) -> set[int]:
+    """The positions in ``sums`` of the per-day quantities that are true/false indicators (their sums are counts).
+
+    Read off the schema of the pass on an empty slice of the table, the month
+    constants standing in as numbers.
+    """
+    empty = prepared.head(0).lazy().with_columns(pl.lit(None, dtype=pl.Float64).alias(name) for name in constants)
+    schema = with_steps(empty, levels).select(expr.alias(f"_{i}") for i, expr in enumerate(sums)).collect_schema()
+    return {i for i in range(len(sums)) if schema[f"_{i}"] == pl.Boolean}
+
+
+def _summand(expr: pl.Expr, indicator: bool) -> pl.Expr:
+    """A per-day quantity as the pass sums it: a null adds nothing; an indicator as a byte (0 or 1), else a float."""
+    if indicator:
+        return expr.fill_null(False).cast(pl.UInt8)
+    return expr.cast(pl.Float64).fill_null(0.0)
+
+
 def evaluate(
     prepared: pl.DataFrame, plans: dict[str, Plan], calendar=None
 ) -> tuple[pl.DataFrame, dict[str, pl.DataFrame]]:
@@ -310,16 +329,22 @@ def evaluate(
     # segment sum (numpy's reduceat, added in row order: the same digits on
     # every run, one column per thread of the polars pool) and the month's
     # keys are read off its first row.
+    levels = _steps(plans)
+    counts = _indicators(prepared, levels, sums, constants)
     quantities = [
-        *[sums[i].cast(pl.Float64).fill_null(0.0).alias(f"_sums{i}") for i in early],
+        *[_summand(sums[i], i in counts).alias(f"_sums{i}") for i in early],
         *[expr.alias(f"_lasts{i}") for i, expr in enumerate(lasts)],
     ]
-    levels = _steps(plans)
+
+    def segment_sum(column: np.ndarray, starts: np.ndarray) -> np.ndarray:
+        if column.dtype == np.uint8:  # an indicator: counted in integers (exact, as its float sum is), a byte a day
+            return np.add.reduceat(column, starts, dtype=np.int64).astype(np.float64)
+        return np.add.reduceat(column, starts)
 
     def segment_sums(values: pl.DataFrame, indices: list[int], starts: np.ndarray, pool) -> dict[int, np.ndarray]:
         if len(starts) == 0:  # no rows: reduceat needs at least one segment
             return {i: np.zeros(0) for i in indices}
-        return dict(zip(indices, pool.map(lambda i: np.add.reduceat(values[f"_sums{i}"].to_numpy(), starts), indices)))
+        return dict(zip(indices, pool.map(lambda i: segment_sum(values[f"_sums{i}"].to_numpy(), starts), indices)))
 
     def month_constants(totals: dict[int, np.ndarray], n_days: np.ndarray) -> pl.DataFrame:
         """The month constants of every plan that has them, one row per month of the slice."""
@@ -342,8 +367,11 @@ def evaluate(
         totals = segment_sums(values, early, starts, pool)
         if late:  # the month constants on every day of their month, then the sums that use them
             repeated = month_constants(totals, n_days).select(pl.all().gather(np.repeat(np.arange(len(starts)), n_days)))
-            second = pl.concat([values.select(late_inputs), repeated], how="horizontal").select(
-                *[sums[i].cast(pl.Float64).fill_null(0.0).alias(f"_sums{i}") for i in late])
+            second = (  # lazy: a sub-expression shared by several sums (EDGE's x1 in x1 and x1^2) is computed once
+                pl.concat([values.select(late_inputs), repeated], how="horizontal").lazy()
+                .select(*[_summand(sums[i], i in counts).alias(f"_sums{i}") for i in late])
+                .collect(engine="in-memory")
+            )
             totals.update(segment_sums(second, late, starts, pool))
         first = rows.select(*KEY, "date", FIRST_OF_MONTH).filter(pl.col(FIRST_OF_MONTH))
         monthly = first.select(
