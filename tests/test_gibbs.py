@@ -232,6 +232,32 @@ def test_no_chain_sticks():
     assert (guarded.half_spread.std(axis=0) > 0).all()
 
 
+@pytest.mark.parametrize("with_market", [False, True])
+def test_months_sampled_in_pieces_on_threads_give_the_same_draws(monkeypatch, with_market):
+    # A sweep's arithmetic is elementwise or per month and its random draws stay in one stream, so
+    # cutting the months into pieces run on threads must not move a single draw (bit for bit).
+    rng = np.random.default_rng(21)
+    market = rng.normal(0.0, 0.01, size=(21, 60)) if with_market else None
+    dp = roll_changes(0.01, 0.02, days=21, months=60, seed=21, loading=1.0 if with_market else None, market=market)
+    valid = np.ones(dp.shape, bool)
+    valid[3, ::7] = False  # some missing days, so the masks differ between pieces
+
+    def run():
+        return sample_roll_model(dp, valid, market, sweeps=120, burn=20, rng=np.random.default_rng(4))
+
+    monkeypatch.setattr(gibbs, "PIECE_MONTHS", 10**9)  # one piece, in the calling thread
+    whole = run()
+    monkeypatch.setattr(gibbs, "PIECE_MONTHS", 16)
+    monkeypatch.setattr(gibbs.os, "sched_getaffinity", lambda pid: set(range(3)), raising=False)
+    monkeypatch.delenv("POLARS_MAX_THREADS", raising=False)
+    assert len(gibbs._Pieces(60).pieces) == 3  # three pieces of 20 months, on three threads
+    pieces = run()
+    for name in ("half_spread", "sigma_u", "loading", "stuck_sweeps"):
+        a, b = getattr(whole, name), getattr(pieces, name)
+        assert (a is None and b is None) if not with_market and name == "loading" else \
+            np.array_equal(a, b, equal_nan=True), name
+
+
 def test_market_loading_recovered():
     # Hasbrouck (2009): dp_t = c dq_t + beta r_m,t + u_t. With beta = 1.5 and long
     # windows the posterior means recover beta and c.

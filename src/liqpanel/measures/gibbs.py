@@ -251,7 +251,8 @@ def sample_roll_model(
 
 
 class _Pieces:
-    """The security-months cut into pieces, one per core the process may use, whose arithmetic runs in threads.
+    """The security-months cut into pieces, one per core the process may use (at most the run's engine
+    threads), whose arithmetic runs in threads.
 
     Within a sweep every step between two random draws is elementwise or per
     month, so a piece's values are those of the whole batch, whatever the
@@ -262,6 +263,9 @@ class _Pieces:
 
     def __init__(self, months: int):
         cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
+        # no more than the run's engine threads (run.engine_threads, pinned for the process by liqpanel.core.runtime)
+        allowed = os.environ.get("POLARS_MAX_THREADS", "")
+        cores = min(cores, int(allowed)) if allowed.isdigit() and int(allowed) > 0 else cores
         count = max(1, min(cores, months // PIECE_MONTHS))
         bounds = np.linspace(0, months, count + 1).round().astype(int)
         self.pieces = [slice(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:])]
