@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import sys
+from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
+from contextlib import ExitStack, closing
 from typing import TYPE_CHECKING
 
 import polars as pl
@@ -11,7 +13,7 @@ import polars as pl
 from liqpanel import bars as bars_mod
 from liqpanel import ingest
 from liqpanel.config import shares_source
-from liqpanel.core.io import write_parquet
+from liqpanel.core.io import atomic_path, write_parquet
 from liqpanel.marketset import MARKET, daily_to_reporting, load_markets, several
 from liqpanel.stages.shared import _adjustments, _calendar_span, _month_start
 
@@ -61,13 +63,18 @@ def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = No
     return _read_daily(config or {}, path, mapping).daily.lazy()
 
 
-def _read_daily(config: dict, path: str | None = None, mapping: dict | None = None) -> "dailyfile.DailyRead":
+def _read_daily(config: dict, path: str | None = None, mapping: dict | None = None,
+                take: "Callable[[pl.DataFrame], None] | None" = None) -> "dailyfile.DailyRead":
+    """The daily file read whole, or with ``take`` in pieces (``dailyfile.read_daily_pieces``)."""
     from liqpanel import dailyfile
 
     layout = ingest.layout_of(config, "daily") if path is None else ingest.layout_from(
         "daily", path, mapping, (config.get("formats") or {}).get("daily"))
     sample = (config["sample"]["start"], config["sample"]["end"]) if "sample" in config else ("0001-01", "9999-12")
     adjustments = _adjustments(config) if config.get("inputs") else None
+    if take is not None:
+        return dailyfile.read_daily_pieces(layout, config.get("daily", {}), sample, adjustments, _open_days(config),
+                                           take)
     return dailyfile.read_daily(layout, config.get("daily", {}), sample, adjustments, _open_days(config))
 
 
@@ -89,15 +96,11 @@ def _open_days(config: dict) -> "dailyfile.OpenDays | None":
     return OpenDays(first, last, days if several(market) else days.drop(MARKET), market.get("_codes"))
 
 
-def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit: str, out_splits: str) -> None:
-    """The daily entry point: a user's own daily file read and checked once, written as month
-    partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
-    read = _read_daily(config)
-    daily = daily_to_reporting(read.daily.lazy(), config, load_markets(config)).collect() if config.get(
-        "markets") else read.daily
-    # one pass finds each month's rows, in the table's (security, date) order; a month is copied out
-    # only as it is written (not the whole table at once), and a month partition is only read whole
-    # by the next stages (lz4, no statistics: half the time to write)
+def _write_months(daily: pl.DataFrame, months: list[str], outs: list[str]) -> None:
+    """The month partitions of a whole daily table, in its (security, date) order."""
+    # one pass finds each month's rows; a month is copied out only as it is written (not the whole table
+    # at once), and a month partition is only read whole by the next stages (lz4, no statistics: half the
+    # time to write)
     rows = daily.select(pl.int_range(pl.len(), dtype=pl.UInt32).alias("_row"), "month").group_by(
         "month", maintain_order=True).agg("_row")
     rows = dict(zip(rows.get_column("month").to_list(), rows.get_column("_row")))
@@ -108,6 +111,66 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
 
     with ThreadPoolExecutor(2) as pool:  # the writer releases the interpreter's lock
         list(pool.map(write, months, outs))
+
+
+class _MonthWriters:
+    """Month partitions written a piece at a time: each piece of a daily table in key order (one after
+    another) adds a row group to the partition of each of its months; a month without rows is written
+    empty at the end. Inside ``with``: a partition is moved into place only when every piece is written
+    (``atomic_path``)."""
+
+    def __init__(self, months: list[str], outs: list[str]) -> None:
+        self.outs = {_month_start(m): out for m, out in zip(months, outs, strict=True)}
+        self.writers: dict = {}
+        self.schema = None
+        self.stack = ExitStack()
+
+    def __enter__(self) -> "_MonthWriters":
+        self.stack.__enter__()
+        return self
+
+    def add(self, piece: pl.DataFrame, pool: ThreadPoolExecutor) -> None:
+        import pyarrow.parquet as pq
+
+        self.schema = piece.schema
+        parts = piece.partition_by("month", as_dict=True, maintain_order=True)
+        for (month,), rows in parts.items():
+            if month not in self.writers:
+                tmp = self.stack.enter_context(atomic_path(self.outs[month]))
+                # as ``write_parquet(..., passing=True)`` writes (read whole by the next stages only); no
+                # dictionaries, which prices and volumes do not repeat enough to pay for
+                writer = pq.ParquetWriter(tmp, rows.to_arrow(compat_level=pl.CompatLevel.newest()).schema,
+                                          compression="lz4", write_statistics=False, use_dictionary=False)
+                self.writers[month] = self.stack.enter_context(closing(writer))
+        list(pool.map(lambda item: self.writers[item[0][0]].write_table(
+            item[1].to_arrow(compat_level=pl.CompatLevel.newest())), parts.items()))
+
+    def __exit__(self, *failed) -> None:
+        if failed[0] is None:
+            for month, out in self.outs.items():
+                if month not in self.writers:
+                    write_parquet(pl.DataFrame(schema=self.schema), out, passing=True)
+        self.stack.__exit__(*failed)
+
+
+def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit: str, out_splits: str) -> None:
+    """The daily entry point: a user's own daily file read and checked once, written as month
+    partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
+    from liqpanel.dailyfile import NotInPieces
+
+    market = load_markets(config) if config.get("markets") else None
+
+    def reporting(daily: pl.DataFrame) -> pl.DataFrame:
+        return daily if market is None else daily_to_reporting(daily.lazy(), config, market).collect()
+
+    try:
+        # a file in key order is read a piece at a time, each piece's months added to their partitions:
+        # the job never holds the whole file
+        with _MonthWriters(months, outs) as writers, ThreadPoolExecutor(2) as pool:
+            read = _read_daily(config, take=lambda piece: writers.add(reporting(piece), pool))
+    except NotInPieces:
+        read = _read_daily(config)
+        _write_months(reporting(read.daily), months, outs)
     write_parquet(read.audit, out_audit)
     splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
     write_parquet(splits, out_splits)
