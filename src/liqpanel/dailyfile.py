@@ -59,7 +59,7 @@ REQUIRED = ("open", "high", "low", "close", "volume")
 OPTIONAL = ("dollar_volume", "n_trades", "ret", "shares_out", "mkt_ret")
 SPEC = ingest.Spec("daily file", dates=("date",), numeric=REQUIRED, optional_numeric=OPTIONAL)
 MISSING_SECURITY = "(missing)"
-PIECE_ROWS = 2_000_000  # rows of a daily file read at a time (``read_daily_pieces``)
+PIECE_ROWS = 1_000_000  # rows of a daily file read at a time (``read_daily_pieces``)
 # price ratios of common splits (new shares per old share) and reverse splits
 SPLIT_RATIOS = (1.5, 2.0, 3.0, 4.0, 5.0, 10.0, 1 / 2, 1 / 3, 1 / 4, 1 / 5, 1 / 10)
 

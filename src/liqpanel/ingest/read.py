@@ -109,26 +109,28 @@ def _expressions(spec: Spec, numbers: list[str], schema: pl.Schema, layout: Layo
 def _parse(lf: pl.LazyFrame, spec: Spec, parsed: dict[str, pl.Expr], floats: list[str], index: int,
            schema: pl.Schema) -> pl.LazyFrame:
     """One file's query of its frame with the helper columns (``read_frame``)."""
+    # a number stored as a number (or parsed as the CSV is read) always converts: only the others are checked
+    checked = [c for c in parsed if not (c in floats and schema[c].is_numeric())]
     present = {
         c: pl.col(f"_raw_{c}").is_not_null() & (pl.col(f"_raw_{c}").str.strip_chars() != "")
         if schema[c] == pl.String else pl.col(f"_raw_{c}").is_not_null()
-        for c in parsed
+        for c in checked
     }
     return (
             lf.with_row_index("_row")
             .select(
                 pl.lit(index, dtype=pl.Int32).alias("_file"), pl.col("_row").cast(pl.Int64),
                 *[pl.col(c).cast(pl.String).str.strip_chars().alias(c) for c in spec.text],
-                *[pl.col(c).alias(f"_raw_{c}") for c in parsed],
+                *[pl.col(c).alias(f"_raw_{c}") for c in checked],
                 *[expr.alias(c) for c, expr in parsed.items()],
             )
             .with_columns(
-                *[(present[c] & pl.col(c).is_null()).alias(f"_bad_{c}") for c in parsed],
+                *[(present[c] & pl.col(c).is_null()).alias(f"_bad_{c}") for c in checked],
                 *[(pl.col(c).is_not_null() & ~pl.col(c).is_finite()).alias(f"_inf_{c}") for c in floats],
             )
             .with_columns(
-                _first([(pl.col(f"_bad_{c}"), pl.lit(c)) for c in parsed]).alias("_bad"),
-                _first([(pl.col(f"_bad_{c}"), pl.col(f"_raw_{c}").cast(pl.String)) for c in parsed]).alias("_value"),
+                _first([(pl.col(f"_bad_{c}"), pl.lit(c)) for c in checked]).alias("_bad"),
+                _first([(pl.col(f"_bad_{c}"), pl.col(f"_raw_{c}").cast(pl.String)) for c in checked]).alias("_value"),
                 _first([(pl.col(f"_inf_{c}"), pl.lit(c)) for c in floats]).alias("_nonfinite"),
                 *[pl.when(pl.col(f"_inf_{c}")).then(None).otherwise(pl.col(c)).alias(c) for c in floats],
             )
