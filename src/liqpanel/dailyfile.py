@@ -441,7 +441,7 @@ def read_daily_pieces(layout: ingest.Layout, settings: dict, sample: tuple[str, 
 
     def piece(frame: pl.DataFrame) -> None:
         nonlocal last
-        keys = frame.filter(_live()).select("security", "date")
+        keys = frame.select("security", "date").filter(_live_in(frame))
         if keys.height:
             first = keys.row(0)
             if not in_key_order(keys) or (last is not None and first <= last):
@@ -483,9 +483,13 @@ def _piece_end(frame: pl.DataFrame, rows: int) -> int | None:
     begins a security (None: no such row yet). The pieces depend on the file alone, not on how it is read."""
     if frame.height <= rows:
         return None
-    live = frame.with_row_index("_i").filter(_live())
+    live = frame.select(pl.int_range(pl.len(), dtype=pl.UInt32).alias("_i"), "security").filter(_live_in(frame))
     starts = live.filter(pl.col("security").ne_missing(pl.col("security").shift(1)) & (pl.col("_i") >= rows))
     return int(starts.item(0, "_i")) if starts.height else None
+
+
+def _live_in(frame: pl.DataFrame) -> pl.Series:
+    return frame.select(_live()).to_series()
 
 
 def _check_key(daily: pl.DataFrame) -> None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import ExitStack, closing
 from typing import TYPE_CHECKING
 
@@ -117,39 +117,55 @@ class _MonthWriters:
     """Month partitions written a piece at a time: each piece of a daily table in key order (one after
     another) adds a row group to the partition of each of its months; a month without rows is written
     empty at the end. Inside ``with``: a partition is moved into place only when every piece is written
-    (``atomic_path``)."""
+    (``atomic_path``). A piece is written by a thread of its own while the next one is read (the writer
+    releases the interpreter's lock), one piece at a time."""
 
     def __init__(self, months: list[str], outs: list[str]) -> None:
         self.outs = {_month_start(m): out for m, out in zip(months, outs, strict=True)}
         self.writers: dict = {}
         self.schema = None
         self.stack = ExitStack()
+        self.pending: Future | None = None
 
     def __enter__(self) -> "_MonthWriters":
         self.stack.__enter__()
+        self.thread = self.stack.enter_context(ThreadPoolExecutor(1))
         return self
 
-    def add(self, piece: pl.DataFrame, pool: ThreadPoolExecutor) -> None:
+    def add(self, piece: pl.DataFrame) -> None:
+        self._wait()
+        self.schema = piece.schema
+        self.pending = self.thread.submit(self._write, piece)
+
+    def _wait(self) -> None:
+        if self.pending is not None:
+            pending, self.pending = self.pending, None
+            pending.result()
+
+    def _write(self, piece: pl.DataFrame) -> None:
         import pyarrow.parquet as pq
 
-        self.schema = piece.schema
-        parts = piece.partition_by("month", as_dict=True, maintain_order=True)
-        for (month,), rows in parts.items():
+        for (month,), rows in piece.partition_by("month", as_dict=True, maintain_order=True).items():
+            table = rows.to_arrow(compat_level=pl.CompatLevel.newest())
             if month not in self.writers:
                 tmp = self.stack.enter_context(atomic_path(self.outs[month]))
                 # as ``write_parquet(..., passing=True)`` writes (read whole by the next stages only); no
                 # dictionaries, which prices and volumes do not repeat enough to pay for
-                writer = pq.ParquetWriter(tmp, rows.to_arrow(compat_level=pl.CompatLevel.newest()).schema,
-                                          compression="lz4", write_statistics=False, use_dictionary=False)
+                writer = pq.ParquetWriter(tmp, table.schema, compression="lz4", write_statistics=False,
+                                          use_dictionary=False)
                 self.writers[month] = self.stack.enter_context(closing(writer))
-        list(pool.map(lambda item: self.writers[item[0][0]].write_table(
-            item[1].to_arrow(compat_level=pl.CompatLevel.newest())), parts.items()))
+            self.writers[month].write_table(table)
 
     def __exit__(self, *failed) -> None:
-        if failed[0] is None:
-            for month, out in self.outs.items():
-                if month not in self.writers:
-                    write_parquet(pl.DataFrame(schema=self.schema), out, passing=True)
+        try:
+            self._wait()
+            if failed[0] is None:
+                for month, out in self.outs.items():
+                    if month not in self.writers:
+                        write_parquet(pl.DataFrame(schema=self.schema), out, passing=True)
+        except BaseException:
+            self.stack.__exit__(*sys.exc_info())  # the partitions begun are removed
+            raise
         self.stack.__exit__(*failed)
 
 
@@ -166,8 +182,8 @@ def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit:
     try:
         # a file in key order is read a piece at a time, each piece's months added to their partitions:
         # the job never holds the whole file
-        with _MonthWriters(months, outs) as writers, ThreadPoolExecutor(2) as pool:
-            read = _read_daily(config, take=lambda piece: writers.add(reporting(piece), pool))
+        with _MonthWriters(months, outs) as writers:
+            read = _read_daily(config, take=lambda piece: writers.add(reporting(piece)))
     except NotInPieces:
         read = _read_daily(config)
         _write_months(reporting(read.daily), months, outs)
