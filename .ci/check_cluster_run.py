@@ -82,7 +82,7 @@ def check_job_count(cluster: Path, jobs: int) -> None:
     """One job per span and span stage, one per whole-sample stage: nothing per month."""
     from liqpanel.config import load_config
     from liqpanel.core.io import month_range
-    from liqpanel.partition import spans
+    from liqpanel.core.partition import spans
 
     config = load_config(cluster / "config" / "config.yaml")
     months = month_range(config["sample"]["start"], config["sample"]["end"])

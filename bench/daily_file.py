@@ -4,7 +4,7 @@ An invented market of ``--securities`` securities over ``--years`` years of
 weekdays (a random walk, written as a vendor CSV with YYYYMMDD integer
 dates) is read three ways, each timed on its own:
 
-- ours: ``liqpanel.dailyfile.read_daily`` once (every value converted and
+- ours: ``liqpanel.bars.daily_file.read_daily`` once (every value converted and
   checked, every row audited, returns computed), then one filter per month;
 - per month: what a workflow with one daily job per month costs when each
   job scans the whole file and keeps its month (no checks, no audit);
@@ -61,7 +61,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--seed", type=int, default=20240101)
     args = parser.parse_args(argv)
 
-    from liqpanel import dailyfile, ingest
+    from liqpanel import ingest
+    from liqpanel.bars import daily_file as dailyfile
     from liqpanel.core.io import month_range
 
     with tempfile.TemporaryDirectory() as tmp:

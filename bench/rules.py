@@ -44,8 +44,14 @@ BASE_REF = "5527aae"  # the span jobs before they were made faster
 
 JOB = r"""
 import json, os, sys
-from liqpanel import stages
 from liqpanel.config import load_config
+try:  # each stage's job module, called with the config sections it reads
+    from liqpanel.bars.job import run_bars, run_bars_month
+    from liqpanel.clean.job import run_clean
+    from liqpanel.core.settings import for_job
+    stages = None
+except ImportError:  # a commit with every job in one module of jobs
+    from liqpanel import stages
 spec = json.loads(sys.argv[1])
 try:  # as the workflow checks the config in a job's own process (liqpanel/workflow/rules/common.smk)
     from liqpanel.config import read_config, validate_config
@@ -53,15 +59,24 @@ try:  # as the workflow checks the config in a job's own process (liqpanel/workf
 except (ImportError, TypeError):  # a commit that checks the config in full in every job
     config = load_config(spec["config"])
 paths = {k: [os.path.join(spec["out"], f"{k}-{m}.parquet") for m in spec["months"]] for k in ("trades", "audit", "quotes", "bars")}
-if len(spec["stages"]) == 2 and hasattr(stages, "trades_span"):  # a span job as the workflow runs it
-    stages.trades_span(config, spec["months"], paths)
+if len(spec["stages"]) == 2 and (stages is None or hasattr(stages, "trades_span")):  # a span job as the workflow runs it
+    if stages is None:
+        run_bars(spec["months"], paths, **for_job(config, run_bars))
+    else:
+        stages.trades_span(config, spec["months"], paths)
     spec["months"] = []
 for month in spec["months"]:
     p = {k: os.path.join(spec["out"], f"{k}-{month}.parquet") for k in ("trades", "audit", "quotes", "bars")}
     if "clean" in spec["stages"]:
-        stages.clean_month(config, month, p["trades"], p["audit"], p["quotes"])
+        if stages is None:
+            run_clean(month, p["trades"], p["audit"], p["quotes"], **for_job(config, run_clean))
+        else:
+            stages.clean_month(config, month, p["trades"], p["audit"], p["quotes"])
     if "bars" in spec["stages"]:
-        stages.bars_month(p["trades"], p["bars"], config, p["quotes"])
+        if stages is None:
+            run_bars_month(p["trades"], p["bars"], p["quotes"], **for_job(config, run_bars_month))
+        else:
+            stages.bars_month(p["trades"], p["bars"], config, p["quotes"])
 used = os.times()
 print(used.user + used.system)
 """
@@ -129,7 +144,7 @@ def main(argv: list[str] | None = None) -> None:
 
     from liqpanel.config import load_config
     from liqpanel.core.io import month_range
-    from liqpanel.partition import spans
+    from liqpanel.core.partition import spans
 
     with tempfile.TemporaryDirectory(prefix="liqpanel-bench-rules-") as tmp:
         root = Path(tmp)

@@ -103,18 +103,25 @@ def config_for(trades: Path, n_months: int) -> dict:
 
 def job_main(spec: dict) -> None:
     """Run one stage of one span (the body of one workflow job) and print its seconds."""
-    from liqpanel import stages
-
-    config = json.loads(Path(spec["config"]).read_text()) if spec.get("config") else None
-    start = time.process_time()
     paths, stage = spec.get("paths", {}), spec["stage"]
-    if stage == "trades":
-        stages.trades_span(config, spec["months"], {k: paths[k] for k in ("trades", "audit", "quotes", "bars")})
+    if stage in ("trades", "start"):  # the start: what a clean + bars job costs before its work
+        from liqpanel.bars.job import run_bars as job
     elif stage == "daily":
-        stages.daily_span(config, paths["bars"], spec.get("previous_bars"), paths["daily"])
+        from liqpanel.bars.daily_job import run_daily as job
     elif stage == "measures":
-        stages.measures_span(config, paths["daily"], spec.get("previous_daily"), paths["measures"])
-    elif stage == "start":  # nothing: what a job costs before its work
+        from liqpanel.measures.job import run_measures as job
+    if stage in ("trades", "daily", "measures", "start"):
+        from liqpanel.core.settings import for_job
+
+        sections = for_job(json.loads(Path(spec["config"]).read_text()), job) if spec.get("config") else {}
+    start = time.process_time()
+    if stage == "trades":
+        job(spec["months"], {k: paths[k] for k in ("trades", "audit", "quotes", "bars")}, **sections)
+    elif stage == "daily":
+        job(paths["bars"], spec.get("previous_bars"), paths["daily"], **sections)
+    elif stage == "measures":
+        job(paths["daily"], spec.get("previous_daily"), paths["measures"], **sections)
+    elif stage == "start":
         pass
     elif stage == "pandas":
         pandas_monthly(spec["trades"], spec["months"]).to_parquet(spec["out"])
@@ -155,7 +162,7 @@ def run_job(spec: dict, threads: int) -> dict:
 
 
 def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int, span: int) -> dict:
-    from liqpanel.partition import spans
+    from liqpanel.core.partition import spans
 
     config = config_for(trades, n_months)
     config_path = work / "config.json"
@@ -201,7 +208,7 @@ def run_market(trades: Path, n_months: int, work: Path, jobs: int, threads: int,
 
 def job_plan(years: int, span: int) -> tuple[int, int]:
     """(jobs planned, jobs at one per month and stage) for ``years`` of data, as the workflow plans them."""
-    from liqpanel.partition import spans
+    from liqpanel.core.partition import spans
 
     months = month_list(12 * years)
     whole = 7  # audit, monthly table, panel, models, factors, study, report
@@ -333,7 +340,7 @@ def table(results: dict[int, dict], baselines: dict[int, dict], args, start: dic
         f"Trades per CPU second of clean + bars (start-up included) against the pandas script: {ratios}.",
         f"pandas at {min(baselines)}x: {b['peak_mb'] / largest_one:.2f}x the peak memory of liqpanel's largest job; "
         f"same results (largest relative difference: Roll {b['diff_roll']:.1e}, Amihud {b['diff_amihud']:.1e}).",
-        f"Start-up of a job process (Python, polars, liqpanel.stages): {start['process_cpu']:.2f} CPU-s, "
+        f"Start-up of a clean + bars job process (Python, polars, its stage modules): {start['process_cpu']:.2f} CPU-s, "
         f"{start['peak_mb']:.0f} MB. Jobs planned: {plans}.",
         f"Trade files in {args.order} order. Machine: {machine()}.",
     ]

@@ -10,10 +10,11 @@ from datetime import date
 import polars as pl
 import pytest
 
-from liqpanel import stages
 from liqpanel.bars import add_returns
 from liqpanel.core.errors import InputError
-from liqpanel.readers import read_adjustments
+from liqpanel.clean.reading import read_adjustments
+from liqpanel.bars.daily_job import run_daily_month
+from liqpanel.core.settings import for_job
 
 
 def _bars(closes, days):
@@ -70,5 +71,6 @@ def test_daily_stage_applies_the_configured_file(tmp_path):
     bars.write_parquet(tmp_path / "bars.parquet")
     (tmp_path / "events.csv").write_text("security,date,split_ratio\nX,2021-03-02,2\n")
     config = {"inputs": {"adjustments": str(tmp_path / "events.csv")}, "columns": {"adjustments": {}}}
-    stages.daily_month(str(tmp_path / "bars.parquet"), None, str(tmp_path / "daily.parquet"), config)
+    run_daily_month(str(tmp_path / "bars.parquet"), None, str(tmp_path / "daily.parquet"),
+        **for_job(config, run_daily_month))
     assert pl.read_parquet(tmp_path / "daily.parquet")["ret"][1] == pytest.approx(-0.02)

@@ -22,10 +22,14 @@ import polars as pl
 import pytest
 import yaml
 
-from liqpanel import cli, dailyfile, ingest
+from liqpanel import cli, ingest
+from liqpanel.bars import daily_file as dailyfile
 from liqpanel.panel import coverage, read_characteristics, read_monthly_returns
-from liqpanel.stages import clean_month, read_daily_file
 from liqpanel.config import validate_config
+from liqpanel.bars.daily_job import read_daily_file
+from liqpanel.clean.job import run_clean
+from liqpanel.clean.job import check_inputs
+from liqpanel.core.settings import for_job
 
 REPO = Path(__file__).resolve().parents[1]
 # a vendor layout of our own: the user's names on the left, ours on the right
@@ -104,7 +108,7 @@ def test_a_given_date_format_reads_day_first_dates(tmp_path):
     rows = [(r[0], f"{r[1][6:]}/{r[1][4:6]}/{r[1][:4]}", *r[2:]) for r in _days()]
     _write_daily(tmp_path / "daily.csv", rows)
     config = validate_config(yaml.safe_load(_config(tmp_path, formats={"daily": {"date_format": "%d/%m/%Y"}}).read_text()))
-    daily = read_daily_file(config["inputs"]["daily"], DAILY_MAP, config).collect()
+    daily = read_daily_file(config["inputs"]["daily"], DAILY_MAP, **for_job(config, read_daily_file)).collect()
     # 04/01/2021 with "%d/%m/%Y" is 4 January 2021 (strftime, common practice)
     assert str(daily["date"].min()) == "2021-01-04"
 
@@ -529,7 +533,7 @@ def test_nan_trade_price_is_a_missing_field_in_the_audit(tmp_path, kind):
         frame.write_parquet(path)
         assert frame["PX"].is_nan().sum() == 1
     config = validate_config(yaml.safe_load(_trade_config(tmp_path, path, clean={"outliers": None}).read_text()))
-    clean_month(config, "2021-03", str(tmp_path / "c.parquet"), str(tmp_path / "a.parquet"))
+    run_clean("2021-03", str(tmp_path / "c.parquet"), str(tmp_path / "a.parquet"), **for_job(config, run_clean))
     audit = pl.read_parquet(tmp_path / "a.parquet").filter(pl.col("table") == "trades")
     assert audit["rows_read"].sum() == 8 and audit["drop_missing_field"].sum() == 1 and audit["rows_kept"].sum() == 7
     assert pl.read_parquet(tmp_path / "c.parquet")["price"].is_nan().sum() == 0
@@ -544,7 +548,7 @@ def test_truncated_gzip_trade_file_names_the_file(tmp_path, capsys):
 
 
 def test_time_format_and_separator_of_a_trade_file(tmp_path):
-    from liqpanel.readers import TRADES_SPEC, read_table
+    from liqpanel.clean.reading import TRADES_SPEC, read_table
 
     (tmp_path / "t.csv").write_text("SYM|DAY|CLOCK|PX|QTY\nQOLM|03/01/2021|10h30m05|10.5|100\n")
     mapping = {"SYM": "security", "DAY": "date", "CLOCK": "time", "PX": "price", "QTY": "size"}
@@ -575,13 +579,11 @@ def test_a_day_before_the_sample_gives_the_first_return_its_previous_close(tmp_p
 
 
 def test_unparseable_rows_dropped_by_policy_do_not_stop_the_check(tmp_path):
-    from liqpanel.stages import check_inputs
-
     rows = _days()
     rows[3] = (rows[3][0], "someday", *rows[3][2:])
     _write_daily(tmp_path / "daily.csv", rows)
     config = validate_config(yaml.safe_load(_config(tmp_path, daily={"unparseable": "drop"}).read_text()))
-    check_inputs(config)  # no error: the row is dropped and counted by the daily job
+    check_inputs(**for_job(config, check_inputs))  # no error: the row is dropped and counted by the daily job
     assert cli.main(["check-config", str(tmp_path / "config.yaml")]) == 0  # nor from the pre-flight check
     t = _totals(_read(tmp_path / "daily.csv", _settings(unparseable="drop")).audit)
     assert (t["drop_unparseable"], t["rows_kept"]) == (1, 199)
@@ -598,7 +600,8 @@ def test_nan_trade_price_with_quotes_is_a_missing_field_not_outside_quotes(tmp_p
                  "quotes": {"SYM": "security", "STAMP": "ts", "BID": "bid", "ASK": "ask"}},
     ).read_text()))
     config["inputs"]["quotes"] = str(tmp_path / "q.csv")
-    clean_month(config, "2021-03", str(tmp_path / "c.parquet"), str(tmp_path / "a.parquet"), str(tmp_path / "cq.parquet"))
+    run_clean("2021-03", str(tmp_path / "c.parquet"), str(tmp_path / "a.parquet"), str(tmp_path / "cq.parquet"),
+        **for_job(config, run_clean))
     audit = pl.read_parquet(tmp_path / "a.parquet").filter(pl.col("table") == "trades")
     assert (audit["drop_missing_field"].sum(), audit["drop_outside_quotes"].sum(), audit["rows_kept"].sum()) == (1, 0, 7)
 

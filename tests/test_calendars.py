@@ -21,6 +21,9 @@ from liqpanel.cli import main
 from liqpanel.core.errors import ConfigError
 from liqpanel.markets import check_market, for_sample, session_index, tick_expr, trading_days
 from liqpanel.measures import compute
+from liqpanel.bars.daily_job import _read_daily
+from liqpanel.core.settings import for_job
+from liqpanel.measures.job import run_measures_month
 
 xc = pytest.importorskip("exchange_calendars")
 # The library's pandas idioms warn under newer pandas; its values are what is compared.
@@ -306,8 +309,6 @@ def test_an_unquoted_date_that_is_no_date_names_the_profile(tmp_path):
 
 
 def test_the_measures_job_takes_the_calendar_and_the_tick_regimes_from_the_profile(tmp_path):
-    from liqpanel.stages import measures_month
-
     profile = tmp_path / "my_market.yaml"
     profile.write_text(yaml.safe_dump({**HOLIDAY_PROFILE, "tick_size": [{"from": "2023-01-01", "tick": 0.01}]}))
     traded = [d for d in OPEN if d != date(2023, 1, 18)]
@@ -321,7 +322,7 @@ def test_the_measures_job_takes_the_calendar_and_the_tick_regimes_from_the_profi
     config = {"market": str(profile), "sample": {"start": "2023-01", "end": "2023-01"},
               "measures": {"zero_return_share": {"min_days": 1}, "cs_spread": {"min_days": 1},
                            "effective_tick": {"min_days": 1}}}
-    measures_month(config, str(path), None, str(out))
+    run_measures_month(str(path), None, str(out), **for_job(config, run_measures_month))
     monthly = pl.read_parquet(out)
     # As in the tests above: one open day without a trade among 8 days with a return; 6 of 7 pairs kept.
     assert monthly["zero_return_share"].item() == pytest.approx(1 / 8)
@@ -365,8 +366,6 @@ def test_the_study_calibrates_its_window_on_the_calendar():
 
 
 def test_daily_rows_on_closed_days_are_dropped_and_counted(tmp_path):
-    from liqpanel.stages import daily_jobs as stages
-
     profile = tmp_path / "isle.yaml"
     profile.write_text(yaml.safe_dump({"name": "Isle (invented)", "timezone": "UTC", "sessions": [["09:00", "17:00"]],
                                        "holidays": ["2023-01-16"]}))
@@ -375,7 +374,7 @@ def test_daily_rows_on_closed_days_are_dropped_and_counted(tmp_path):
     (tmp_path / "daily.csv").write_text("security,date,open,high,low,close,volume\n" + rows)
     config = {"sample": {"start": "2023-01", "end": "2023-01"}, "market": str(profile),
               "inputs": {"daily": str(tmp_path / "daily.csv")}, "columns": {}}
-    read = stages._read_daily(config)
+    read = _read_daily(**for_job(config, _read_daily))
     assert read.daily["date"].cast(pl.String).to_list() == ["2023-01-12", "2023-01-13", "2023-01-17"]
     audit = read.audit.row(0, named=True)
     assert (audit["rows_read"], audit["rows_kept"], audit["drop_closed_day"]) == (5, 3, 2)

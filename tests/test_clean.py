@@ -13,10 +13,11 @@ import numpy as np
 import polars as pl
 import pytest
 
-from liqpanel import stages
 from liqpanel.bars import daily_bars
 from liqpanel.clean import QUOTE_RULES, RULES, TRADE_RULES, check_conservation, clean_trades
 from liqpanel.config import load_market, validate_config
+from liqpanel.clean.job import run_clean
+from liqpanel.core.settings import for_job
 
 NEW_YORK = ZoneInfo("America/New_York")
 MARKET = load_market("demo")  # America/New_York, one session 09:10-15:40
@@ -118,7 +119,7 @@ def _clean_all(folder, cfg):
     out = {}
     for month in ("2021-01", "2021-02"):
         paths = [folder / f"{month}-{name}.parquet" for name in ("trades", "audit", "quotes")]
-        stages.clean_month(cfg, month, *map(str, paths))
+        run_clean(month, *map(str, paths), **for_job(cfg, run_clean))
         out[month] = [pl.read_parquet(p) for p in paths]
     trades = pl.concat([v[0] for v in out.values()])
     audit = pl.concat([v[1] for v in out.values()])

@@ -9,9 +9,9 @@ import pytest
 
 import liqpanel
 from liqpanel.cli import main, parser
-from liqpanel.environment import compare_versions, installed_versions, manifest_versions, versions_text
+from liqpanel.cli.environment import compare_versions, installed_versions, manifest_versions, versions_text
 from liqpanel.core.errors import InputError
-from liqpanel.progress import follow
+from liqpanel.cli.progress import follow
 
 
 def test_version_is_printed_by_both_entry_points():

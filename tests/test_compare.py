@@ -17,7 +17,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from liqpanel.cli import main
-from liqpanel.compare import Tolerance, check_table, check_tables, row_key, summary_text, write_check_report
+from liqpanel.report.compare import Tolerance, check_table, check_tables, row_key, summary_text, write_check_report
 from liqpanel.core.errors import InputError
 
 # Invented tables in the layouts the report stage writes.

@@ -9,7 +9,9 @@ import yaml
 from liqpanel.bars import daily_bars
 from liqpanel.core.errors import InputError
 from liqpanel.measures import compute_monthly
-from liqpanel.stages import read_daily_file
+from liqpanel.bars.daily_job import read_daily_file, run_daily_file
+from liqpanel.core.settings import for_job, settings_of
+from liqpanel.measures.job import MEASURES_BLOCK_ROWS, measures_block_rows, run_measures_table
 
 REPO = Path(__file__).resolve().parents[1]
 MAPPING = yaml.safe_load((REPO / "config" / "daily_example.yaml").read_text())["columns"]["daily"]
@@ -97,7 +99,6 @@ def _daily_example_config(tmp_path: Path, measures: dict) -> dict:
 def test_months_measured_in_blocks_have_the_values_of_months_measured_alone(tmp_path):
     # a daily file's measures job measures consecutive months in one call; for the measures it does
     # that for, the table must be the one measured month by month, to the last bit
-    from liqpanel import stages
     from liqpanel.core.io import month_range
 
     blockwise = {name: {} for name in (
@@ -105,12 +106,14 @@ def test_months_measured_in_blocks_have_the_values_of_months_measured_alone(tmp_
         "limit_days", "ps_gamma", "turnover", "vol_close", "vol_garman_klass", "vol_parkinson",
         "vol_rogers_satchell", "vol_yang_zhang")} | {"roll_spread": {"convention": "missing"}}
     config = _daily_example_config(tmp_path, blockwise)
-    assert stages.measures_block_rows(config) == stages.MEASURES_BLOCK_ROWS
+    assert measures_block_rows(settings_of(config).measures) == MEASURES_BLOCK_ROWS
     months = month_range(config["sample"]["start"], config["sample"]["end"])
     daily = [str(tmp_path / "work" / f"daily-{m}.parquet") for m in months]
-    stages.daily_from_file(config, months, daily, str(tmp_path / "audit.parquet"), str(tmp_path / "splits.parquet"))
+    run_daily_file(months, daily, str(tmp_path / "audit.parquet"), str(tmp_path / "splits.parquet"),
+        **for_job(config, run_daily_file))
     for label, rows in (("alone", 0), ("blocks", 5_000), ("whole", 10**9)):
-        stages.measures_table(config, daily, None, str(tmp_path / f"{label}.parquet"), block_rows=rows)
+        run_measures_table(daily, None, str(tmp_path / f"{label}.parquet"), block_rows=rows,
+            **for_job(config, run_measures_table))
     alone = pl.read_parquet(tmp_path / "alone.parquet").sort("security", "month")
     assert alone.height == 48 * 24  # 48 securities, 24 months (demo_data/README.md)
     for label in ("blocks", "whole"):
@@ -120,8 +123,7 @@ def test_months_measured_in_blocks_have_the_values_of_months_measured_alone(tmp_
 def test_measures_that_depend_on_the_months_measured_with_them_go_month_by_month(tmp_path):
     # the Gibbs sampler draws from one random stream for every month it estimates; the share of zero
     # returns counts the market's days within each security's listed span (liqpanel.measures.plan)
-    from liqpanel import stages
 
     for measure in ("gibbs_spread", "zero_return_share", "liu_lm"):
         config = _daily_example_config(tmp_path, {"amihud": {}, measure: {}})
-        assert stages.measures_block_rows(config) == 0, measure
+        assert measures_block_rows(settings_of(config).measures) == 0, measure

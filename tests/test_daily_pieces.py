@@ -1,5 +1,5 @@
-"""A daily file read in pieces (``dailyfile.read_daily_pieces``) gives the daily table, audit and
-suspected splits of the file read whole (``dailyfile.read_daily``), whatever the size of the pieces."""
+"""A daily file read in pieces (``bars.daily_file.read_daily_pieces``) gives the daily table, audit and
+suspected splits of the file read whole (``read_daily``), whatever the size of the pieces."""
 
 from datetime import date
 
@@ -7,7 +7,8 @@ import numpy as np
 import polars as pl
 import pytest
 
-from liqpanel import dailyfile, ingest
+from liqpanel import ingest
+from liqpanel.bars import daily_file as dailyfile
 from liqpanel.core.errors import InputError
 
 MAPPING = {"Ticker": "security", "Day": "date", "O": "open", "H": "high", "L": "low", "C": "close", "Vol": "volume"}

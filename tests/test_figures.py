@@ -10,7 +10,7 @@ import numpy as np
 import polars as pl
 import pytest
 
-from liqpanel import figures
+from liqpanel.report import figures
 from liqpanel import report as rep
 
 MONTHS = [date(2021, m, 1) for m in range(1, 13)]

@@ -5,7 +5,7 @@ from datetime import date
 
 import polars as pl
 
-from liqpanel import formatting as fmt
+from liqpanel.report import formatting as fmt
 from liqpanel import report as rep
 
 

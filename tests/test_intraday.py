@@ -15,7 +15,7 @@ from polars.testing import assert_frame_equal
 
 from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market
-from liqpanel.intraday import SPREAD_MEASURES, daily_benchmarks, realized_variance, trade_benchmarks
+from liqpanel.bars.intraday import SPREAD_MEASURES, daily_benchmarks, realized_variance, trade_benchmarks
 from liqpanel.measures import compute_monthly
 from liqpanel.simulate import simulate_security_months
 
@@ -240,9 +240,9 @@ def test_bars_compute_only_the_columns_the_selected_measures_read(roll_market, m
 
 def test_static_bar_columns_agree_with_the_measure_registry():
     # the table a bars job reads instead of importing the registry: for every registered measure,
-    # the same columns as its registered ones that liqpanel.intraday offers, in the same order
+    # the same columns as its registered ones that liqpanel.bars.intraday offers, in the same order
     from liqpanel.bars import BAR_COLUMNS_OF, READS_NO_BAR_COLUMN
-    from liqpanel.intraday import daily_columns
+    from liqpanel.bars.intraday import daily_columns
     from liqpanel.measures import REGISTRY
 
     offered = daily_columns()

@@ -22,17 +22,19 @@ from liqpanel.simulate import simulate_market, write_market
 # heavy modules only the measures, panel, models and report stages (or the
 # config check before a run) need
 NOT_IN_A_TRADE_JOB = ("scipy", "jsonschema", "liqpanel.report", "liqpanel.panel",
-                      "liqpanel.replication", "liqpanel.models", "matplotlib", "linearmodels", "statsmodels",
+                      "liqpanel.report.replication", "liqpanel.models", "matplotlib", "linearmodels", "statsmodels",
                       "exchange_calendars",  # a profile without `calendar:` never loads the calendar library
                       "liqpanel.measures")  # the bar columns come from liqpanel.bars.BAR_COLUMNS_OF
 
 JOB = """
 import json, sys
-from liqpanel import stages
+from liqpanel.bars.job import run_bars_month
+from liqpanel.clean.job import run_clean
+from liqpanel.core.settings import for_job
 config = json.loads(sys.argv[1])
 paths = json.loads(sys.argv[2])
-stages.clean_month(config, "2021-01", paths["clean"], paths["audit"], paths["quotes"])
-stages.bars_month(paths["clean"], paths["bars"], config, paths["quotes"])
+run_clean("2021-01", paths["clean"], paths["audit"], paths["quotes"], **for_job(config, run_clean))
+run_bars_month(paths["clean"], paths["bars"], paths["quotes"], **for_job(config, run_bars_month))
 print(json.dumps(sorted(sys.modules)))
 """
 

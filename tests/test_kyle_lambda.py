@@ -7,7 +7,7 @@ import polars as pl
 import pytest
 import statsmodels.api as sm
 
-from liqpanel.intraday import kyle_lambda
+from liqpanel.bars.intraday import kyle_lambda
 from liqpanel.measures import compute_monthly
 
 

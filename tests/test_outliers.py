@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from scipy.stats import mstats, trim_mean
 
-from liqpanel.outliers import neighbourhood_outliers
+from liqpanel.clean.outliers import neighbourhood_outliers
 
 
 def _reference(prices, k, delta, gamma, threshold):

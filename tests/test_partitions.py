@@ -21,16 +21,23 @@ import polars as pl
 import pytest
 from polars.testing import assert_frame_equal
 
-from liqpanel import readers, stages
-from liqpanel.stages import trade_jobs
+from liqpanel.clean import reading as readers
 from liqpanel.bars import add_returns, intraday_bars, needed_columns
 from liqpanel.config import load_market, validate_config
 from liqpanel.core.io import month_range
 from liqpanel.measures import REGISTRY, Measure, compute_monthly, register
 from liqpanel.measures.neighbours import in_security_date_order, previous_in_month
 from liqpanel.measures.roll import roll_spread
-from liqpanel.partition import PREVIOUS_DAY, month_window, spans, stored_window, with_previous_day
+from liqpanel.core.partition import PREVIOUS_DAY, month_window, spans, stored_window, with_previous_day
 from liqpanel.simulate import simulate_market, write_market
+from liqpanel.bars.daily_job import run_daily_month
+from liqpanel.bars import job as bars_job
+from liqpanel.bars.job import run_bars, run_bars_month
+from liqpanel.clean import job as clean_job
+from liqpanel.clean.job import run_clean
+from liqpanel.core.io import gather_parquet
+from liqpanel.core.settings import for_job
+from liqpanel.measures.job import run_measures_month
 
 KEY = ["security", "month"]
 GAP = "overnight_gap_check"
@@ -125,7 +132,7 @@ def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, ki
     for month in ("2021-02", "2021-03"):
         windowed = _clean(config, month, tmp_path / "windowed" / month)
         with monkeypatch.context() as patch:  # the same job reading the whole file
-            patch.setattr(trade_jobs, "stored_window", lambda *args, **kwargs: None)
+            patch.setattr(clean_job, "stored_window", lambda *args, **kwargs: None)
             whole = _clean(config, month, tmp_path / "whole" / month)
         for name in ("trades", "audit", "quotes"):
             assert_frame_equal(windowed[name], whole[name])
@@ -142,7 +149,7 @@ def test_month_window_keeps_every_row_of_its_partition(tmp_path, monkeypatch, ki
 
 def _clean(config: dict, month: str, out: Path) -> dict[str, pl.DataFrame]:
     paths = {name: out / f"{name}.parquet" for name in ("trades", "audit", "quotes")}
-    stages.clean_month(config, month, str(paths["trades"]), str(paths["audit"]), str(paths["quotes"]))
+    run_clean(month, str(paths["trades"]), str(paths["audit"]), str(paths["quotes"]), **for_job(config, run_clean))
     return {name: pl.read_parquet(path) for name, path in paths.items()}
 
 
@@ -188,11 +195,12 @@ def _run_partitioned(config: dict, work: Path) -> tuple[pl.DataFrame, pl.DataFra
     part = {m: {s: str(work / s / f"month={m}" / f"{s}.parquet") for s in names} for m in months}
     for i, m in enumerate(months):
         p, before = part[m], (part[months[i - 1]] if i else None)
-        stages.clean_month(config, m, p["clean"], p["audit"], p["quotes"])
-        stages.bars_month(p["clean"], p["bars"], config, p["quotes"])
-        stages.daily_month(p["bars"], before["bars"] if before else None, p["daily"], config)
-        stages.measures_month(config, p["daily"], before["daily"] if before else None, p["measures"])
-    stages.gather([part[m]["measures"] for m in months], str(work / "monthly.parquet"), KEY)
+        run_clean(m, p["clean"], p["audit"], p["quotes"], **for_job(config, run_clean))
+        run_bars_month(p["clean"], p["bars"], p["quotes"], **for_job(config, run_bars_month))
+        run_daily_month(p["bars"], before["bars"] if before else None, p["daily"], **for_job(config, run_daily_month))
+        run_measures_month(p["daily"], before["daily"] if before else None, p["measures"],
+            **for_job(config, run_measures_month))
+    gather_parquet([part[m]["measures"] for m in months], str(work / "monthly.parquet"), KEY)
     daily = pl.concat([pl.read_parquet(part[m]["daily"]) for m in months]).sort("security", "date")
     return daily, pl.read_parquet(work / "monthly.parquet")
 
@@ -307,10 +315,10 @@ def test_a_span_cleaned_in_one_pass_writes_the_partitions_of_month_by_month(tmp_
     months = month_range("2021-10", "2022-01")
     written = {}
     for name, rows in (("by_month", 0), ("one_pass", 10**9)):
-        monkeypatch.setattr(trade_jobs, "ROWS_PER_PASS", rows)
+        monkeypatch.setattr(bars_job, "ROWS_PER_PASS", rows)
         paths = {k: [str(tmp_path / name / f"{k}-{m}.parquet") for m in months] for k in ("trades", "audit", "quotes", "bars")}
         (tmp_path / name).mkdir()
-        stages.trades_span(config, months, paths)
+        run_bars(months, paths, **for_job(config, run_bars))
         written[name] = {Path(p).name: Path(p).read_bytes() for ps in paths.values() for p in ps}
     assert len(written["one_pass"]) == 16
     assert written["one_pass"] == written["by_month"]

@@ -12,10 +12,11 @@ from zoneinfo import ZoneInfo
 import polars as pl
 import pytest
 
-from liqpanel import stages
 from liqpanel.config import load_market, validate_config
 from liqpanel.core.errors import InputError
-from liqpanel.readers import TRADES_SPEC, read_table, unparseable_error
+from liqpanel.clean.reading import TRADES_SPEC, read_table, unparseable_error
+from liqpanel.clean.job import check_inputs, run_clean
+from liqpanel.core.settings import for_job
 
 NEW_YORK = ZoneInfo("America/New_York")
 MAPPING = {"INSTR": "security", "STAMP": "ts", "DEAL_PX": "price", "DEAL_QTY": "size"}
@@ -158,7 +159,8 @@ def _config(tmp_path, trades, quotes=None):
 
 def test_header_only_file_gives_an_empty_partition(tmp_path):
     path = _csv(tmp_path / "h.csv", [])
-    stages.clean_month(_config(tmp_path, path), "2021-03", str(tmp_path / "t.parquet"), str(tmp_path / "a.parquet"))
+    run_clean("2021-03", str(tmp_path / "t.parquet"), str(tmp_path / "a.parquet"),
+        **for_job(_config(tmp_path, path), run_clean))
     assert pl.read_parquet(tmp_path / "t.parquet").height == 0
     assert pl.read_parquet(tmp_path / "a.parquet").height == 0
 
@@ -172,7 +174,8 @@ def test_unsorted_input_gives_the_same_clean_table(tmp_path):
     for name, data in (("sorted", sorted_rows), ("shuffled", rows[::-1])):
         path = _csv(tmp_path / f"{name}.csv", data)
         out = tmp_path / f"{name}.parquet"
-        stages.clean_month(_config(tmp_path, path), "2021-03", str(out), str(tmp_path / f"{name}-audit.parquet"))
+        run_clean("2021-03", str(out), str(tmp_path / f"{name}-audit.parquet"),
+            **for_job(_config(tmp_path, path), run_clean))
         outputs.append(pl.read_parquet(out))
     assert outputs[0].equals(outputs[1])
     assert outputs[0].height == 40  # 43 rows less the three exact duplicates
@@ -183,5 +186,5 @@ def test_check_inputs_catches_a_bad_mapping_before_any_job(tmp_path):
     cfg = _config(tmp_path, path)
     cfg["columns"]["trades"] = {**MAPPING, "PRICE": "price"}
     with pytest.raises(InputError, match="column 'PRICE'"):
-        stages.check_inputs(cfg)
+        check_inputs(**for_job(cfg, check_inputs))
     assert load_market("demo")["timezone"] == "America/New_York"

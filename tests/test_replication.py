@@ -18,7 +18,7 @@ import pytest
 import yaml
 from test_workflow import _config, _run, _snakemake
 
-from liqpanel.compare import check_tables, summary_text
+from liqpanel.report.compare import check_tables, summary_text
 from liqpanel.report import canonical_json
 from liqpanel.simulate import SimulationSpec, simulate_market, write_market
 

@@ -18,9 +18,9 @@ import polars as pl
 import pytest
 import yaml
 
-from liqpanel import figures
+from liqpanel.report import figures
 from liqpanel import report as rep
-from liqpanel import runtime
+from liqpanel.core import runtime
 from liqpanel.config import validate_config
 from liqpanel.core.errors import ConfigError, InputError
 from liqpanel.core.io import write_parquet

@@ -1,4 +1,4 @@
-"""Several markets in one run (liqpanel.marketset): per-market profiles, FX, unknown codes."""
+"""Several markets in one run (liqpanel.markets.several): per-market profiles, FX, unknown codes."""
 
 from __future__ import annotations
 
@@ -12,10 +12,14 @@ from polars.testing import assert_frame_equal
 import pytest
 import yaml
 
-from liqpanel import stages
 from liqpanel.config import load_config, validate_config
 from liqpanel.core.errors import ConfigError, InputError
 from tests.demo_config import one_market
+from liqpanel.bars.daily_job import run_daily_file, run_daily_month
+from liqpanel.bars.job import run_bars_month
+from liqpanel.clean.job import check_inputs, run_clean
+from liqpanel.core.settings import for_job
+from liqpanel.measures.job import run_measures_month
 
 DEMO = "config/config.yaml"
 MONTHS = ["2021-03", "2021-04"]
@@ -70,10 +74,10 @@ def _measure(config: dict, tag: str, tmp_path, trades_filter=None) -> pl.DataFra
     monthly = []
     for month in MONTHS:
         f = {k: str(folder / f"{k}-{month}.parquet") for k in ("trades", "audit", "quotes", "bars", "daily", "monthly")}
-        stages.clean_month(config, month, f["trades"], f["audit"], f["quotes"])
-        stages.bars_month(f["trades"], f["bars"], config, f["quotes"])
-        stages.daily_month(f["bars"], previous_bars, f["daily"], config)
-        stages.measures_month(config, f["daily"], previous_daily, f["monthly"])
+        run_clean(month, f["trades"], f["audit"], f["quotes"], **for_job(config, run_clean))
+        run_bars_month(f["trades"], f["bars"], f["quotes"], **for_job(config, run_bars_month))
+        run_daily_month(f["bars"], previous_bars, f["daily"], **for_job(config, run_daily_month))
+        run_measures_month(f["daily"], previous_daily, f["monthly"], **for_job(config, run_measures_month))
         previous_bars, previous_daily = f["bars"], f["daily"]
         monthly.append(pl.read_parquet(f["monthly"]))
     return pl.concat(monthly, how="diagonal_relaxed").sort("security", "month")
@@ -157,10 +161,10 @@ def test_missing_fx_day_names_currency_and_date(tmp_path):
     rates = pl.read_csv(config["inputs"]["fx"]).filter(pl.col("Day") != "2021-03-17")
     rates.write_csv(tmp_path / "fx.csv")
     f = {k: str(tmp_path / f"{k}.parquet") for k in ("trades", "audit", "quotes", "bars", "daily")}
-    stages.clean_month(config, "2021-03", f["trades"], f["audit"], f["quotes"])
-    stages.bars_month(f["trades"], f["bars"], config, f["quotes"])
+    run_clean("2021-03", f["trades"], f["audit"], f["quotes"], **for_job(config, run_clean))
+    run_bars_month(f["trades"], f["bars"], f["quotes"], **for_job(config, run_bars_month))
     with pytest.raises(InputError, match=r"fx\.csv: no exchange rate for ZZQ on 2021-03-17"):
-        stages.daily_month(f["bars"], None, f["daily"], config)
+        run_daily_month(f["bars"], None, f["daily"], **for_job(config, run_daily_month))
 
 
 def test_one_currency_needs_no_fx_file(tmp_path):
@@ -170,10 +174,10 @@ def test_one_currency_needs_no_fx_file(tmp_path):
     config["markets"]["reporting_currency"] = "ZZQ"
     config["markets"]["profiles"]["HBR"] = _profile(tmp_path)
     f = {k: str(tmp_path / f"{k}.parquet") for k in ("trades", "audit", "quotes", "bars", "daily")}
-    stages.check_inputs(config)
-    stages.clean_month(config, "2021-04", f["trades"], f["audit"], f["quotes"])
-    stages.bars_month(f["trades"], f["bars"], config, f["quotes"])
-    stages.daily_month(f["bars"], None, f["daily"], config)
+    check_inputs(**for_job(config, check_inputs))
+    run_clean("2021-04", f["trades"], f["audit"], f["quotes"], **for_job(config, run_clean))
+    run_bars_month(f["trades"], f["bars"], f["quotes"], **for_job(config, run_bars_month))
+    run_daily_month(f["bars"], None, f["daily"], **for_job(config, run_daily_month))
     daily = pl.read_parquet(f["daily"])
     bars = pl.read_parquet(f["bars"])
     assert daily.get_column("market").unique().sort().to_list() == ["HBR", "QRW"]
@@ -187,17 +191,17 @@ def test_unknown_code_and_unlisted_security_at_run_time(tmp_path):
                        .alias("exch")).write_csv(tmp_path / "securities.csv")
     with pytest.raises(InputError, match=r"securities\.csv: column 'exch' \(market\), data row 4 \(line 5 of the "
                                          r"CSV\), value 'ZZZ': market code not in `markets.profiles`"):
-        stages.check_inputs(config)
+        check_inputs(**for_job(config, check_inputs))
     codes.slice(1).write_csv(tmp_path / "securities.csv")  # the first security left out
     first = codes.get_column("security")[0]
     with pytest.raises(InputError, match=rf"quotes\.parquet: column 'security', data row \d+, value '{first}': "
                                          "security not in the securities file"):
-        stages.clean_month(config, "2021-03", *(str(tmp_path / f"{k}.parquet") for k in ("t", "a", "q")))
+        run_clean("2021-03", *(str(tmp_path / f"{k}.parquet") for k in ("t", "a", "q")), **for_job(config, run_clean))
 
 
 def test_market_values_at_the_month_end_rate(tmp_path):
     # common practice: a month-end stock at the month-end rate; log market value shifts by log(rate)
-    from liqpanel import marketset
+    from liqpanel.markets import several as marketset
 
     _split(tmp_path)
     config = _two_market_config(tmp_path)
@@ -241,7 +245,8 @@ def test_codes_from_the_daily_file(tmp_path):
     config = _daily_with_codes(tmp_path, codes)
     months = [f"2021-0{m}" for m in range(1, 7)]
     outs = [str(tmp_path / f"daily-{m}.parquet") for m in months]
-    stages.daily_from_file(config, months, outs, str(tmp_path / "audit.parquet"), str(tmp_path / "splits.parquet"))
+    run_daily_file(months, outs, str(tmp_path / "audit.parquet"), str(tmp_path / "splits.parquet"),
+        **for_job(config, run_daily_file))
     daily = pl.concat([pl.read_parquet(o) for o in outs])
     vendor = pl.read_csv("demo_data/daily_example.csv.gz", infer_schema_length=0).select(
         pl.col("ticker").alias("security"), pl.col("trade_day").str.to_date().alias("date"),
@@ -262,7 +267,7 @@ def test_two_codes_for_one_security_in_the_daily_file(tmp_path):
                        .then(pl.lit("QRW")).otherwise(pl.col("exch")).alias("exch")).write_csv(tmp_path / "daily.csv")
     with pytest.raises(InputError, match=rf"daily\.csv: column 'exch' \(market\), data row \d+ .*value 'QRW': "
                                          rf"security '{first}' has two market codes \(HBR, QRW\)"):
-        stages.check_inputs(config)
+        check_inputs(**for_job(config, check_inputs))
 
 
 def test_config_names_market_or_markets():
@@ -277,7 +282,7 @@ def test_config_names_market_or_markets():
 
 @pytest.mark.parametrize("text, shown", [("NaN", "(missing)"), ("inf", "not finite"), ("0", "0.0")])
 def test_rate_that_is_not_a_positive_finite_number(tmp_path, text, shown):
-    from liqpanel import marketset
+    from liqpanel.markets import several as marketset
 
     (tmp_path / "fx.csv").write_text(f"day,ccy,px\n2021-01-04,ZZQ,0.5\n2021-01-05,ZZQ,{text}\n")
     config = {"inputs": {"fx": str(tmp_path / "fx.csv")}, "columns": {"fx": {"day": "date", "ccy": "currency",

@@ -11,8 +11,8 @@ import pytest
 from scipy import stats
 
 from liqpanel.config import load_market
-from liqpanel.intraday import trade_benchmarks
-from liqpanel.signing import trade_sign
+from liqpanel.bars.intraday import trade_benchmarks
+from liqpanel.bars.signing import trade_sign
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_data"
 MARKET = load_market("demo")

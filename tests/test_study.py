@@ -326,7 +326,7 @@ def test_heat_map_panels_use_print_names_and_skip_estimators_without_estimates(s
     )
     assert study.unestimated(by_cell, "spread") == [empty]
     drawn = {}
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     def capture(panels, **kwargs):
         drawn[kwargs["stem"].name] = list(panels)

@@ -12,11 +12,14 @@ import polars as pl
 import pytest
 import yaml
 
-from liqpanel import stages
 from liqpanel.cli import main
 from liqpanel.config import validate_config
 from liqpanel.measures import compute_monthly
 from liqpanel.simulate import simulate_market, write_market
+from liqpanel.bars.daily_job import run_daily_month
+from liqpanel.bars.job import run_bars_month
+from liqpanel.clean.job import run_clean
+from liqpanel.core.settings import for_job
 
 MONTHS = ("2021-01", "2021-02")
 
@@ -37,9 +40,9 @@ def daily_from_trades(folder, config) -> pl.DataFrame:
     previous, frames = None, []
     for month in MONTHS:
         paths = {n: str(folder / "work" / f"{n}-{month}.parquet") for n in ("clean", "audit", "quotes", "bars", "daily")}
-        stages.clean_month(config, month, paths["clean"], paths["audit"], paths["quotes"])
-        stages.bars_month(paths["clean"], paths["bars"], config, paths["quotes"])
-        stages.daily_month(paths["bars"], previous, paths["daily"], config)
+        run_clean(month, paths["clean"], paths["audit"], paths["quotes"], **for_job(config, run_clean))
+        run_bars_month(paths["clean"], paths["bars"], paths["quotes"], **for_job(config, run_bars_month))
+        run_daily_month(paths["bars"], previous, paths["daily"], **for_job(config, run_daily_month))
         previous = paths["bars"]
         frames.append(pl.read_parquet(paths["daily"]))
     return pl.concat(frames)

@@ -16,21 +16,9 @@ from typing import Any
 import yaml
 
 from liqpanel.core.errors import ConfigError
-
-PACKAGE_DIR = Path(__file__).resolve().parent
-WORKFLOW_DIR = PACKAGE_DIR / "workflow"
-SNAKEFILE = WORKFLOW_DIR / "Snakefile"
-SCHEMA_PATH = WORKFLOW_DIR / "schemas" / "config.schema.yaml"
-MARKETS_DIR = PACKAGE_DIR / "market_profiles"
-
-
-# libyaml's parser where PyYAML was built with it (the same documents, about ten times faster)
-_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-
-
-def load_schema(path: Path = SCHEMA_PATH) -> dict:
-    with open(path) as fh:
-        return yaml.load(fh, Loader=_LOADER)
+from liqpanel.core.schema import (  # noqa: F401  (the places, read by the command line and the workflow)
+    LOADER as _LOADER, MARKETS_DIR, PACKAGE_DIR, SCHEMA_PATH, SNAKEFILE, WORKFLOW_DIR, load_schema,
+)
 
 
 def _where(error: "jsonschema.ValidationError") -> str:
@@ -38,7 +26,7 @@ def _where(error: "jsonschema.ValidationError") -> str:
     return ".".join(parts) if parts else "the top level"
 
 
-def _message(error: "jsonschema.ValidationError") -> str:
+def schema_message(error: "jsonschema.ValidationError") -> str:
     where = _where(error)
     if error.validator == "additionalProperties":
         allowed = sorted(error.schema.get("properties", {}))
@@ -69,7 +57,7 @@ def _resolve(schema: dict, root: dict) -> dict:
     return target
 
 
-def _fill_defaults(instance: Any, schema: dict, root: dict | None = None) -> Any:
+def fill_defaults(instance: Any, schema: dict, root: dict | None = None) -> Any:
     """Fill ``default`` values of object properties, recursively (local ``$ref``s followed)."""
     root = schema if root is None else root
     if "$ref" in schema:
@@ -80,14 +68,14 @@ def _fill_defaults(instance: Any, schema: dict, root: dict | None = None) -> Any
             if key not in instance and default is not _NO_DEFAULT:
                 instance[key] = copy.deepcopy(default)
             if key in instance:
-                instance[key] = _fill_defaults(instance[key], sub, root)
+                instance[key] = fill_defaults(instance[key], sub, root)
         extra = schema.get("additionalProperties")
         if isinstance(extra, dict):
             for key in instance:
                 if key not in schema.get("properties", {}):
-                    instance[key] = _fill_defaults(instance[key], extra, root)
+                    instance[key] = fill_defaults(instance[key], extra, root)
     elif isinstance(instance, list) and isinstance(schema.get("items"), dict):
-        return [_fill_defaults(item, schema["items"], root) for item in instance]
+        return [fill_defaults(item, schema["items"], root) for item in instance]
     return instance
 
 
@@ -109,8 +97,8 @@ def validate_config(config: dict, *, source: str = "config", checked_before: boo
     validator = jsonschema.Draft202012Validator(schema)
     errors = sorted(validator.iter_errors(config), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
     if errors:
-        raise ConfigError(f"{source}: {_message(errors[0])}")
-    filled = _fill_defaults(copy.deepcopy(config), schema)
+        raise ConfigError(f"{source}: {schema_message(errors[0])}")
+    filled = fill_defaults(copy.deepcopy(config), schema)
     if checked_before:
         return filled
     # measure names and options are checked against the registry
@@ -177,7 +165,7 @@ def shares_source(config: dict) -> dict | None:
     """The first ``inputs.characteristics`` entry listing ``shares_out`` among its variables, or None.
 
     On the trade path it gives the daily table its shares outstanding (for
-    ``turnover`` and ``liu_lm``, ``liqpanel.stages.daily_month``); a daily
+    ``turnover`` and ``liu_lm``, ``liqpanel.bars.daily_job.run_daily_month``); a daily
     file brings its own column instead.
     """
     entries = (config.get("inputs") or {}).get("characteristics") or []

@@ -31,7 +31,7 @@ named rule it breaks. Trades, in this order:
   ``clean.unquoted_trades: drop``; by default such trades are kept and
   counted in the audit column ``kept_without_quote``)
 - ``outlier``: the neighbourhood filter of Brownlees & Gallo (2006), see
-  ``liqpanel.outliers``
+  ``liqpanel.clean.outliers``
 
 Quotes: ``unparseable``, ``missing_field`` (security, timestamp, bid, ask),
 ``outside_sample``, ``nonpositive`` (bid or ask <= 0, BNHLS P2),

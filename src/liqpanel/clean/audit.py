@@ -6,7 +6,7 @@ import polars as pl
 
 from liqpanel.clean.flags import flag_quotes, flag_trades
 from liqpanel.clean.rules import QUOTE_COLUMNS, RULES, TRADE_COLUMNS, month_number, months_of
-from liqpanel.readers import HELPER_COLUMNS
+from liqpanel.clean.reading import HELPER_COLUMNS
 
 
 def audit_of(

@@ -6,7 +6,7 @@ import polars as pl
 
 from liqpanel.clean.rules import QUOTE_COLUMNS, TRADE_COLUMNS, _code_rule, _common_rules, _mark, _partition
 from liqpanel.clean.ties import _duplicates, _merge_same_time, _survivor_window
-from liqpanel.intraday import BY, prevailing_quotes
+from liqpanel.bars.intraday import BY, prevailing_quotes
 
 
 def flag_quotes(
@@ -96,7 +96,7 @@ def _match_quotes(frame: pl.LazyFrame, quotes: pl.LazyFrame, lag_seconds: float)
 
 
 def _brownlees_gallo(flagged: pl.DataFrame, setting: dict) -> pl.DataFrame:
-    from liqpanel.outliers import neighbourhood_outliers  # numpy: loaded only when the filter is on
+    from liqpanel.clean.outliers import neighbourhood_outliers  # numpy: loaded only when the filter is on
 
     kept = flagged.filter(pl.col("drop_rule").is_null()).select("security", "date", "price")
     group = kept.select(pl.struct("security", "date").rle_id()).to_series().to_numpy()

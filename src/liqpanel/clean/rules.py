@@ -7,7 +7,7 @@ from datetime import datetime, timedelta, timezone
 import polars as pl
 
 from liqpanel.core.errors import ConfigError
-from liqpanel.marketset import attach, local_clock, session_index
+from liqpanel.markets.several import attach, local_clock, session_index
 
 
 TRADE_RULES = (

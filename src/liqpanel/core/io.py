@@ -91,3 +91,9 @@ def previous_month(month: str) -> str:
     y, m = map(int, month.split("-"))
     k = y * 12 + m - 2
     return f"{k // 12:04d}-{k % 12 + 1:02d}"
+
+
+def gather_parquet(paths: list[str], out: str, sort: list[str]) -> None:
+    """The partitions at ``paths`` in one table, sorted by ``sort`` (missing values last)."""
+    frames = [pl.scan_parquet(p) for p in paths]
+    write_parquet(pl.concat(frames, how="diagonal_relaxed").sort(sort, nulls_last=True), out)

@@ -21,7 +21,7 @@ from liqpanel.measures.market import add_market_return
 from liqpanel.measures.neighbours import FIRST_OF_MONTH, LAST_OF_MONTH, PAIR_BREAK, SORTED_MARK, mark_pair_breaks, month_flags
 from liqpanel.measures.plan import MONTH_ID, evaluate, prepare
 from liqpanel.measures.registry import REGISTRY, Measure, get_measure, register, resolve_options
-from liqpanel.partition import PREVIOUS_DAY, with_previous_day
+from liqpanel.core.partition import PREVIOUS_DAY, with_previous_day
 
 KEY = ["security", "month"]
 
@@ -61,7 +61,7 @@ def compute_monthly(
 
     A measure that lists ``from_previous_month`` among its required columns
     also gets, per security-month, the security's last day of the previous
-    month, flagged True in that column (``liqpanel.partition``): taken from
+    month, flagged True in that column (``liqpanel.core.partition``): taken from
     ``previous`` (the previous month partition's daily table) when given,
     else from ``daily`` itself. Other measures and ``n_days`` see the
     month's own days only, and no month is reported for a flagged day alone.

@@ -1,5 +1,5 @@
 """Monthly high-frequency benchmarks: the daily trade-and-quote measures of
-``liqpanel.intraday`` averaged over the days of the month.
+``liqpanel.bars.intraday`` averaged over the days of the month.
 
 Each measure's monthly value is the equal-weighted mean over the month's
 days on which the daily value exists (days with at least one signed trade
@@ -105,7 +105,7 @@ def realized_variance(daily: pl.LazyFrame, **_) -> pl.LazyFrame:
 def kyle_lambda(daily: pl.LazyFrame, **_) -> pl.LazyFrame:
     """Kyle's lambda: monthly mean of the daily slopes of midpoint returns on signed order flow.
 
-    Daily (``liqpanel.intraday.kyle_lambda``): OLS slope of r_n = ln(m_n /
+    Daily (``liqpanel.bars.intraday.kyle_lambda``): OLS slope of r_n = ln(m_n /
     m_{n-1}) on S_n = sum_k q_k sqrt(p_k size_k) over the day's 5-minute
     intervals (``bars.lambda_interval_minutes``). Units: log midpoint change
     per square root of a unit of currency; higher is less liquid. The

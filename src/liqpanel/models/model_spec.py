@@ -24,7 +24,7 @@ DEFAULT_COVARIANCE = {
 }
 CLUSTER_DIMENSIONS = ("security", "month", "market")
 EFFECTS = ("security", "month", "market")
-MARKET = "market"  # the panel's market code (several markets, liqpanel.marketset)
+MARKET = "market"  # the panel's market code (several markets, liqpanel.markets.several)
 # Our words of the trade -> the option words of the regression library; the
 # library's own words are refused with the word to use instead.
 LIBRARY_COVARIANCE = {"clustered": "clustered", "robust": "robust", "plain": "unadjusted", "bartlett": "kernel"}

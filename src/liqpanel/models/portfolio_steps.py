@@ -11,7 +11,7 @@ from liqpanel.core.stable import ordered_mean, ordered_sum
 
 KEY = ("security", "month")
 BREAKPOINTS = ("pooled", "per_market")
-MARKET = "market"  # the panel's market code (liqpanel.marketset)
+MARKET = "market"  # the panel's market code (liqpanel.markets.several)
 
 
 def breakpoint_groups(breakpoints: str) -> list[str]:

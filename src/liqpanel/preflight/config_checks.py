@@ -11,13 +11,13 @@ from liqpanel.preflight.problem import DATE_COLUMN, InputSource, Problem, REQUIR
 
 def schema_problems(config: Any, source: str) -> list[Problem]:
     """Every place the config breaks the schema (not only the first)."""
-    from liqpanel.config import _message, load_schema
+    from liqpanel.config import schema_message, load_schema
 
     if not isinstance(config, dict):
         return [Problem(source, "the config must be a mapping of keys to values")]
     validator = jsonschema.Draft202012Validator(load_schema())
     errors = sorted(validator.iter_errors(config), key=lambda e: list(map(str, e.absolute_path)))
-    return [Problem(source, _empty_message(e) or _message(e)) for e in errors]
+    return [Problem(source, _empty_message(e) or schema_message(e)) for e in errors]
 
 
 def _empty_message(error: jsonschema.ValidationError) -> str | None:
@@ -40,7 +40,7 @@ def input_sources(config: dict) -> list[InputSource]:
         try:
             if markets:
                 zones = {load_market(str(p))["timezone"] for p in _dict(markets.get("profiles")).values()}
-                timezone = zones.pop() if len(zones) == 1 else "UTC"  # as liqpanel.marketset.load_markets
+                timezone = zones.pop() if len(zones) == 1 else "UTC"  # as liqpanel.markets.several.load_markets
             else:
                 timezone = load_market(config["market"])["timezone"]
         except LiqpanelError:

@@ -169,7 +169,7 @@ def _timestamp_sample(source: InputSource, file: str, have: dict[str, str]) -> l
     """Trades and quotes: the timestamp (``ts``, or ``date`` and ``time``) parses on the first rows."""
     import polars as pl
 
-    from liqpanel.readers import _timestamp
+    from liqpanel.clean.reading import timestamp_parts
 
     columns = [c for c in ("ts", "date", "time") if c in have]
     if "ts" not in columns and len(columns) < 2:
@@ -179,7 +179,7 @@ def _timestamp_sample(source: InputSource, file: str, have: dict[str, str]) -> l
     except (pl.exceptions.PolarsError, OSError) as exc:
         return [Problem(file, f"cannot read the file (damaged or truncated?): {str(exc).splitlines()[0]}")]
     try:
-        ts, bad, raw, _ = _timestamp(frame.schema, source.timezone, file, source.layout())
+        ts, bad, raw, _ = timestamp_parts(frame.schema, source.timezone, file, source.layout())
     except LiqpanelError as exc:
         return [Problem(file, str(exc), column=have[columns[0]])]
     checked = frame.with_row_index("_row").select("_row", raw.cast(pl.String).alias("_raw"),

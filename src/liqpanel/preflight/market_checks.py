@@ -50,8 +50,8 @@ def _covers_sample(market: dict, config: dict) -> None:
 def several_markets_problems(config: dict) -> list[Problem]:
     """``markets:``: every profile loads and names a currency; the securities file gives every security a
     known code; the FX file is there when a market is not in the reporting currency and its rates are
-    positive finite numbers (``liqpanel.marketset``, which reads both files the same way at run time)."""
-    from liqpanel import marketset
+    positive finite numbers (``liqpanel.markets.several``, which reads both files the same way at run time)."""
+    from liqpanel.markets import several as marketset
     from liqpanel.config import load_market
 
     problems = []

@@ -25,13 +25,13 @@ def preflight(config: Any, *, source: str = "config", target: str = "all") -> li
     settings are not checked, and a measure whose inputs are missing, whose
     values will all be missing, is a warning).
     """
-    from liqpanel.config import _fill_defaults, load_schema
+    from liqpanel.config import fill_defaults, load_schema
 
     problems = schema_problems(config, source)
     broken = bool(problems)  # a check may then meet values of the wrong kind
     if not isinstance(config, dict):
         return problems
-    config = _fill_defaults(copy.deepcopy(config), load_schema())
+    config = fill_defaults(copy.deepcopy(config), load_schema())
     sources = input_sources(config)
     for input_source in sources:
         problems += check_files(input_source)

@@ -41,7 +41,7 @@ def measure_problems(config: dict) -> list[Problem]:
 def daily_columns(config: dict, sources: list[InputSource]) -> tuple[set[str], str]:
     """The columns the daily table will have, and where they come from (for messages)."""
     from liqpanel.core.contracts import DAILY
-    from liqpanel.intraday import daily_columns as intraday_columns
+    from liqpanel.bars.intraday import daily_columns as intraday_columns
 
     inputs = config.get("inputs") or {}
     if inputs.get("daily"):

@@ -48,7 +48,7 @@ def portfolio_lines(series: pl.DataFrame, spec: dict | None, labels: dict | None
     sort and its line styles the first. The high-minus-low line is drawn as
     the benchmark.
     """
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     start = series.get_column("month").min()
     names = sorted(series.get_column("portfolio").unique().to_list(), key=lambda p: (p == "high-low", p))
@@ -84,7 +84,7 @@ def portfolio_lines(series: pl.DataFrame, spec: dict | None, labels: dict | None
 
 def figure_market_liquidity(aggregate: pl.DataFrame, column: str, what: str, stem: str | Path, rid: str) -> list[Path]:
     """One series of the market's liquidity (``level`` or ``innovation``) by month, with a zero line."""
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     frame = aggregate.filter(pl.col(column).is_not_null()).sort("month")
     months = frame.get_column("month").to_list()
@@ -97,7 +97,7 @@ def figure_market_liquidity(aggregate: pl.DataFrame, column: str, what: str, ste
 
 def figure_beta_portfolios(deciles: pl.DataFrame, column: str, what: str, stem: str | Path, rid: str) -> list[Path]:
     """A statistic of the portfolios sorted on liquidity beta, by portfolio (1 = lowest beta)."""
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     frame = deciles.with_columns(pl.col("portfolio").cast(pl.Int64)).sort("portfolio")
     scale, unit = (100.0, "% per month") if column == "mean_ret" else (1.0, "per unit of the liquidity innovation")
@@ -134,7 +134,7 @@ def figure_cumulative(
     title: str | None = None,
 ) -> list[Path]:
     """Cumulative value of 1 invested in each portfolio of a sort (``month, portfolio, ret``)."""
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     default_title, legend_title = sort_title(spec, labels)
     return figures.line_chart(
@@ -152,7 +152,7 @@ def figure_median_spread(
     The true spread is drawn as the black benchmark; with the truth absent,
     the effective spread (the high-frequency benchmark) takes its place.
     """
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     def median(frame: pl.DataFrame, column: str) -> tuple[list, list]:
         by = frame.group_by("month").agg(pl.col(column).median().alias("v")).sort("month")
@@ -177,7 +177,7 @@ def figure_proxy_scatter(
     monthly: pl.DataFrame, benchmark: str, proxies: list[str], stem: str | Path, rid: str, *, labels: dict | None = None,
 ) -> list[Path]:
     """Each proxy against the benchmark over security-months, one panel each (percent of price)."""
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     panels = {}
     for proxy in proxies:

@@ -9,7 +9,7 @@ from typing import Any
 
 import polars as pl
 
-from liqpanel.formatting import format_frame, relabel
+from liqpanel.report.formatting import format_frame, relabel
 from liqpanel.core.io import write_text
 
 
@@ -67,7 +67,7 @@ def to_latex(
 ) -> str:
     """A booktabs table with the caption above and the notes below.
 
-    Numbers are printed by :mod:`liqpanel.formatting` (decimals by kind of
+    Numbers are printed by :mod:`liqpanel.report.formatting` (decimals by kind of
     number, months as YYYY-MM, headings and row labels through ``labels``).
     The first column (row labels) is left-aligned. Every other column whose
     cells are all numbers (plain, or decorated like ``(1.962)`` or ``0.05**``)

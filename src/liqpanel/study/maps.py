@@ -29,7 +29,7 @@ def bias_maps(
     """
     from pathlib import Path
 
-    from liqpanel import figures
+    from liqpanel.report import figures
 
     cols = by_cell.select("spread_vol_bin", "spread_vol_range").unique().sort("spread_vol_bin")
     rows = by_cell.select("intensity_bin", "intensity_range").unique().sort("intensity_bin")

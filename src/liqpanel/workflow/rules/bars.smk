@@ -10,7 +10,7 @@ if FROM_TRADES:
                 bars=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", SPAN),
                 previous=month_files(f"{WORK}/bars/month={{month}}/bars.parquet", month_before(SPAN)),
                 adjustments=expand_inputs("adjustments"),
-                shares=[stages.shares_source(CONFIG)["path"]] if stages.shares_source(CONFIG) else [],
+                shares=[shares_source(CONFIG)["path"]] if shares_source(CONFIG) else [],
                 fx=expand_inputs("fx"),
             output:
                 month_files(f"{WORK}/daily/month={{month}}/daily.parquet", SPAN),
@@ -18,7 +18,10 @@ if FROM_TRADES:
                 columns=CONFIG["columns"]["adjustments"],
                 markets=CONFIG.get("markets"),
             run:
-                stages.daily_span(CONFIG, list(input.bars), input.previous[0] if input.previous else None, list(output))
+                from liqpanel.bars.daily_job import run_daily
+
+                run_daily(list(input.bars), input.previous[0] if input.previous else None, list(output),
+                          inputs=SETTINGS.inputs, market=SETTINGS.market)
 
 else:
 
@@ -40,4 +43,7 @@ else:
             markets=CONFIG.get("markets"),
             sample=CONFIG["sample"],
         run:
-            stages.daily_from_file(CONFIG, MONTHS, list(output.daily), output.audit, output.splits)
+            from liqpanel.bars.daily_job import run_daily_file
+
+            run_daily_file(MONTHS, list(output.daily), output.audit, output.splits, inputs=SETTINGS.inputs,
+                           sample=SETTINGS.sample, market=SETTINGS.market, daily=SETTINGS.daily)

@@ -25,7 +25,13 @@ if FROM_TRADES:
                 sample=CONFIG["sample"],
                 measures=sorted(CONFIG["measures"]),  # the high-frequency bar columns follow the measures
             run:
-                stages.trades_span(CONFIG, params.months, {key: list(output[key]) for key in ("trades", "quotes", "audit", "bars")})
+                from liqpanel.bars.job import run_bars
+
+                run_bars(
+                    params.months, {key: list(output[key]) for key in ("trades", "quotes", "audit", "bars")},
+                    inputs=SETTINGS.inputs, sample=SETTINGS.sample, market=SETTINGS.market, clean=SETTINGS.clean,
+                    bars=SETTINGS.bars, measures=SETTINGS.measures,
+                )
 
     rule audit:
         input:
@@ -33,4 +39,6 @@ if FROM_TRADES:
         output:
             f"{WORK}/audit.parquet",
         run:
-            stages.gather(list(input), output[0], ["partition", "table", "security", "date"])
+            from liqpanel.core.io import gather_parquet
+
+            gather_parquet(list(input), output[0], ["partition", "table", "security", "date"])

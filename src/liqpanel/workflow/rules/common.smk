@@ -2,7 +2,7 @@
 import shlex
 import sys
 
-from liqpanel import runtime
+from liqpanel.core import runtime
 
 from liqpanel.core.errors import LiqpanelError
 
@@ -11,7 +11,7 @@ if not config:
     sys.exit(2)
 try:
     # before anything imports polars: the table engine's thread pool is part
-    # of what makes the tables identical on every machine (liqpanel.runtime)
+    # of what makes the tables identical on every machine (liqpanel.core.runtime)
     runtime.pin_engine_threads(config)
     INTERRUPTED = runtime.clear_stale_lock()
 
@@ -25,22 +25,26 @@ try:
         if errors(PROBLEMS):
             sys.exit(2)
 
-    from liqpanel import stages
-    from liqpanel.config import validate_config
+    from liqpanel.config import shares_source, validate_config
+    from liqpanel.core.settings import settings_of
     from liqpanel.core.io import month_range
-    from liqpanel.partition import spans
-    from liqpanel.readers import list_files
-    from liqpanel.report import input_files, report_category, report_labels, run_id
+    from liqpanel.core.partition import spans
+    from liqpanel.clean.reading import list_files
+    from liqpanel.report import input_files, now, report_category, report_labels, run_id
 
     # a cluster job's process: the main process checked this config in full before submitting the job
     CONFIG = validate_config(config, source="config", checked_before=not workflow.is_main_process)
+    # each job takes the sections it reads, as typed read-only settings (liqpanel.core.settings)
+    SETTINGS = settings_of(CONFIG)
     runtime.check_work_folder(CONFIG["run"]["work_dir"], CONFIG["run"]["engine_threads"])
     if INTERRUPTED:
         runtime.remove_partial_files(CONFIG["run"]["work_dir"])
     INPUTS = input_files(CONFIG)
     RUN_ID = run_id(CONFIG)
     if workflow.is_main_process:  # the inputs' columns and first rows, once per run (not in each cluster job)
-        stages.check_inputs(CONFIG)
+        from liqpanel.clean.job import check_inputs
+
+        check_inputs(inputs=SETTINGS.inputs, market=SETTINGS.market)
 except LiqpanelError as exc:
     sys.stderr.write(f"liqpanel: {exc}\n")
     sys.exit(2)
@@ -54,7 +58,7 @@ SPANS = spans(MONTHS, CONFIG["run"]["span_months"])
 FROM_TRADES = not CONFIG["inputs"]["daily"]
 MEASURES_SPAN = CONFIG["run"].get("measures_span_months")
 MEASURES_SPANS = SPANS if FROM_TRADES else spans(MONTHS, MEASURES_SPAN) if MEASURES_SPAN else [MONTHS]
-STARTED = stages.now()
+STARTED = now()
 COMMAND = shlex.join(sys.argv)
 
 
@@ -84,7 +88,7 @@ def span_rule(stage, span):
     return f"{stage}_{span[0].replace('-', '_')}"
 
 
-HELD = []  # marker files keeping the user's own folders in place (liqpanel.runtime.hold_folders)
+HELD = []  # marker files keeping the user's own folders in place (liqpanel.core.runtime.hold_folders)
 
 
 onstart:

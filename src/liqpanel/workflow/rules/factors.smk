@@ -11,4 +11,7 @@ rule factors:
         factors=CONFIG["factors"],
         lags=CONFIG["models"].get("lags"),
     run:
-        stages.factors(CONFIG, input.panel, output[0], list(input.daily))
+        from liqpanel.factors.job import run_factors
+
+        run_factors(input.panel, output[0], list(input.daily), inputs=SETTINGS.inputs, measures=SETTINGS.measures,
+                    models=SETTINGS.models, factors=SETTINGS.factors)

@@ -15,7 +15,11 @@ if FROM_TRADES:
             params:
                 measures=CONFIG["measures"],
             run:
-                stages.measures_span(CONFIG, list(input.daily), input.previous[0] if input.previous else None, list(output))
+                from liqpanel.measures.job import run_measures
+
+                run_measures(list(input.daily), input.previous[0] if input.previous else None, list(output),
+                             inputs=SETTINGS.inputs, sample=SETTINGS.sample, market=SETTINGS.market,
+                             measures=SETTINGS.measures)
 
     MEASURES_FILES = expand(f"{WORK}/measures/month={{month}}/monthly.parquet", month=MONTHS)
 
@@ -35,8 +39,11 @@ else:
             params:
                 measures=CONFIG["measures"],
             run:
-                stages.measures_table(CONFIG, list(input.daily), input.previous[0] if input.previous else None,
-                                      output[0], block_rows=stages.measures_block_rows(CONFIG))
+                from liqpanel.measures.job import measures_block_rows, run_measures_table
+
+                run_measures_table(list(input.daily), input.previous[0] if input.previous else None, output[0],
+                                   inputs=SETTINGS.inputs, sample=SETTINGS.sample, market=SETTINGS.market,
+                                   measures=SETTINGS.measures, block_rows=measures_block_rows(SETTINGS.measures))
 
     MEASURES_FILES = [f"{WORK}/measures/span={SPAN[0]}/monthly.parquet" for SPAN in MEASURES_SPANS]
 
@@ -47,4 +54,6 @@ rule monthly:
     output:
         f"{WORK}/monthly.parquet",
     run:
-        stages.gather_monthly(list(input), output[0])
+        from liqpanel.measures.job import run_monthly
+
+        run_monthly(list(input), output[0])

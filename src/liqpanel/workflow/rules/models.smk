@@ -10,4 +10,7 @@ rule models:
         models=CONFIG["models"],
         measures=CONFIG["measures"],
     run:
-        stages.models(CONFIG, input.panel, input.monthly, output[0])
+        from liqpanel.models.job import run_models
+
+        run_models(input.panel, input.monthly, output[0], inputs=SETTINGS.inputs, measures=SETTINGS.measures,
+                   models=SETTINGS.models)

@@ -14,4 +14,7 @@ rule panel:
         characteristics=CONFIG["inputs"]["characteristics"],
         markets=CONFIG.get("markets"),
     run:
-        stages.panel(CONFIG, input.monthly, list(input.daily), output.panel, output.audit)
+        from liqpanel.panel.job import run_panel
+
+        run_panel(input.monthly, list(input.daily), output.panel, output.audit, inputs=SETTINGS.inputs,
+                  market=SETTINGS.market, panel=SETTINGS.panel)

@@ -25,8 +25,9 @@ rule report:
             labels=report_labels,
         ),
     run:
-        stages.report(
-            CONFIG,
+        from liqpanel.report.job import run_report
+
+        run_report(
             RUN_ID,
             output[0],
             monthly_path=input.monthly,
@@ -39,4 +40,5 @@ rule report:
             started=STARTED,
             command=COMMAND,
             study_dir=input.study[0] if input.study else None,
+            settings=SETTINGS,
         )

@@ -11,7 +11,10 @@ rule study:
         market=CONFIG.get("market"),
         markets=CONFIG.get("markets"),
     run:
-        stages.study(CONFIG, list(input.daily), input.monthly, output[0])
+        from liqpanel.study.job import run_study
+
+        run_study(list(input.daily), input.monthly, output[0], inputs=SETTINGS.inputs, sample=SETTINGS.sample,
+                  market=SETTINGS.market, measures=SETTINGS.measures, study=SETTINGS.study)
 
 
 # The study alone (`make study`, `liqpanel study`): results/study-<run-id>/
@@ -21,4 +24,6 @@ rule study_results:
     output:
         directory(f"{RESULTS}/study-{RUN_ID}"),
     run:
-        stages.study_report(CONFIG, RUN_ID, input[0], output[0], started=STARTED, command=COMMAND)
+        from liqpanel.study.job import run_study_report
+
+        run_study_report(RUN_ID, input[0], output[0], started=STARTED, command=COMMAND, settings=SETTINGS)

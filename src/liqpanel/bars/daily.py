@@ -18,7 +18,7 @@ partitions look back one month only, and a table of many months follows the
 same rule so that both give the same returns (convention of this project).
 
 Where clean quotes exist, the high-frequency benchmarks of
-``liqpanel.intraday`` (signed trades, quoted, effective and realized
+``liqpanel.bars.intraday`` (signed trades, quoted, effective and realized
 spreads, price impact) and the daily realized variance join the bars.
 """
 
@@ -28,7 +28,7 @@ from collections.abc import Iterable
 
 import polars as pl
 
-from liqpanel import intraday
+from liqpanel.bars import intraday
 from liqpanel.core.contracts import month_of
 
 
@@ -204,7 +204,7 @@ def intraday_bars(
 
 
 # The high-frequency daily columns each measure reads (those of its registered
-# ``columns`` that ``liqpanel.intraday`` offers); a measure not listed reads none.
+# ``columns`` that ``liqpanel.bars.intraday`` offers); a measure not listed reads none.
 # Kept here so that a bars job decides its columns without importing the measure
 # registry (and numpy with it); tests/test_intraday.py checks it against the registry.
 BAR_COLUMNS_OF: dict[str, tuple[str, ...]] = {
@@ -226,7 +226,7 @@ READS_NO_BAR_COLUMN = frozenset({
 
 
 def needed_columns(measures: Iterable[str]) -> list[str]:
-    """The high-frequency daily columns (``liqpanel.intraday``) that the named measures read.
+    """The high-frequency daily columns (``liqpanel.bars.intraday``) that the named measures read.
 
     From ``BAR_COLUMNS_OF`` when it knows every name, else from each measure's
     registered daily columns (``liqpanel.measures``); both give the same list.

@@ -36,7 +36,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 
 from liqpanel.core.io import atomic_path  # noqa: E402
 
-STYLE_FILE = Path(__file__).with_name("liqpanel.mplstyle")
+STYLE_FILE = Path(__file__).resolve().parents[1] / "liqpanel.mplstyle"
 
 # Okabe & Ito (2008) colour-blind-safe palette, without its yellow (too pale
 # for a line on white) and black (kept for benchmarks)

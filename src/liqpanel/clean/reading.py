@@ -98,7 +98,7 @@ def _to_utc(naive: pl.Expr, timezone: str) -> pl.Expr:
     return naive.dt.replace_time_zone(timezone, ambiguous="earliest", non_existent="null").dt.convert_time_zone("UTC")
 
 
-def _timestamp(schema: pl.Schema, timezone: str, path: str, layout: ingest.Layout) -> tuple[pl.Expr, pl.Expr, pl.Expr, str]:
+def timestamp_parts(schema: pl.Schema, timezone: str, path: str, layout: ingest.Layout) -> tuple[pl.Expr, pl.Expr, pl.Expr, str]:
     """(UTC timestamp, bad flag, raw text, how it was read)."""
     naive_note = f"naive, read in the market time zone {timezone}"
     if "ts" in schema:
@@ -178,7 +178,7 @@ def read_table(
     ``window`` maps a file's schema (our names, values as stored) to a
     condition that keeps at least the rows wanted, or None; it is applied
     before any conversion, so the Parquet reader skips the row groups it
-    rules out (``liqpanel.partition.month_window``); ``_row`` still counts
+    rules out (``liqpanel.core.partition.month_window``); ``_row`` still counts
     every row of the file. ``fmt`` is the input's entry of ``formats:``
     (``liqpanel.ingest``): date and time formats, missing tokens, separator.
     """
@@ -196,7 +196,7 @@ def read_table(
                     path=file,
                     column=column,
                 )
-        ts, ts_bad, ts_raw, note = _timestamp(schema, timezone, file, layout)
+        ts, ts_bad, ts_raw, note = timestamp_parts(schema, timezone, file, layout)
         notes.append(note)
         # a value present that gives no instant (e.g. a local time skipped by a clock change) is bad too
         ts_bad = ts_bad | (ts_raw.is_not_null() & ts.is_null())

@@ -34,11 +34,14 @@ reporting currency needs no rate.
 
 from __future__ import annotations
 
+from datetime import date
+
 import polars as pl
 
 from liqpanel import ingest
 from liqpanel import markets as single
 from liqpanel.core.errors import ConfigError, InputError
+from liqpanel.core.settings import InputSettings, MarketSettings, SampleSettings
 
 MARKET = "market"  # our column of a security's market code
 FX_SPEC = ingest.Spec("FX file", text=("currency",), dates=("date",), numeric=("rate",))
@@ -69,6 +72,20 @@ def load_markets(config: dict) -> dict:
         "_members": members,
         "_codes": read_securities(config),
     }
+
+
+def calendar_span(sample: SampleSettings) -> tuple[date, date]:
+    """First and last day of the market calendar a run needs (``markets.sample_span``)."""
+    return single.sample_span(sample.start, sample.end)
+
+
+def run_market(market: MarketSettings, inputs: InputSettings, sample: SampleSettings) -> dict:
+    """The run's market (one profile or several, ``load_markets``) with the early closes of each
+    calendar-backed profile's calendar over the sample (``markets.for_sample``)."""
+    loaded, span = load_markets(market.as_config(inputs)), calendar_span(sample)
+    if several(loaded):
+        return {**loaded, "_members": {code: single.for_sample(m, *span) for code, m in loaded["_members"].items()}}
+    return single.for_sample(loaded, *span)
 
 
 def securities_layout(config: dict) -> ingest.Layout:
@@ -271,7 +288,7 @@ def daily_to_reporting(daily: pl.LazyFrame, config: dict, market: dict) -> pl.La
     ).collect()
     _missing_rate(frame.filter(pl.col("dollar_volume").is_not_null()), path, "a trading day's dollar volume")
     rate = pl.when(pl.col("_currency").is_not_null()).then(pl.col("_rate")).otherwise(1.0)
-    # Kyle's lambda is a log midpoint change per square root of a currency unit traded (liqpanel.intraday)
+    # Kyle's lambda is a log midpoint change per square root of a currency unit traded (liqpanel.bars.intraday)
     scaled = [(pl.col("kyle_lambda") / rate.sqrt()).alias("kyle_lambda")] if "kyle_lambda" in frame.columns else []
     return frame.lazy().with_columns((pl.col("dollar_volume") * rate).alias("dollar_volume"), *scaled).drop(
         "_currency", "_rate")

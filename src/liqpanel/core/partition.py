@@ -178,3 +178,8 @@ def with_previous_day(daily: pl.LazyFrame, previous: pl.LazyFrame | None = None)
 
 
 __all__ = ["PREVIOUS_DAY", "month_start", "month_window", "next_month", "spans", "stored_window", "with_previous_day"]
+
+
+def first_day(month: str) -> date:
+    """'YYYY-MM' as the first day of the month, the value of a table's ``month`` column."""
+    return date.fromisoformat(f"{month}-01")

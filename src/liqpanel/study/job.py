@@ -9,29 +9,30 @@ from typing import TYPE_CHECKING
 import polars as pl
 
 from liqpanel.core.io import write_parquet, write_text
-from liqpanel.marketset import load_markets, several
-from liqpanel.stages.shared import _calendar_span
+from liqpanel.core.settings import InputSettings, MarketSettings, MeasureSettings, SampleSettings, Settings, StudySettings
+from liqpanel.markets.several import calendar_span, load_markets, several
 
 if TYPE_CHECKING:
     from liqpanel.report import RunFolder
 
 
-def study(config: dict, daily_paths: list[str], monthly_path: str | None, out_dir: str) -> None:
+def run_study(daily_paths: list[str], monthly_path: str | None, out_dir: str, *, inputs: InputSettings,
+              sample: SampleSettings, market: MarketSettings, measures: MeasureSettings, study: StudySettings) -> None:
     """Calibrate to the daily table, run the simulation study, write its tables and an index."""
     from liqpanel import study as st
     from liqpanel.markets import has_calendar, trading_days
 
-    settings = config["study"]
+    settings, selected = study.as_dict(), measures.as_dict()
     daily = pl.concat([pl.scan_parquet(p) for p in daily_paths], how="diagonal_relaxed")
     monthly = pl.read_parquet(monthly_path) if monthly_path else None
-    profile = load_markets(config)  # several markets: the study simulates the first one's clock and calendar
+    profile = load_markets(market.as_config(inputs))  # several markets: the study simulates the first one's clock and calendar
     profile = next(iter(profile["_members"].values())) if several(profile) else profile
     calendar = None
     if has_calendar(profile):
-        calendar = trading_days(profile, *_calendar_span(config)).select("date")
-    pool, audit = st.calibrate(daily, monthly, study=settings, measures=config["measures"], calendar=calendar)
-    market = st.Market.from_profile(profile, settings["overnight_share"])
-    result = st.run_study(pool, study=settings, measures=config["measures"], market=market)
+        calendar = trading_days(profile, *calendar_span(sample)).select("date")
+    pool, audit = st.calibrate(daily, monthly, study=settings, measures=selected, calendar=calendar)
+    simulated = st.Market.from_profile(profile, settings["overnight_share"])
+    result = st.run_study(pool, study=settings, measures=selected, market=simulated)
     out = Path(out_dir)
     index = []
     for table in st.result_tables(result, pool, audit):
@@ -67,18 +68,19 @@ def render_study(study_dir: str | Path, out: "RunFolder", *, figures: bool = Tru
     write_parquet(pl.read_parquet(source / "draws.parquet"), out.path / "data" / "study_draws.parquet")
 
 
-def study_report(config: dict, rid: str, study_dir: str, run_dir: str, *, started: str, command: str) -> None:
+def run_study_report(rid: str, study_dir: str, run_dir: str, *, started: str, command: str, settings: Settings) -> None:
     """The study alone: ``results/study-<run-id>/`` with its tables, heat maps, summary and manifest.
 
     Built beside its final place and moved there in one step, like a full run's folder.
     """
     from liqpanel import report as rep
 
+    config = settings.as_config()
     build = rep.build_folder(Path(run_dir).parent, Path(run_dir).name)
-    settings = config["report"]
-    out = rep.RunFolder(build, rid=rid, captions=settings.get("captions"), digits=settings.get("digits", 3),
-                        labels=settings.get("labels"))
-    render_study(study_dir, out, figures=settings["figures"], min_cell=config["study"]["min_cell"])
+    look = config["report"]
+    out = rep.RunFolder(build, rid=rid, captions=look.get("captions"), digits=look.get("digits", 3),
+                        labels=look.get("labels"))
+    render_study(study_dir, out, figures=look["figures"], min_cell=settings.study.min_cell)
     identity = rep.check_identity(config, rid)
     rep.write_manifest(
         build, config=config, inputs=rep.input_listing(config), rid=rid, started=started, command=command,

@@ -2,7 +2,7 @@
 
 Per trade, with m the midpoint (bid + ask)/2 of the quote prevailing at the
 trade (the last quote of the same security and local day at or before the
-trade time minus the quote lag) and q the trade sign (``liqpanel.signing``):
+trade time minus the quote lag) and q the trade sign (``liqpanel.bars.signing``):
 
 - quoted spread          (ask - bid) / m
 - effective spread       2 q (p - m) / m
@@ -56,8 +56,8 @@ from __future__ import annotations
 
 import polars as pl
 
-from liqpanel.marketset import attach, local_clock, session_bound, session_index
-from liqpanel.signing import trade_sign
+from liqpanel.markets.several import attach, local_clock, session_bound, session_index
+from liqpanel.bars.signing import trade_sign
 
 BY = ["security", "date"]
 SPREAD_MEASURES = ("quoted_spread", "effective_spread", "realized_spread", "price_impact")

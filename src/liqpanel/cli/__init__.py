@@ -83,7 +83,7 @@ def _check_config(args: argparse.Namespace) -> int:
 
 
 def _daily_starter(args: argparse.Namespace) -> int:
-    from liqpanel.starter import write_daily_starter
+    from liqpanel.cli.starter import write_daily_starter
 
     out = write_daily_starter(args.daily, args.out, separator=args.separator, force=args.force)
     print(f"{out}: written; map your columns under columns.daily, then run  liqpanel check-config {out}")
@@ -127,14 +127,14 @@ STOPPED = "liqpanel: stopped; run the same command again to resume"
 
 
 def _snakemake(args: argparse.Namespace, extra: list[str], target: str, checked: dict) -> int:
-    from liqpanel.runtime import CHECKED_ENV, config_digest
+    from liqpanel.core.runtime import CHECKED_ENV, config_digest
 
     cmd = [
         sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE),
         "--configfile", str(args.config), "--cores", str(args.cores), "--force-use-threads", "--rerun-incomplete", *extra, "--", target,
     ]
     env = {**os.environ, CHECKED_ENV: config_digest(checked)}  # the workflow need not check the same config again
-    # quiet (the default): one line per stage from the engine's output (liqpanel.progress); verbose: all of it
+    # quiet (the default): one line per stage from the engine's output (liqpanel.cli.progress); verbose: all of it
     quiet = not (args.verbose or any(a in ("-n", "--dry-run", "--dryrun") for a in extra))
     # Ctrl-C in a terminal reaches Snakemake too (one process group), which then stops its jobs and releases
     # its lock; what it prints while it stops (its jobs' tracebacks included) is not shown
@@ -191,7 +191,7 @@ def _relay(stream, muted: threading.Event, errors: _JobErrors, quiet: bool) -> N
     lines = (raw.decode(errors="replace") for raw in iter(stream.readline, b""))
     shown = (line for line in lines if not muted.is_set() and errors.keep(line))
     if quiet:
-        from liqpanel.progress import follow
+        from liqpanel.cli.progress import follow
 
         follow(shown, _Unless(muted, sys.stdout), _Unless(muted, sys.stderr), explained=lambda: errors.ours)
         return
@@ -215,7 +215,7 @@ class _Unless:
 
 
 def _check_tables(args: argparse.Namespace) -> int:
-    from liqpanel.compare import Tolerance, check_tables, summary_text, write_check_report
+    from liqpanel.report.compare import Tolerance, check_tables, summary_text, write_check_report
 
     result = check_tables(args.reference, args.candidate, Tolerance(args.abs_tol, args.rel_tol), strict=args.strict)
     sys.stdout.write(summary_text(result, top=args.top))
@@ -225,7 +225,7 @@ def _check_tables(args: argparse.Namespace) -> int:
 
 
 def _check_versions(args: argparse.Namespace) -> int:
-    from liqpanel.environment import compare_versions, installed_versions, manifest_versions, versions_text
+    from liqpanel.cli.environment import compare_versions, installed_versions, manifest_versions, versions_text
 
     differences = compare_versions(manifest_versions(args.run_folder), installed_versions())
     sys.stdout.write(versions_text(differences, args.run_folder, show_all=args.all))
@@ -385,5 +385,3 @@ def _main(argv: list[str] | None) -> int:
         return 130
 
 
-if __name__ == "__main__":
-    sys.exit(main())

@@ -10,25 +10,31 @@ from typing import TYPE_CHECKING
 
 import polars as pl
 
-from liqpanel import bars as bars_mod
 from liqpanel import ingest
+from liqpanel.bars import daily as bars_mod
+from liqpanel.clean.job import read_adjustments
 from liqpanel.config import shares_source
 from liqpanel.core.io import atomic_path, write_parquet
-from liqpanel.marketset import MARKET, daily_to_reporting, load_markets, several
-from liqpanel.stages.shared import _adjustments, _calendar_span, _month_start
+from liqpanel.core.partition import first_day
+from liqpanel.core.settings import DailySettings, InputSettings, MarketSettings, SampleSettings
+from liqpanel.markets.several import MARKET, calendar_span, daily_to_reporting, load_markets, several
 
 if TYPE_CHECKING:
-    from liqpanel import dailyfile
+    from liqpanel.bars import daily_file as dailyfile
 
 
-def daily_month(bars_path: str, previous_bars_path: str | None, out: str, config: dict | None = None) -> None:
+def run_daily_month(bars_path: str, previous_bars_path: str | None, out: str, *, inputs: InputSettings | None = None,
+                    market: MarketSettings | None = None) -> None:
+    """One month's daily table: returns across the month end, the adjustments, shares outstanding and, with
+    several markets, amounts in the reporting currency (without settings: the returns alone)."""
     previous = pl.scan_parquet(previous_bars_path) if previous_bars_path else None
-    adjustments = _adjustments(config) if config is not None else None
+    adjustments = read_adjustments(inputs) if inputs is not None else None
     daily = bars_mod.add_returns(pl.scan_parquet(bars_path), previous, adjustments)
-    entry = shares_source(config) if config is not None else None
+    entry = shares_source(inputs.as_config()) if inputs is not None else None
     if entry is not None:
         daily = _with_shares_out(daily, entry)
-    if config is not None and config.get("markets"):
+    if market is not None and market.markets:
+        config = market.as_config(inputs)
         daily = daily_to_reporting(daily, config, load_markets(config))
     write_parquet(daily, out)
 
@@ -44,56 +50,63 @@ def _with_shares_out(daily: pl.LazyFrame, entry: dict) -> pl.LazyFrame:
     ).sort("security", "date")
 
 
-def daily_span(config: dict, bars_paths: list[str], previous_bars_path: str | None, out_paths: list[str]) -> None:
-    """``daily_month`` for consecutive months; ``previous_bars_path``: the month before the first, or None."""
+def run_daily(bars_paths: list[str], previous_bars_path: str | None, out_paths: list[str], *, inputs: InputSettings,
+              market: MarketSettings) -> None:
+    """``run_daily_month`` for consecutive months; ``previous_bars_path``: the month before the first, or None."""
     for bars_path, out in zip(bars_paths, out_paths, strict=True):
-        daily_month(bars_path, previous_bars_path, out, config)
+        run_daily_month(bars_path, previous_bars_path, out, inputs=inputs, market=market)
         previous_bars_path = bars_path
 
 
-def read_daily_file(path: str, mapping: dict[str, str], config: dict | None = None) -> pl.LazyFrame:
-    """A user's daily file in the daily contract (see DEVELOPERS.md), checked by ``liqpanel.dailyfile``.
+def read_daily_file(path: str, mapping: dict[str, str], *, inputs: InputSettings | None = None,
+                    sample: SampleSettings | None = None, market: MarketSettings | None = None,
+                    daily: DailySettings | None = None) -> pl.LazyFrame:
+    """A user's daily file in the daily contract (see DEVELOPERS.md), checked by ``liqpanel.bars.daily_file``.
 
     Needs security, date, open, high, low, close and volume; ``dollar_volume``
     defaults to close x volume, ``n_trades`` to missing, and ``ret`` to the
     close-to-close return (only when the file has no return column: a
     vendor's adjusted return is always preferred). ``shares_out`` is kept
-    when present. Without a config the whole file is the sample.
+    when present. Without the run's settings the whole file is the sample.
     """
-    return _read_daily(config or {}, path, mapping).daily.lazy()
+    return _read_daily(inputs, sample, market, daily, path, mapping).daily.lazy()
 
 
-def _read_daily(config: dict, path: str | None = None, mapping: dict | None = None,
+def _read_daily(inputs: InputSettings | None, sample: SampleSettings | None, market: MarketSettings | None,
+                daily: DailySettings | None, path: str | None = None, mapping: dict | None = None,
                 take: "Callable[[pl.DataFrame], None] | None" = None) -> "dailyfile.DailyRead":
     """The daily file read whole, or with ``take`` in pieces (``dailyfile.read_daily_pieces``)."""
-    from liqpanel import dailyfile
+    from liqpanel.bars import daily_file as dailyfile
 
+    config = inputs.as_config() if inputs is not None else {}
     layout = ingest.layout_of(config, "daily") if path is None else ingest.layout_from(
         "daily", path, mapping, (config.get("formats") or {}).get("daily"))
-    sample = (config["sample"]["start"], config["sample"]["end"]) if "sample" in config else ("0001-01", "9999-12")
-    adjustments = _adjustments(config) if config.get("inputs") else None
+    span = (sample.start, sample.end) if sample is not None else ("0001-01", "9999-12")
+    adjustments = read_adjustments(inputs) if inputs is not None else None
+    settings = daily.as_dict() if daily is not None else {}
     if take is not None:
-        return dailyfile.read_daily_pieces(layout, config.get("daily", {}), sample, adjustments, _open_days(config),
+        return dailyfile.read_daily_pieces(layout, settings, span, adjustments, _open_days(inputs, sample, market),
                                            take)
-    return dailyfile.read_daily(layout, config.get("daily", {}), sample, adjustments, _open_days(config))
+    return dailyfile.read_daily(layout, settings, span, adjustments, _open_days(inputs, sample, market))
 
 
-def _open_days(config: dict) -> "dailyfile.OpenDays | None":
+def _open_days(inputs: InputSettings | None, sample: SampleSettings | None,
+               market: MarketSettings | None) -> "dailyfile.OpenDays | None":
     """The open days of the run's markets that have a trading calendar, over the sample (None: none has one)."""
-    from liqpanel.dailyfile import OpenDays
+    from liqpanel.bars.daily_file import OpenDays
     from liqpanel.markets import has_calendar, trading_days
 
-    if "sample" not in config or not (config.get("market") or config.get("markets")):
+    if sample is None or market is None or not (market.market or market.markets):
         return None
-    market = load_markets(config)
-    first, last = _calendar_span(config)
-    members = market["_members"] if several(market) else {None: market}
+    loaded = load_markets(market.as_config(inputs))
+    first, last = calendar_span(sample)
+    members = loaded["_members"] if several(loaded) else {None: loaded}
     frames = [trading_days(profile, first, last).select("date").with_columns(pl.lit(code).alias(MARKET))
               for code, profile in members.items() if has_calendar(profile)]
     if not frames:
         return None
     days = pl.concat(frames)
-    return OpenDays(first, last, days if several(market) else days.drop(MARKET), market.get("_codes"))
+    return OpenDays(first, last, days if several(loaded) else days.drop(MARKET), loaded.get("_codes"))
 
 
 def _write_months(daily: pl.DataFrame, months: list[str], outs: list[str]) -> None:
@@ -106,7 +119,7 @@ def _write_months(daily: pl.DataFrame, months: list[str], outs: list[str]) -> No
     rows = dict(zip(rows.get_column("month").to_list(), rows.get_column("_row")))
 
     def write(month: str, out: str) -> None:
-        mine = rows.get(_month_start(month))
+        mine = rows.get(first_day(month))
         write_parquet(daily.clear() if mine is None else daily[mine], out, passing=True)
 
     with ThreadPoolExecutor(2) as pool:  # the writer releases the interpreter's lock
@@ -121,7 +134,7 @@ class _MonthWriters:
     releases the interpreter's lock), one piece at a time."""
 
     def __init__(self, months: list[str], outs: list[str]) -> None:
-        self.outs = {_month_start(m): out for m, out in zip(months, outs, strict=True)}
+        self.outs = {first_day(m): out for m, out in zip(months, outs, strict=True)}
         self.writers: dict = {}
         self.schema = None
         self.stack = ExitStack()
@@ -169,26 +182,28 @@ class _MonthWriters:
         self.stack.__exit__(*failed)
 
 
-def daily_from_file(config: dict, months: list[str], outs: list[str], out_audit: str, out_splits: str) -> None:
+def run_daily_file(months: list[str], outs: list[str], out_audit: str, out_splits: str, *, inputs: InputSettings,
+                   sample: SampleSettings, market: MarketSettings, daily: DailySettings) -> None:
     """The daily entry point: a user's own daily file read and checked once, written as month
     partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
-    from liqpanel.dailyfile import NotInPieces
+    from liqpanel.bars.daily_file import NotInPieces
 
-    market = load_markets(config) if config.get("markets") else None
+    config = market.as_config(inputs)
+    loaded = load_markets(config) if market.markets else None
 
-    def reporting(daily: pl.DataFrame) -> pl.DataFrame:
-        return daily if market is None else daily_to_reporting(daily.lazy(), config, market).collect()
+    def reporting(table: pl.DataFrame) -> pl.DataFrame:
+        return table if loaded is None else daily_to_reporting(table.lazy(), config, loaded).collect()
 
     try:
         # a file in key order is read a piece at a time, each piece's months added to their partitions:
         # the job never holds the whole file
         with _MonthWriters(months, outs) as writers:
-            read = _read_daily(config, take=lambda piece: writers.add(reporting(piece)))
+            read = _read_daily(inputs, sample, market, daily, take=lambda piece: writers.add(reporting(piece)))
     except NotInPieces:
-        read = _read_daily(config)
+        read = _read_daily(inputs, sample, market, daily)
         _write_months(reporting(read.daily), months, outs)
     write_parquet(read.audit, out_audit)
-    splits = read.splits if config.get("daily", {}).get("split_check", True) else read.splits.clear()
+    splits = read.splits if daily.split_check is not False else read.splits.clear()
     write_parquet(splits, out_splits)
     if splits.height:
         days = "; ".join(f"{s} {d} ({k}, return {r:.1%})" for s, d, r, _, k in splits.head(5).iter_rows())

@@ -37,7 +37,7 @@ OWNER_FILE = Path(".snakemake") / "liqpanel-lock-owner.json"
 
 def engine_threads_default() -> int:
     """The schema's default for ``run.engine_threads``."""
-    from liqpanel.config import load_schema
+    from liqpanel.core.schema import load_schema
 
     return load_schema()["properties"]["run"]["properties"]["engine_threads"]["default"]
 

@@ -9,15 +9,15 @@ from typing import TYPE_CHECKING
 import polars as pl
 
 from liqpanel.core.io import write_parquet, write_text
-from liqpanel.stages.shared import read_truth
-from liqpanel.stages.study_jobs import render_study
+from liqpanel.core.settings import Settings
+from liqpanel.ingest.supplied import read_truth
+from liqpanel.study.job import render_study
 
 if TYPE_CHECKING:
     from liqpanel import report as rep
 
 
-def report(
-    config: dict,
+def run_report(
     rid: str,
     run_dir: str,
     *,
@@ -31,8 +31,12 @@ def report(
     command: str,
     study_dir: str | None = None,
     factors_dir: str | None = None,
+    settings: Settings,
 ) -> None:
     """Write ``results/<run-id>/``: tables, figures, data, README, manifest.
+
+    It reads every section of the settings: the manifest, the run-id check
+    and the replication files record the run as a whole.
 
     The folder is built beside its final place and moved there in one step,
     so it is either absent or complete. Before the move the inputs are
@@ -42,19 +46,19 @@ def report(
     from liqpanel import report as rep
     from liqpanel.measures import REGISTRY
     from liqpanel.panel import audit_summary, coverage
-    from liqpanel.replication import write_replication_files
+    from liqpanel.report.replication import write_replication_files
 
+    config = settings.as_config()
     build = rep.build_folder(Path(run_dir).parent, rid)
     monthly = pl.read_parquet(monthly_path)
-    truth_path = config["inputs"].get("truth")
-    truth = read_truth(config) if truth_path else None
-    measures = list(config["measures"])
+    truth = read_truth(settings.inputs) if settings.inputs.path("truth") else None
+    measures = list(settings.measures.names)
     outputs = [o for name in measures for o in REGISTRY[name].outputs]
     sources = rep.measure_sources(measures)
-    settings = config["report"]
+    look = settings.report.as_dict()
     out = rep.RunFolder(
-        build, rid=rid, captions=settings.get("captions"), sample=rep.sample_note(config, monthly),
-        digits=settings.get("digits", 3), labels=settings.get("labels"),
+        build, rid=rid, captions=look.get("captions"), sample=rep.sample_note(config, monthly),
+        digits=look.get("digits", 3), labels=look.get("labels"),
     )
     units = rep.units_note(config, measures)
 
@@ -76,7 +80,7 @@ def report(
         by_row = frame.width == 2 and frame.columns[0] == "statistic"
         out.table(entry["name"], frame, display=display, caption=entry["caption"], notes=notes, by_row=by_row)
     if factors_dir:
-        render_factors(factors_dir, out, figures=settings["figures"])
+        render_factors(factors_dir, out, figures=look["figures"])
     panel_frame = pl.read_parquet(panel_path)
     variables = sorted({v for m in config["models"].get("regressions", []) for v in m["regressors"]} | {"ret_next"})
     out.table(
@@ -116,9 +120,9 @@ def report(
             notes=rep.join_notes("Proportional full spreads (0.01 = 1%)", rep.measure_sources(
                 [n for n in measures if REGISTRY[n].family == "spread"])),
         )
-    if settings["figures"]:
+    if look["figures"]:
         figures = build / "figures"
-        labels = settings.get("labels") or {}
+        labels = look.get("labels") or {}
         if spread_outputs:
             out.figure(
                 "spread_median",
@@ -163,7 +167,7 @@ def report(
                     notes="Percent of the price",
                 )
     if study_dir:
-        render_study(study_dir, out, figures=settings["figures"], min_cell=config["study"]["min_cell"])
+        render_study(study_dir, out, figures=look["figures"], min_cell=settings.study.min_cell)
     write_parquet(monthly, build / "data" / "monthly.parquet")
     write_parquet(panel_frame, build / "data" / "panel.parquet")
 
@@ -185,12 +189,12 @@ def report(
 
 
 def _daily_audit_tables(out: "rep.RunFolder", audit_path: str, splits_path: str) -> None:
-    from liqpanel import dailyfile
+    from liqpanel.bars import daily_file as dailyfile
 
     out.table(
         "daily_audit", dailyfile.audit_summary(pl.read_parquet(audit_path)),
         caption="Daily file: rows read, kept, dropped by rule and repaired", label="tab:daily_audit",
-        notes="Each row read is kept or dropped by the first rule it breaks (liqpanel.dailyfile); repaired rows are "
+        notes="Each row read is kept or dropped by the first rule it breaks (liqpanel.bars.daily_file); repaired rows are "
         "kept with the named values cleared. Per security-month counts: data/daily_audit.parquet",
     )
     write_parquet(pl.read_parquet(audit_path), out.path / "data" / "daily_audit.parquet")
@@ -201,7 +205,7 @@ def _daily_audit_tables(out: "rep.RunFolder", audit_path: str, splits_path: str)
             caption="Daily file: days that look like a split the returns were not adjusted for",
             label="tab:daily_splits",
             notes="A return within 3% of a split's price ratio with a matching jump in volume; give the split in "
-            "`inputs.adjustments` (liqpanel.dailyfile.suspected_splits)",
+            "`inputs.adjustments` (liqpanel.bars.daily_file.suspected_splits)",
         )
 
 
