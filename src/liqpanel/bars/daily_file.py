@@ -38,6 +38,7 @@ rows_read = rows_kept + the drops, checked before anything is written.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import date
 
@@ -58,6 +59,7 @@ REQUIRED = ("open", "high", "low", "close", "volume")
 OPTIONAL = ("dollar_volume", "n_trades", "ret", "shares_out", "mkt_ret")
 SPEC = ingest.Spec("daily file", dates=("date",), numeric=REQUIRED, optional_numeric=OPTIONAL)
 MISSING_SECURITY = "(missing)"
+PIECE_ROWS = 1_000_000  # rows of a daily file read at a time (``read_daily_pieces``)
 # price ratios of common splits (new shares per old share) and reverse splits
 SPLIT_RATIOS = (1.5, 2.0, 3.0, 4.0, 5.0, 10.0, 1 / 2, 1 / 3, 1 / 4, 1 / 5, 1 / 10)
 
@@ -119,8 +121,9 @@ class OpenDays:
 
 
 def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], settings: dict,
-              sample: tuple[str, str], open_days: OpenDays | None = None) -> pl.DataFrame:
-    """Every row read with ``_rule`` (the first rule it breaks, null when kept) and the repairs applied."""
+              sample: tuple[str, str], open_days: OpenDays | None = None, *, in_order: bool = False) -> pl.DataFrame:
+    """Every row read with ``_rule`` (the first rule it breaks, null when kept) and the repairs applied;
+    ``in_order``: the rows ``_live`` are known to be in key order (``in_key_order``), so no key repeats."""
     if settings.get("unparseable", "error") == "error":
         problem = ingest.first_bad(frame, layout, files, fix="; fix the file, or set `daily: unparseable: drop`")
         if problem is not None:
@@ -128,12 +131,12 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
     first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
     frame = frame.with_columns(
         pl.when(pl.col("_bad").is_not_null()).then(pl.lit("unparseable"))
-        .when(pl.col("security").is_null() | (pl.col("security") == "") | pl.col("date").is_null())
-        .then(pl.lit("missing_key"))
+        .when(_missing_key()).then(pl.lit("missing_key"))
         .otherwise(pl.lit(None, dtype=pl.String))
         .alias("_rule")
     )  # in file order, as ``ingest.read_frame`` reads it
-    frame = _duplicates(frame, layout, files, settings.get("duplicates", "error"))
+    if not in_order:
+        frame = _duplicates(frame, layout, files, settings.get("duplicates", "error"))
     content, bad_range = _content_rule(settings)
     outside = pl.when((pl.col("date") < first) | (month_of("date") > last)).then(pl.lit("outside_sample"))
     closed = pl.lit(None, dtype=pl.String)
@@ -154,6 +157,15 @@ def flag_rows(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], sett
         (kept & pl.col("_nonfinite").is_not_null()).alias("_repaired_non_finite"),
         valid.alias("_valid"),
     )
+
+
+def _missing_key() -> pl.Expr:
+    return pl.col("security").is_null() | (pl.col("security") == "") | pl.col("date").is_null()
+
+
+def _live() -> pl.Expr:
+    """A row that parsed and has its key: the rows a repeated key is looked for among."""
+    return pl.col("_bad").is_null() & _missing_key().not_()
 
 
 def _duplicates(frame: pl.DataFrame, layout: ingest.Layout, files: list[str], policy: str) -> pl.DataFrame:
@@ -206,25 +218,39 @@ def _copies(frame: pl.DataFrame) -> pl.DataFrame:
 
 
 def audit_of(flagged: pl.DataFrame) -> pl.DataFrame:
-    """Rows read, kept, dropped per rule and repaired, per security-month.
+    """Rows read, kept, dropped per rule and repaired, per security-month (``audit_counts`` of the rows)."""
+    return audit_from_counts(audit_counts(flagged))
 
-    The rows are counted once per security, month, rule and repairs; the
-    counts are spread into the rule columns on that small table.
-    """
-    counts = flagged.group_by(
-        "security", month_of("date").alias("month"), "_rule", "_repaired_range", "_repaired_non_finite"
-    ).agg(pl.len().cast(pl.Int64).alias("_n"))
+
+AUDIT_KEY = ("security", "month", "_rule", "_repaired_range", "_repaired_non_finite")
+
+
+def audit_counts(flagged: pl.DataFrame) -> pl.DataFrame:
+    """The rows counted per run of consecutive rows with the same security, month, rule and repairs
+    (``_n``): a file in key order has few runs, found in one pass comparing each row with the one before,
+    without hashing. Counts of several pieces of a file, stacked, give its audit (``audit_from_counts``)."""
+    keys = flagged.select("security", month_of("date").alias("month"), *AUDIT_KEY[2:])
+    if not keys.height:
+        return keys.with_columns(pl.lit(0, dtype=pl.Int64).alias("_n"))
+    changed = pl.any_horizontal([pl.col(c).ne_missing(pl.col(c).shift(1)) for c in AUDIT_KEY]).fill_null(True)
+    starts = keys.with_row_index("_start").filter(changed)
+    ends = pl.col("_start").shift(-1).fill_null(keys.height)
+    return starts.select(*AUDIT_KEY, (ends - pl.col("_start")).cast(pl.Int64).alias("_n"))
+
+
+def audit_from_counts(counts: pl.DataFrame) -> pl.DataFrame:
+    """The audit of ``audit_counts``: the counts spread into the rule columns, per security-month."""
     n = pl.col("_n")
+    spread = {
+        "rows_read": n, "rows_kept": pl.when(pl.col("_rule").is_null()).then(n).otherwise(0),
+        **{f"drop_{rule}": pl.when(pl.col("_rule") == rule).then(n).otherwise(0) for rule in RULES},
+        **{repair: pl.when(pl.col(f"_{repair}")).then(n).otherwise(0) for repair in REPAIRS},
+    }
     return (
-        counts.with_columns(pl.col("security").fill_null(MISSING_SECURITY).replace("", MISSING_SECURITY))
+        counts.select(pl.col("security").fill_null(MISSING_SECURITY).replace("", MISSING_SECURITY), "month",
+                      *[expr.alias(name) for name, expr in spread.items()])
         .group_by("security", "month")
-        .agg(
-            n.sum().alias("rows_read"),
-            n.filter(pl.col("_rule").is_null()).sum().alias("rows_kept"),
-            *[n.filter(pl.col("_rule") == rule).sum().alias(f"drop_{rule}") for rule in RULES],
-            n.filter(pl.col("_repaired_range")).sum().alias("repaired_range"),
-            n.filter(pl.col("_repaired_non_finite")).sum().alias("repaired_non_finite"),
-        )
+        .agg(pl.col(*spread).sum())
         .sort("security", "month", nulls_last=True)
     )
 
@@ -276,11 +302,10 @@ def _returns_in_order(daily: pl.DataFrame) -> pl.DataFrame:
     the same expressions, so the same values."""
     new_security = (pl.col("security") != pl.col("security").shift(1)).fill_null(True)
     close_before = pl.when(new_security).then(None).otherwise(pl.col("close").shift(1))
-    # the day before lies before the previous calendar month: month numbers (year x 12 + month) two apart
-    number = (pl.col("date").dt.year().cast(pl.Int32) * 12 + pl.col("date").dt.month().cast(pl.Int32)).alias("_n")
-    stale = (pl.col("_n") - pl.col("_n").shift(1)) >= 2
-    return daily.with_columns(number).with_columns(
-        pl.when(stale).then(None).otherwise(pl.col("close") / close_before - 1.0).alias("ret")).drop("_n")
+    # the day before lies before the previous calendar month: the first days of the two months are more
+    # than 31 days apart (one month apart: 28 to 31 days; two or more: at least 59)
+    stale = (pl.col("month").to_physical() - pl.col("month").to_physical().shift(1)) > 31
+    return daily.with_columns(pl.when(stale).then(None).otherwise(pl.col("close") / close_before - 1.0).alias("ret"))
 
 
 def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03, ordered: bool | None = None) -> pl.DataFrame:
@@ -295,8 +320,15 @@ def suspected_splits(daily: pl.DataFrame, tolerance: float = 0.03, ordered: bool
     near = pl.any_horizontal([gap <= tolerance for gap in gaps.values()])
     if in_key_order(daily) if ordered is None else ordered:
         # each row's previous row is its security's previous day: the days whose return is near any
-        # split's are found in one pass, and only their previous rows are looked up
-        index = daily.select(pl.arg_where(near.fill_null(False))).to_series()
+        # split's are found in one pass, and only their previous rows are looked up; the pass compares
+        # 1 + ret with two bounds every such day passes (a split's up to (1 + tolerance) / k, a reverse
+        # split's from (1 - tolerance) / k, widened against rounding) before the gaps are computed
+        below, above = float("inf"), float("-inf")  # every day, for a tolerance of 1 or more
+        if 0 <= tolerance < 1:
+            below = max((1.0 + tolerance) / k for k in SPLIT_RATIOS if k > 1) * (1 + 1e-9)
+            above = min((1.0 - tolerance) / k for k in SPLIT_RATIOS if k < 1) * (1 - 1e-9)
+        wide = daily.select(pl.arg_where((pl.col("ret") + 1.0 <= below) | (pl.col("ret") + 1.0 >= above))).to_series()
+        index = wide.filter(daily.select(pl.col("ret").gather(wide)).select(near.fill_null(False)).to_series())
         before = daily.select("security", "volume").gather((index - 1).clip(lower_bound=0))
         base = daily.gather(index).with_columns(
             pl.when((index > 0) & (before["security"] == pl.col("security")))
@@ -335,6 +367,17 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     check_balance(audit, layout.path)
     names = set(frame.columns)
     del frame  # its columns live on in ``flagged``; the helpers of the read are left behind with it
+    kept = _kept(flagged, names)
+    del flagged
+    # whether the kept rows are in key order, proved once for the steps that need to know (None: each
+    # proves it for itself); the daily table is then a subset of them in the same order
+    ordered = None if adjustments is not None and adjustments.height else in_key_order(kept)
+    daily = _daily_table(kept, names, sample, adjustments, layout, ordered)
+    return DailyRead(daily=daily, audit=audit, splits=suspected_splits(daily, ordered=True if ordered else None))
+
+
+def _kept(flagged: pl.DataFrame, names: set[str]) -> pl.DataFrame:
+    """The valid rows of ``flagged`` (kept, or outside the sample) with the daily table's columns."""
     kept = flagged.lazy()
     if not flagged.get_column("_valid").all():  # a file whose every row is kept is not copied by a filter
         kept = kept.filter(pl.col("_valid"))
@@ -343,15 +386,16 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
         kept = kept.with_columns((pl.col("close") * pl.col("volume")).alias("dollar_volume"))
     if "n_trades" not in names:
         kept = kept.with_columns(pl.lit(None, dtype=pl.Int64).alias("n_trades"))
-    has_returns = "ret" in names
     extra = [c for c in ("shares_out", "mkt_ret") if c in names]
     # one query: only the columns kept are copied by the filter
-    kept = kept.select(*[c for c in DAILY if c != "ret" or has_returns], *extra).collect()
-    del flagged
-    # whether the kept rows are in key order, proved once for the steps that need to know (None: each
-    # proves it for itself); the daily table is then a subset of them in the same order
-    ordered = None if adjustments is not None and adjustments.height else in_key_order(kept)
-    daily = adjust(kept, adjustments, has_returns, layout, ordered)
+    return kept.select(*[c for c in DAILY if c != "ret" or "ret" in names], *extra).collect()
+
+
+def _daily_table(kept: pl.DataFrame, names: set[str], sample: tuple[str, str], adjustments: pl.DataFrame | None,
+                 layout: ingest.Layout, ordered: bool | None) -> pl.DataFrame:
+    """The daily table of the rows ``_kept``: adjusted (``adjust``), inside the sample, in key order."""
+    extra = [c for c in ("shares_out", "mkt_ret") if c in names]
+    daily = adjust(kept, adjustments, "ret" in names, layout, ordered)
     first, last = (pl.lit(f"{m}-01").str.to_date() for m in sample)
     inside = pl.col("month").is_between(first, last)
     if not daily.select(inside.all()).item():  # a file within the sample is not copied by a filter
@@ -361,7 +405,91 @@ def read_daily(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
     )
     if not ordered:
         _check_key(daily)
-    return DailyRead(daily=daily, audit=audit, splits=suspected_splits(daily, ordered=True if ordered else None))
+    return daily
+
+
+class NotInPieces(Exception):
+    """A daily file ``read_daily_pieces`` cannot read in pieces; ``read_daily`` reads it whole."""
+
+
+def read_daily_pieces(layout: ingest.Layout, settings: dict, sample: tuple[str, str],
+                      adjustments: pl.DataFrame | None, open_days: OpenDays | None,
+                      take: Callable[[pl.DataFrame], None], rows: int = PIECE_ROWS) -> DailyRead:
+    """``read_daily`` of a file in key order, about ``rows`` rows of the file at a time.
+
+    Each piece of the file holds whole securities (their rows that parse and
+    have a key: ``_piece_end``), so its returns, adjustments and suspected
+    splits are those of the file read whole; ``take`` receives each
+    piece's daily table, in key order, one after the other. The audit is
+    counted per piece and summed (``audit_counts``). The table returned has
+    the audit and the suspected splits, and no daily rows.
+
+    Raises ``NotInPieces`` when the file is several files, its rows are not in
+    key order (``in_key_order`` over the pieces), or it stops the run (a value
+    that does not parse, an impossible return, a missing rate, ...): read
+    whole, it is checked for repeated keys and the error is the same as ever.
+    """
+    scanned = ingest.scan_frame(layout, SPEC)
+    if scanned is None:
+        raise NotInPieces("several files")
+    query, file = scanned
+    settings = settings or {}
+    counts: list[pl.DataFrame] = []
+    splits: list[pl.DataFrame] = []
+    last: tuple | None = None  # the last key of the rows ``_live`` so far
+    ordered = None if adjustments is not None and adjustments.height else True
+
+    def piece(frame: pl.DataFrame) -> None:
+        nonlocal last
+        keys = frame.select("security", "date").filter(_live_in(frame))
+        if keys.height:
+            first = keys.row(0)
+            if not in_key_order(keys) or (last is not None and first <= last):
+                raise NotInPieces("rows not in key order")
+            last = keys.row(-1)
+        problem = ingest.impossible_return(frame, layout, [file])
+        if problem is not None:
+            raise NotInPieces(str(problem))
+        flagged = flag_rows(frame, layout, [file], settings, sample, open_days, in_order=True)
+        counts.append(audit_counts(flagged))
+        names = set(frame.columns)
+        daily = _daily_table(_kept(flagged, names), names, sample, adjustments, layout, ordered)
+        del flagged
+        splits.append(suspected_splits(daily, ordered=ordered))
+        take(daily)
+
+    try:
+        rest, read = None, 0
+        for batch in query.collect_batches(chunk_size=rows):
+            read += batch.height
+            rest = batch if rest is None else pl.concat([rest, batch])
+            while (cut := _piece_end(rest, rows)) is not None:
+                piece(rest.slice(0, cut))
+                rest = rest.slice(cut)
+        if not read:
+            raise NotInPieces("no data rows")
+        if rest.height:
+            piece(rest)
+    except (InputError, pl.exceptions.PolarsError, OSError) as exc:
+        raise NotInPieces(str(exc)) from exc
+    audit = audit_from_counts(pl.concat(counts))
+    check_balance(audit, layout.path)
+    return DailyRead(daily=pl.DataFrame(schema=DAILY), audit=audit,
+                     splits=pl.concat(splits).sort("security", "date"))
+
+
+def _piece_end(frame: pl.DataFrame, rows: int) -> int | None:
+    """Where the first piece of ``frame`` ends: at the first row ``_live`` from row ``rows`` on that
+    begins a security (None: no such row yet). The pieces depend on the file alone, not on how it is read."""
+    if frame.height <= rows:
+        return None
+    live = frame.select(pl.int_range(pl.len(), dtype=pl.UInt32).alias("_i"), "security").filter(_live_in(frame))
+    starts = live.filter(pl.col("security").ne_missing(pl.col("security").shift(1)) & (pl.col("_i") >= rows))
+    return int(starts.item(0, "_i")) if starts.height else None
+
+
+def _live_in(frame: pl.DataFrame) -> pl.Series:
+    return frame.select(_live()).to_series()
 
 
 def _check_key(daily: pl.DataFrame) -> None:

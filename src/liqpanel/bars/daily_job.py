@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import sys
-from concurrent.futures import ThreadPoolExecutor
+from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
+from contextlib import ExitStack, closing
 from typing import TYPE_CHECKING
 
 import polars as pl
@@ -12,7 +14,7 @@ from liqpanel import ingest
 from liqpanel.bars import daily as bars_mod
 from liqpanel.clean.job import read_adjustments
 from liqpanel.config import shares_source
-from liqpanel.core.io import write_parquet
+from liqpanel.core.io import atomic_path, write_parquet
 from liqpanel.core.partition import first_day
 from liqpanel.core.settings import DailySettings, InputSettings, MarketSettings, SampleSettings
 from liqpanel.markets.several import MARKET, calendar_span, daily_to_reporting, load_markets, several
@@ -72,7 +74,8 @@ def read_daily_file(path: str, mapping: dict[str, str], *, inputs: InputSettings
 
 def _read_daily(inputs: InputSettings | None, sample: SampleSettings | None, market: MarketSettings | None,
                 daily: DailySettings | None, path: str | None = None, mapping: dict | None = None,
-                ) -> "dailyfile.DailyRead":
+                take: "Callable[[pl.DataFrame], None] | None" = None) -> "dailyfile.DailyRead":
+    """The daily file read whole, or with ``take`` in pieces (``dailyfile.read_daily_pieces``)."""
     from liqpanel.bars import daily_file as dailyfile
 
     config = inputs.as_config() if inputs is not None else {}
@@ -80,8 +83,11 @@ def _read_daily(inputs: InputSettings | None, sample: SampleSettings | None, mar
         "daily", path, mapping, (config.get("formats") or {}).get("daily"))
     span = (sample.start, sample.end) if sample is not None else ("0001-01", "9999-12")
     adjustments = read_adjustments(inputs) if inputs is not None else None
-    return dailyfile.read_daily(layout, daily.as_dict() if daily is not None else {}, span, adjustments,
-                                _open_days(inputs, sample, market))
+    settings = daily.as_dict() if daily is not None else {}
+    if take is not None:
+        return dailyfile.read_daily_pieces(layout, settings, span, adjustments, _open_days(inputs, sample, market),
+                                           take)
+    return dailyfile.read_daily(layout, settings, span, adjustments, _open_days(inputs, sample, market))
 
 
 def _open_days(inputs: InputSettings | None, sample: SampleSettings | None,
@@ -103,27 +109,99 @@ def _open_days(inputs: InputSettings | None, sample: SampleSettings | None,
     return OpenDays(first, last, days if several(loaded) else days.drop(MARKET), loaded.get("_codes"))
 
 
-def run_daily_file(months: list[str], outs: list[str], out_audit: str, out_splits: str, *, inputs: InputSettings,
-                   sample: SampleSettings, market: MarketSettings, daily: DailySettings) -> None:
-    """The daily entry point: a user's own daily file read and checked once, written as month
-    partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
-    read = _read_daily(inputs, sample, market, daily)
-    config = market.as_config(inputs)
-    table = daily_to_reporting(read.daily.lazy(), config, load_markets(config)).collect() if market.markets \
-        else read.daily
-    # one pass finds each month's rows, in the table's (security, date) order; a month is copied out
-    # only as it is written (not the whole table at once), and a month partition is only read whole
-    # by the next stages (lz4, no statistics: half the time to write)
-    rows = table.select(pl.int_range(pl.len(), dtype=pl.UInt32).alias("_row"), "month").group_by(
+def _write_months(daily: pl.DataFrame, months: list[str], outs: list[str]) -> None:
+    """The month partitions of a whole daily table, in its (security, date) order."""
+    # one pass finds each month's rows; a month is copied out only as it is written (not the whole table
+    # at once), and a month partition is only read whole by the next stages (lz4, no statistics: half the
+    # time to write)
+    rows = daily.select(pl.int_range(pl.len(), dtype=pl.UInt32).alias("_row"), "month").group_by(
         "month", maintain_order=True).agg("_row")
     rows = dict(zip(rows.get_column("month").to_list(), rows.get_column("_row")))
 
     def write(month: str, out: str) -> None:
         mine = rows.get(first_day(month))
-        write_parquet(table.clear() if mine is None else table[mine], out, passing=True)
+        write_parquet(daily.clear() if mine is None else daily[mine], out, passing=True)
 
     with ThreadPoolExecutor(2) as pool:  # the writer releases the interpreter's lock
         list(pool.map(write, months, outs))
+
+
+class _MonthWriters:
+    """Month partitions written a piece at a time: each piece of a daily table in key order (one after
+    another) adds a row group to the partition of each of its months; a month without rows is written
+    empty at the end. Inside ``with``: a partition is moved into place only when every piece is written
+    (``atomic_path``). A piece is written by a thread of its own while the next one is read (the writer
+    releases the interpreter's lock), one piece at a time."""
+
+    def __init__(self, months: list[str], outs: list[str]) -> None:
+        self.outs = {first_day(m): out for m, out in zip(months, outs, strict=True)}
+        self.writers: dict = {}
+        self.schema = None
+        self.stack = ExitStack()
+        self.pending: Future | None = None
+
+    def __enter__(self) -> "_MonthWriters":
+        self.stack.__enter__()
+        self.thread = self.stack.enter_context(ThreadPoolExecutor(1))
+        return self
+
+    def add(self, piece: pl.DataFrame) -> None:
+        self._wait()
+        self.schema = piece.schema
+        self.pending = self.thread.submit(self._write, piece)
+
+    def _wait(self) -> None:
+        if self.pending is not None:
+            pending, self.pending = self.pending, None
+            pending.result()
+
+    def _write(self, piece: pl.DataFrame) -> None:
+        import pyarrow.parquet as pq
+
+        for (month,), rows in piece.partition_by("month", as_dict=True, maintain_order=True).items():
+            table = rows.to_arrow(compat_level=pl.CompatLevel.newest())
+            if month not in self.writers:
+                tmp = self.stack.enter_context(atomic_path(self.outs[month]))
+                # as ``write_parquet(..., passing=True)`` writes (read whole by the next stages only); no
+                # dictionaries, which prices and volumes do not repeat enough to pay for
+                writer = pq.ParquetWriter(tmp, table.schema, compression="lz4", write_statistics=False,
+                                          use_dictionary=False)
+                self.writers[month] = self.stack.enter_context(closing(writer))
+            self.writers[month].write_table(table)
+
+    def __exit__(self, *failed) -> None:
+        try:
+            self._wait()
+            if failed[0] is None:
+                for month, out in self.outs.items():
+                    if month not in self.writers:
+                        write_parquet(pl.DataFrame(schema=self.schema), out, passing=True)
+        except BaseException:
+            self.stack.__exit__(*sys.exc_info())  # the partitions begun are removed
+            raise
+        self.stack.__exit__(*failed)
+
+
+def run_daily_file(months: list[str], outs: list[str], out_audit: str, out_splits: str, *, inputs: InputSettings,
+                   sample: SampleSettings, market: MarketSettings, daily: DailySettings) -> None:
+    """The daily entry point: a user's own daily file read and checked once, written as month
+    partitions (``outs``, one per month of ``months``), the daily audit and the suspected splits."""
+    from liqpanel.bars.daily_file import NotInPieces
+
+    config = market.as_config(inputs)
+    loaded = load_markets(config) if market.markets else None
+
+    def reporting(table: pl.DataFrame) -> pl.DataFrame:
+        return table if loaded is None else daily_to_reporting(table.lazy(), config, loaded).collect()
+
+    try:
+        # a file in key order is read a piece at a time, each piece's months added to their partitions:
+        # the job never holds the whole file
+        with _MonthWriters(months, outs) as writers:
+            read = _read_daily(inputs, sample, market, daily, take=lambda piece: writers.add(reporting(piece)))
+    except NotInPieces:
+        read = _read_daily(inputs, sample, market, daily)
+        _write_months(reporting(read.daily), months, outs)
     write_parquet(read.audit, out_audit)
     splits = read.splits if daily.split_check is not False else read.splits.clear()
     write_parquet(splits, out_splits)

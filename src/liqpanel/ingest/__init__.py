@@ -38,7 +38,7 @@ from liqpanel.ingest.layout import (
     AMBIGUOUS_DATE, CSV, DEFAULT_MISSING, HELPERS, Layout, PARQUET, RETURN_COLUMNS, SCALAR_INPUTS,
     characteristics_layout, error, layout_from, layout_of,
 )
-from liqpanel.ingest.read import Spec, check_unique, read_checked, read_frame, sample_check
+from liqpanel.ingest.read import Spec, check_unique, read_checked, read_frame, sample_check, scan_frame
 from liqpanel.ingest.values import date, date_problem, first_bad, impossible_return, number
 
 __all__ = [
@@ -69,6 +69,7 @@ __all__ = [
     "read_frame",
     "require",
     "sample_check",
+    "scan_frame",
     "scan_file",
     "schema_of",
 ]

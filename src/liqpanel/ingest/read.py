@@ -37,30 +37,56 @@ def read_frame(layout: Layout, spec: Spec, *, n_rows: int | None = None) -> tupl
     files = list_files(layout.path)
     frames = []
     for index, file in enumerate(files):
-        lf = scan_file(file, layout, n_rows)
-        schema = schema_of(lf, file)
-        require(schema, (*spec.text, *spec.dates, *spec.months, *spec.numeric), layout, file, spec.name)
-        named = set(spec.text) | set(spec.dates) | set(spec.months)
-        numbers = [*spec.numeric, *[c for c in spec.optional_numeric if c in schema]]
-        if spec.other_numeric:
-            numbers += [c for c in schema.names() if c not in named and c not in numbers]
-        parsed, floats = _expressions(spec, numbers, schema, layout, file)
+        typed, text = _queries(layout, spec, file, index, n_rows)
         frame = None
-        typed = {c: pl.Float64 for c in floats if schema[c] == pl.String}
-        if typed and file.lower().endswith(CSV):
-            # numbers parsed as the file is read (less than half the time of text converted after): the
-            # same values as the text converted, and a value that does not parse fails this read, which
-            # then goes the way of text to find the value and name it
-            typed_schema = pl.Schema({**schema, **typed})
+        if typed is not None:
+            # a value that does not parse fails this read, which then goes the way of text to find the
+            # value and name it
             try:
-                frame = _parse(scan_file(file, layout, n_rows, numbers=list(typed)), spec,
-                               *_expressions(spec, numbers, typed_schema, layout, file), index, typed_schema)
+                frame = typed.collect()
             except (pl.exceptions.PolarsError, OSError):
                 frame = None
         if frame is None:
-            frame = _parse(lf, spec, parsed, floats, index, schema, file)
+            frame = collect(text, file)
         frames.append(frame)
     return pl.concat(frames, how="diagonal_relaxed"), files
+
+
+def scan_frame(layout: Layout, spec: Spec) -> tuple[pl.LazyFrame, str] | None:
+    """``read_frame`` of an input of one file as a query not yet run, with the file (None: several files).
+
+    The query parses the numbers of a CSV as the file is read, so it fails on
+    a value that does not parse (``read_frame`` then reads the file as text to
+    name it).
+    """
+    files = list_files(layout.path)
+    if len(files) != 1:
+        return None
+    typed, text = _queries(layout, spec, files[0], 0)
+    return (text if typed is None else typed), files[0]
+
+
+def _queries(layout: Layout, spec: Spec, file: str, index: int,
+             n_rows: int | None = None) -> tuple[pl.LazyFrame | None, pl.LazyFrame]:
+    """One file's queries of ``read_frame``: numbers parsed as a CSV is read (None: not a CSV with numbers
+    as text), and every column read as stored and converted after."""
+    lf = scan_file(file, layout, n_rows)
+    schema = schema_of(lf, file)
+    require(schema, (*spec.text, *spec.dates, *spec.months, *spec.numeric), layout, file, spec.name)
+    named = set(spec.text) | set(spec.dates) | set(spec.months)
+    numbers = [*spec.numeric, *[c for c in spec.optional_numeric if c in schema]]
+    if spec.other_numeric:
+        numbers += [c for c in schema.names() if c not in named and c not in numbers]
+    parsed, floats = _expressions(spec, numbers, schema, layout, file)
+    typed = {c: pl.Float64 for c in floats if schema[c] == pl.String}
+    query = None
+    if typed and file.lower().endswith(CSV):
+        # numbers parsed as the file is read (less than half the time of text converted after): the
+        # same values as the text converted
+        typed_schema = pl.Schema({**schema, **typed})
+        query = _parse(scan_file(file, layout, n_rows, numbers=list(typed)), spec,
+                       *_expressions(spec, numbers, typed_schema, layout, file), index, typed_schema)
+    return query, _parse(lf, spec, parsed, floats, index, schema)
 
 
 def _expressions(spec: Spec, numbers: list[str], schema: pl.Schema, layout: Layout,
@@ -81,35 +107,35 @@ def _expressions(spec: Spec, numbers: list[str], schema: pl.Schema, layout: Layo
 
 
 def _parse(lf: pl.LazyFrame, spec: Spec, parsed: dict[str, pl.Expr], floats: list[str], index: int,
-           schema: pl.Schema, file: str | None = None) -> pl.DataFrame:
-    """One file's frame with its helper columns (``read_frame``); ``file`` None: a parse error is raised as
-    Polars raises it (the caller reads the file again as text), else it names the file."""
+           schema: pl.Schema) -> pl.LazyFrame:
+    """One file's query of its frame with the helper columns (``read_frame``)."""
+    # a number stored as a number (or parsed as the CSV is read) always converts: only the others are checked
+    checked = [c for c in parsed if not (c in floats and schema[c].is_numeric())]
     present = {
         c: pl.col(f"_raw_{c}").is_not_null() & (pl.col(f"_raw_{c}").str.strip_chars() != "")
         if schema[c] == pl.String else pl.col(f"_raw_{c}").is_not_null()
-        for c in parsed
+        for c in checked
     }
-    query = (
+    return (
             lf.with_row_index("_row")
             .select(
                 pl.lit(index, dtype=pl.Int32).alias("_file"), pl.col("_row").cast(pl.Int64),
                 *[pl.col(c).cast(pl.String).str.strip_chars().alias(c) for c in spec.text],
-                *[pl.col(c).alias(f"_raw_{c}") for c in parsed],
+                *[pl.col(c).alias(f"_raw_{c}") for c in checked],
                 *[expr.alias(c) for c, expr in parsed.items()],
             )
             .with_columns(
-                *[(present[c] & pl.col(c).is_null()).alias(f"_bad_{c}") for c in parsed],
+                *[(present[c] & pl.col(c).is_null()).alias(f"_bad_{c}") for c in checked],
                 *[(pl.col(c).is_not_null() & ~pl.col(c).is_finite()).alias(f"_inf_{c}") for c in floats],
             )
             .with_columns(
-                _first([(pl.col(f"_bad_{c}"), pl.lit(c)) for c in parsed]).alias("_bad"),
-                _first([(pl.col(f"_bad_{c}"), pl.col(f"_raw_{c}").cast(pl.String)) for c in parsed]).alias("_value"),
+                _first([(pl.col(f"_bad_{c}"), pl.lit(c)) for c in checked]).alias("_bad"),
+                _first([(pl.col(f"_bad_{c}"), pl.col(f"_raw_{c}").cast(pl.String)) for c in checked]).alias("_value"),
                 _first([(pl.col(f"_inf_{c}"), pl.lit(c)) for c in floats]).alias("_nonfinite"),
                 *[pl.when(pl.col(f"_inf_{c}")).then(None).otherwise(pl.col(c)).alias(c) for c in floats],
             )
             .select(pl.exclude("^_(raw|bad|inf)_.*$"))
     )
-    return query.collect() if file is None else collect(query, file)
 
 
 def _first(cases: list[tuple[pl.Expr, pl.Expr]]) -> pl.Expr:

@@ -66,8 +66,11 @@ def run_measures_table(daily_paths: list[str], previous_daily_path: str | None, 
             total += rows[stop]
             stop += 1
         if total:
-            parts.append(_measures(pl.concat([pl.scan_parquet(p) for p in daily_paths[start:stop]]),
-                                   previous_daily_path, inputs, sample, market, measures))
+            # each month in (security, date) order: the months one after another, ordered by security
+            # alone keeping their order, are in (security, date) order (half the time of that sort)
+            block = pl.concat([pl.scan_parquet(p) for p in daily_paths[start:stop]]).sort("security",
+                                                                                          maintain_order=True)
+            parts.append(_measures(block, previous_daily_path, inputs, sample, market, measures))
         previous_daily_path, start = daily_paths[stop - 1], stop
     if not parts:  # no month with a row: the empty table of one month, as ``run_measures_month`` writes it
         parts.append(_measures(pl.scan_parquet(daily_paths[0]), None, inputs, sample, market, measures))
