@@ -46,7 +46,7 @@ import polars as pl
 
 from liqpanel import ingest
 from liqpanel.bars import add_returns
-from liqpanel.core.contracts import DAILY, check_unique_key, month_of
+from liqpanel.core.contracts import DAILY, check_unique_key, follows_previous, month_of
 from liqpanel.core.errors import InputError
 
 RULES = (
@@ -505,10 +505,8 @@ def _check_key(daily: pl.DataFrame) -> None:
 def in_key_order(frame: pl.DataFrame) -> bool:
     """Whether ``frame``'s security and date are never missing and strictly increase row by row
     (sorted by the key, each key once), in one pass comparing each row with the one before."""
-    security, day = pl.col("security"), pl.col("date")
-    after = (security > security.shift(1)) | ((security == security.shift(1)) & (day > day.shift(1)))
-    whole = pl.any_horizontal(security.is_null(), day.is_null()).any().not_()
-    return bool(frame.select(whole & after.slice(1).all()).item())
+    whole = pl.any_horizontal(pl.col("security").is_null(), pl.col("date").is_null()).any().not_()
+    return bool(frame.select(whole & follows_previous(["security", "date"]).slice(1).all()).item())
 
 
 def audit_summary(audit: pl.DataFrame) -> pl.DataFrame:

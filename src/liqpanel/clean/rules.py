@@ -6,6 +6,7 @@ from datetime import datetime, timedelta, timezone
 
 import polars as pl
 
+from liqpanel.core.contracts import follows_previous
 from liqpanel.core.errors import ConfigError
 from liqpanel.markets.several import attach, local_clock, session_index
 
@@ -189,8 +190,5 @@ def _in_order(frame: pl.DataFrame) -> pl.DataFrame:
 
 def _ascending_within(group: str, columns: list[str]) -> pl.Expr:
     """True when each row of a run of equal ``group`` follows the one before it in ``columns`` order (nulls first)."""
-    key = [pl.col(c).to_physical().cast(pl.Int64).fill_null(pl.Int64.min()) for c in columns]
-    after = pl.lit(False)
-    for k in reversed(key):  # lexicographic: earlier columns decide, later ones break ties
-        after = (k > k.shift(1)) | ((k == k.shift(1)) & after)
+    after = follows_previous([pl.col(c).to_physical().cast(pl.Int64).fill_null(pl.Int64.min()) for c in columns])
     return ((pl.col(group) != pl.col(group).shift(1)) | after).fill_null(True).all()

@@ -36,6 +36,20 @@ def month_of(col: str | pl.Expr) -> pl.Expr:
     return expr.dt.truncate("1mo").cast(pl.Date)
 
 
+def follows_previous(keys: list[str | pl.Expr]) -> pl.Expr:
+    """Per row: True where the row comes strictly after the row before it in the lexicographic order of
+    ``keys`` (earlier keys decide, later ones break ties); null on the first row and where a key is null.
+
+    One pass comparing neighbours tells whether a table is already in key order, which is much cheaper
+    than sorting it to find out.
+    """
+    after = pl.lit(False)
+    for key in reversed(keys):
+        key = pl.col(key) if isinstance(key, str) else key
+        after = (key > key.shift(1)) | ((key == key.shift(1)) & after)
+    return after
+
+
 def require_columns(frame: pl.LazyFrame | pl.DataFrame, columns, *, table: str, path: str | None = None) -> None:
     """Raise an InputError naming the first required column that is absent."""
     names = frame.collect_schema().names() if isinstance(frame, pl.LazyFrame) else frame.columns

@@ -57,6 +57,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import polars as pl
 
+from liqpanel.core.contracts import follows_previous
 from liqpanel.measures.neighbours import (FIRST_OF_MONTH, LAST_OF_MONTH, SORTED_MARK, mark_pair_breaks, month_flags,
                                           open_day_numbers)
 
@@ -122,10 +123,7 @@ def month_shifted(expr: pl.Expr) -> pl.Expr:
 
 
 def _is_sorted(frame: pl.DataFrame) -> bool:
-    security, date = pl.col("security"), pl.col("date")
-    ordered = (security.shift(-1) > security) | ((security.shift(-1) == security) & (date.shift(-1) > date))
-    last = pl.int_range(pl.len()) == pl.len() - 1
-    return bool(frame.select((ordered.fill_null(False) | last).all()).item())
+    return bool(frame.select(follows_previous(["security", "date"]).slice(1).fill_null(False).all()).item())
 
 
 def prepare(daily: pl.LazyFrame | pl.DataFrame, calendar=None) -> pl.DataFrame:
