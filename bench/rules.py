@@ -13,7 +13,7 @@ earlier commit that has several markets). Each program runs its jobs as its
 workflow does:
 
 - this code: one process per span of ``run.span_months`` months
-  (``liqpanel.stages.trades_span``);
+  (``liqpanel.bars.job.run_bars``);
 - the earlier commit (``--ref``, default the span jobs before they were
   made faster): one process per span as this code, its own ``src/``
   extracted with ``git archive`` into a scratch folder and put first on the

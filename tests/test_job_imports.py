@@ -4,7 +4,7 @@ On a cluster every job is a fresh process, so each module a job imports
 costs start-up time in every job. A clean or bars job runs in a fresh
 interpreter here, and the modules it loaded are read from ``sys.modules``
 afterwards; the time each import costs is measured by
-``python -X importtime -c "import liqpanel.stages"`` (not asserted here).
+``python -X importtime -c "import liqpanel.bars.job"`` (not asserted here).
 """
 
 from __future__ import annotations

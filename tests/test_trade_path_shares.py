@@ -2,7 +2,7 @@
 
 A daily file brings its own ``shares_out`` column; from trades, the daily
 stage takes each month's shares outstanding from the ``inputs.characteristics``
-entry that lists ``shares_out`` among its variables (``liqpanel.stages``).
+entry that lists ``shares_out`` among its variables (``liqpanel.bars.daily_job``).
 """
 
 from __future__ import annotations
