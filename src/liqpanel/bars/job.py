@@ -69,7 +69,7 @@ def run_bars(
     for first in range(0, len(months), size):
         block = slice(first, first + size)
         cleaned = clean_months(months[block], paths["trades"][block], paths["audit"][block], paths["quotes"][block],
-                               inputs=inputs, sample=sample, market=market, clean=clean)
+                               inputs=inputs, sample=sample, market=market, clean=clean, loaded=loaded)
         _bars_months(months[block], paths["bars"][block], cleaned, loaded, bars, measures)
 
 

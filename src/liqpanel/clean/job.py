@@ -36,15 +36,17 @@ def run_clean(
 def clean_months(
     months: list[str], out_trades: list[str], out_audit: list[str], out_quotes: list[str | None], *,
     inputs: InputSettings, sample: SampleSettings, market: MarketSettings, clean: CleanSettings,
+    loaded: dict | None = None,
 ) -> list[tuple[pl.DataFrame, pl.DataFrame | None]]:
     """Clean consecutive months in one pass: their rows read, ordered and flagged as one frame, then
     cut into month partitions, each written as ``run_clean`` writes it alone (every rule works within
     a security and timestamp or a security-day). Returns each month's clean trades and quotes. A file
     the engine cannot read to the end (a corrupt Parquet page, a truncated gzip) stops the run naming
-    that file."""
+    that file. ``loaded``: the run's market as ``run_market`` gives it, when the caller has it already."""
     try:
-        return _clean_months(months, out_trades, out_audit, out_quotes, inputs, run_market(market, inputs, sample),
-                             clean.as_dict(), (sample.start, sample.end))
+        loaded = run_market(market, inputs, sample) if loaded is None else loaded
+        return _clean_months(months, out_trades, out_audit, out_quotes, inputs, loaded, clean.as_dict(),
+                             (sample.start, sample.end))
     except (pl.exceptions.PolarsError, OSError) as exc:
         raise ingest.damaged([inputs.path(k) for k in ("quotes", "trades") if inputs.path(k)],
                              inputs.as_config()["formats"], exc) from None

@@ -116,8 +116,8 @@ def stored_window(
     if "date" not in schema or "time" not in schema or month == sample[0] or sample[0] == sample[1]:
         return None
     dtype = schema["date"]
-    lo = date.fromisoformat(f"{month}-01") - timedelta(days=2)
-    hi = date.fromisoformat(f"{next_month(month)}-01") + timedelta(days=2)
+    lo = first_day(month) - timedelta(days=2)
+    hi = first_day(next_month(month)) + timedelta(days=2)
     if dtype == pl.Date:
         bounds = pl.lit(lo), pl.lit(hi)
     elif isinstance(dtype, pl.Datetime) and dtype.time_zone is None:

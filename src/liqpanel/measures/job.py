@@ -95,9 +95,9 @@ def _measures(daily: pl.LazyFrame, previous: pl.LazyFrame | str | None, inputs: 
         previous = pl.scan_parquet(previous)
     start, end = calendar_span(sample) if sample is not None and sample.start else (None, None)
     selected = measures.as_dict()
-    market = load_markets(market.as_config(inputs))
-    members = market["_members"] if several(market) else {None: market}
-    present = set(daily.select(MARKET).unique().collect().to_series().to_list()) if several(market) else {None}
+    loaded = load_markets(market.as_config(inputs))
+    members = loaded["_members"] if several(loaded) else {None: loaded}
+    present = set(daily.select(MARKET).unique().collect().to_series().to_list()) if several(loaded) else {None}
     parts = []
     for code, profile in members.items():  # each market on its own: its tick, its market return, its trading days
         if code not in present:
@@ -111,7 +111,7 @@ def _measures(daily: pl.LazyFrame, previous: pl.LazyFrame | str | None, inputs: 
             before = market_inputs(before, selected, profile, start, end)[0]
         parts.append(compute_monthly(mine, selection, previous=before, calendar=calendar))
     if not parts:  # a month without any row
-        parts.append(compute_monthly(daily.drop(MARKET) if several(market) else daily,
+        parts.append(compute_monthly(daily.drop(MARKET) if several(loaded) else daily,
                                      market_inputs(daily, selected, None)[1], previous=None))
     return pl.concat(parts, how="diagonal_relaxed").sort("security", "month") if len(parts) > 1 else parts[0]
 
